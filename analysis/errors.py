@@ -1,0 +1,41 @@
+"""Errors raised for bad input: each names the column, the rows and what was expected."""
+from __future__ import annotations
+
+
+class CohortError(ValueError):
+    """Base class of every user-facing input problem; ``str(err)`` is the message to show."""
+
+
+class SettingsError(CohortError):
+    """A setting has a value outside its allowed range or choices."""
+
+
+class DataError(CohortError):
+    """The data do not fit the chosen roles.
+
+    Attributes
+    ----------
+    column : str or None
+        The column concerned (the UI shows the message beside that role's control).
+    rows : tuple of int
+        First few offending row numbers, counted from 1 as in a spreadsheet
+        (the header is row 1, so the first data row is row 2).
+    """
+
+    def __init__(self, message: str, *, column: str | None = None, rows=()):
+        super().__init__(message)
+        self.column = column
+        self.rows = tuple(int(r) for r in rows)
+
+
+class ModelError(CohortError):
+    """A model cannot be fitted as asked (too few subjects, no variation, singular design)."""
+
+
+def row_list(rows, limit: int = 5) -> str:
+    """'rows 2, 5, 9 and 3 more' from 0-based data-row positions (spreadsheet numbering)."""
+    rows = [int(r) + 2 for r in rows]
+    shown = ", ".join(str(r) for r in rows[:limit])
+    more = len(rows) - limit
+    word = "row" if len(rows) == 1 else "rows"
+    return f"{word} {shown}" + (f" and {more} more" if more > 0 else "")
