@@ -1,0 +1,297 @@
+"""The cached analysis layer shared by the dashboard and the command line.
+
+A :class:`Workbench` memoises each stage of the exploratory analysis under the
+data's content hash, the column roles and only the settings that stage reads,
+so that changing, say, the number of variogram bins re-bins the pairs but does
+not refit the per-subject lines or re-read the table.
+
+Stages and the settings they read (see :data:`analysis.settings.STAGE_FIELDS`)::
+
+    selection     origin, unit, window, min visits, require covariate, covariate, duplicates
+    cohort        selection + transform, centring, stratifier and its cut
+    subject_fits  selection
+    residuals     selection + detrending (+ strata when detrending within strata)
+    variogram     residuals + bins, maximum lag
+    lagcorr       residuals + window width
+    summaries     cohort
+"""
+from __future__ import annotations
+
+import hashlib
+import json
+import threading
+from collections import Counter, OrderedDict
+from dataclasses import dataclass
+from typing import Any, Callable
+
+import numpy as np
+import pandas as pd
+
+from .loading import Dataset
+from .prepare import CohortSelection, PreparedCohort, select_cohort, stratify
+from .settings import STAGE_FIELDS, Roles, Settings
+
+
+class ResultCache:
+    """A bounded, thread-safe least-recently-used memo.
+
+    Two sessions asking for the same key share the result (keys include the
+    data's content hash, so different data never collide); nothing else is shared.
+    """
+
+    def __init__(self, max_entries: int = 128):
+        if max_entries < 1:
+            raise ValueError(f"max_entries == {max_entries}, must be >= 1")
+        self.max_entries = max_entries
+        self._items: OrderedDict = OrderedDict()
+        self._lock = threading.Lock()
+
+    def get_or_compute(self, key, compute: Callable[[], Any]) -> tuple[Any, bool]:
+        """Return (value, computed_now)."""
+        with self._lock:
+            if key in self._items:
+                self._items.move_to_end(key)
+                return self._items[key], False
+        value = compute()
+        with self._lock:
+            self._items[key] = value
+            self._items.move_to_end(key)
+            while len(self._items) > self.max_entries:
+                self._items.popitem(last=False)
+        return value, True
+
+    def __len__(self) -> int:
+        return len(self._items)
+
+    def clear(self) -> None:
+        with self._lock:
+            self._items.clear()
+
+
+@dataclass(frozen=True, eq=False)
+class Summaries:
+    """Stratum table, slope-vs-covariate smooth and the dropout view's data."""
+
+    stratum_table: pd.DataFrame
+    slope_smooth: pd.DataFrame
+    dropout: Any
+
+
+@dataclass(frozen=True, eq=False)
+class Exploration:
+    """Every exploratory result for one (data, roles, settings)."""
+
+    cohort: PreparedCohort
+    subject_lines: pd.DataFrame
+    residuals: Any
+    variogram: Any
+    lag_correlation: Any
+    summaries: Summaries
+
+    def to_json(self) -> dict:
+        """Plain JSON-ready dict (the ``cohortlens summarize`` output; schema in README)."""
+        c = self.cohort
+        lines = self.subject_lines
+        return _json_safe({
+            "settings": c.settings.to_dict(),
+            "roles": c.roles.to_dict(),
+            "cohort": {
+                "subjects": c.panel.n_subjects,
+                "observations": c.panel.n_obs,
+                "time_label": c.time_label,
+                "covariate": c.covariate,
+                "center_value": c.center_value,
+            },
+            "warnings": list(c.warnings),
+            "attrition": c.attrition.to_json(),
+            "subjects": lines.to_dict(orient="records"),
+            "residuals": {"method": self.residuals.description},
+            "semivariogram": self.variogram.to_json(),
+            "lag_correlation": self.lag_correlation.to_json(),
+            "strata": self.summaries.stratum_table.to_dict(orient="records"),
+            "strata_definition": c.strata.to_frame().to_dict(orient="records"),
+            "slope_vs_covariate": self.summaries.slope_smooth.to_dict(orient="records"),
+            "dropout": self.summaries.dropout.to_json(),
+        })
+
+
+class Workbench:
+    """Memoised exploratory analysis; one instance serves every browser session.
+
+    Parameters
+    ----------
+    max_entries : int
+        Bound on cached results (all stages together).
+
+    Attributes
+    ----------
+    compute_counts : collections.Counter
+        How many times each stage was actually computed (cache misses).
+    """
+
+    def __init__(self, max_entries: int = 128):
+        self._cache = ResultCache(max_entries)
+        self.compute_counts: Counter = Counter()
+        self._count_lock = threading.Lock()
+
+    # -- keys ------------------------------------------------------------
+    @staticmethod
+    def stage_fields(stage: str, settings: Settings) -> tuple[str, ...]:
+        """The settings a stage's result depends on."""
+        sel = STAGE_FIELDS["cohort"]
+        strata = STAGE_FIELDS["strata"]
+        res = STAGE_FIELDS["residuals"] + (strata if settings.detrend_within_strata else ())
+        table = {
+            "selection": sel,
+            "subject_fits": sel,
+            "cohort": sel + strata,
+            "summaries": sel + strata,
+            "residuals": sel + res,
+            "variogram": sel + res + STAGE_FIELDS["variogram"],
+            "lagcorr": sel + res + STAGE_FIELDS["lagcorr"],
+        }
+        return table[stage]
+
+    def _key(self, stage: str, dataset: Dataset, roles: Roles, settings: Settings, extra=()):
+        d = settings.to_dict()
+        sub = {k: d[k] for k in self.stage_fields(stage, settings)} if stage in (
+            "selection", "subject_fits", "cohort", "summaries", "residuals", "variogram",
+            "lagcorr") else d
+        digest = hashlib.sha1(json.dumps(sub, sort_keys=True, default=str).encode()).hexdigest()
+        return (dataset.key, roles, stage, digest[:16], extra)
+
+    def _memo(self, stage, dataset, roles, settings, compute, extra=()):
+        value, fresh = self._cache.get_or_compute(
+            self._key(stage, dataset, roles, settings, extra), compute)
+        if fresh:
+            with self._count_lock:
+                self.compute_counts[stage] += 1
+        return value
+
+    # -- stages ----------------------------------------------------------
+    def selection(self, dataset: Dataset, roles: Roles, settings: Settings) -> CohortSelection:
+        return self._memo("selection", dataset, roles, settings,
+                          lambda: select_cohort(dataset.frame, roles, settings))
+
+    def cohort(self, dataset: Dataset, roles: Roles, settings: Settings) -> PreparedCohort:
+        return self._memo("cohort", dataset, roles, settings,
+                          lambda: stratify(self.selection(dataset, roles, settings), settings))
+
+    def subject_fits(self, dataset: Dataset, roles: Roles, settings: Settings):
+        from .subject_fits import fit_subject_lines
+
+        return self._memo("subject_fits", dataset, roles, settings,
+                          lambda: fit_subject_lines(self.selection(dataset, roles, settings).panel))
+
+    def subject_lines(self, dataset: Dataset, roles: Roles, settings: Settings) -> pd.DataFrame:
+        """Per-subject OLS lines joined with stratum, stratum label and raw covariate."""
+        cohort = self.cohort(dataset, roles, settings)
+        fits = self.subject_fits(dataset, roles, settings)
+        frame = fits.to_frame(cohort.subject_ids)
+        base = cohort.baseline
+        frame["stratum"] = base["stratum"].to_numpy()
+        frame["stratum_label"] = base["stratum_label"].to_numpy()
+        cov = cohort.covariate
+        frame["covariate"] = (base[cov].to_numpy() if cov is not None
+                              else np.full(len(frame), np.nan))
+        if cohort.x is not None:
+            frame["x"] = cohort.x
+        return frame
+
+    def residuals(self, dataset: Dataset, roles: Roles, settings: Settings):
+        from .detrend import detrend
+
+        def compute():
+            if settings.detrend_within_strata:
+                cohort = self.cohort(dataset, roles, settings)
+                panel = cohort.panel
+                groups = cohort.strata.codes[panel.codes]
+            else:
+                panel = self.selection(dataset, roles, settings).panel
+                groups = None
+            return detrend(panel, method=settings.detrend, spline_df=settings.spline_df,
+                           lowess_frac=settings.lowess_frac, groups=groups)
+
+        return self._memo("residuals", dataset, roles, settings, compute)
+
+    def residual_panel(self, dataset: Dataset, roles: Roles, settings: Settings):
+        panel = self.selection(dataset, roles, settings).panel
+        return panel.with_y(self.residuals(dataset, roles, settings).residual)
+
+    def variogram(self, dataset: Dataset, roles: Roles, settings: Settings):
+        from .variogram import semivariogram
+
+        return self._memo("variogram", dataset, roles, settings, lambda: semivariogram(
+            self.residual_panel(dataset, roles, settings), n_bins=settings.variogram_bins,
+            max_lag=settings.variogram_max_lag))
+
+    def lag_correlation(self, dataset: Dataset, roles: Roles, settings: Settings):
+        from .lagcorr import default_lag_width, lag_correlation
+
+        def compute():
+            panel = self.residual_panel(dataset, roles, settings)
+            width = settings.lag_width or default_lag_width(panel.time)
+            return lag_correlation(panel, width=width)
+
+        return self._memo("lagcorr", dataset, roles, settings, compute)
+
+    def summaries(self, dataset: Dataset, roles: Roles, settings: Settings) -> Summaries:
+        from .summaries import dropout_summary, slope_covariate_smooth, stratum_table
+
+        def compute():
+            cohort = self.cohort(dataset, roles, settings)
+            fits = self.subject_fits(dataset, roles, settings)
+            slopes = np.asarray(fits.to_frame()["slope"], dtype=float)
+            cov = cohort.covariate
+            numeric = cov is not None and cohort.selection.covariate_kinds[cov] == "numeric"
+            raw = (cohort.baseline[cov].to_numpy(float) if numeric
+                   else np.full(cohort.panel.n_subjects, np.nan))
+            table = stratum_table(cohort.panel, cohort.strata, raw, slopes)
+            smooth = (slope_covariate_smooth(raw, slopes) if numeric
+                      else pd.DataFrame({"covariate": [], "slope_smooth": []}))
+            return Summaries(table, smooth, dropout_summary(cohort.panel, cohort.strata))
+
+        return self._memo("summaries", dataset, roles, settings, compute)
+
+    def explore(self, dataset: Dataset, roles: Roles, settings: Settings) -> Exploration:
+        """Every exploratory stage (each one cached on its own)."""
+        return Exploration(
+            cohort=self.cohort(dataset, roles, settings),
+            subject_lines=self.subject_lines(dataset, roles, settings),
+            residuals=self.residuals(dataset, roles, settings),
+            variogram=self.variogram(dataset, roles, settings),
+            lag_correlation=self.lag_correlation(dataset, roles, settings),
+            summaries=self.summaries(dataset, roles, settings),
+        )
+
+
+def explore(df: pd.DataFrame, roles: Roles, settings: Settings) -> Exploration:
+    """One-off exploratory analysis of a DataFrame (no cache kept)."""
+    return Workbench(max_entries=32).explore(Dataset.from_frame(df), roles, settings)
+
+
+def _json_safe(obj):
+    """Recursively turn numpy scalars/arrays into Python types and NaN/inf into None."""
+    if isinstance(obj, dict):
+        return {str(k): _json_safe(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [_json_safe(v) for v in obj]
+    if isinstance(obj, np.ndarray):
+        return [_json_safe(v) for v in obj.tolist()]
+    if isinstance(obj, (np.bool_, bool)):
+        return bool(obj)
+    if isinstance(obj, (np.integer,)):
+        return int(obj)
+    if isinstance(obj, (float, np.floating)):
+        f = float(obj)
+        return f if np.isfinite(f) else None
+    if obj is None or isinstance(obj, (str, int)):
+        return obj
+    if obj is pd.NA or obj is pd.NaT:
+        return None
+    if isinstance(obj, pd.Timestamp):
+        return obj.isoformat()
+    return str(obj)
+
+
+json_safe = _json_safe

@@ -1,0 +1,498 @@
+"""From a raw table and the user's choices to a prepared cohort.
+
+Two steps, cached separately by the pipeline:
+
+1. :func:`select_cohort` validates the columns, re-anchors time, applies the
+   inclusion rules and records what each rule removed (the attrition table).
+2. :func:`stratify` transforms and centres the primary baseline covariate and
+   cuts the stratifier into groups.
+
+:func:`prepare` runs both. Every problem with the input is raised as a
+:class:`~analysis.errors.DataError` naming the column, the first offending rows
+(spreadsheet numbering: the header is row 1) and what was expected.
+"""
+from __future__ import annotations
+
+import re
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+from . import options as opt
+from .errors import DataError, SettingsError, row_list
+from .loading import column_kind, parse_dates
+from .panel import Panel
+from .settings import Roles, Settings
+from .strata import Strata, categorical_strata, center_values, cut_strata, transform_values
+
+_DECIMAL_COMMA = re.compile(r"^\s*[-+]?\d+,\d+\s*$")
+
+
+# --------------------------------------------------------------------------- results
+@dataclass(frozen=True)
+class AttritionStep:
+    """One inclusion step: what remains after it and what it removed."""
+
+    step: str
+    subjects: int
+    observations: int
+    subjects_removed: int
+    observations_removed: int
+
+
+@dataclass(frozen=True)
+class Attrition:
+    """The ordered inclusion steps, starting from every row read."""
+
+    steps: tuple[AttritionStep, ...]
+
+    def to_frame(self) -> pd.DataFrame:
+        return pd.DataFrame([s.__dict__ for s in self.steps],
+                            columns=["step", "subjects", "observations",
+                                     "subjects_removed", "observations_removed"])
+
+    def to_json(self) -> list[dict]:
+        return [dict(s.__dict__) for s in self.steps]
+
+
+@dataclass(frozen=True, eq=False)
+class CohortSelection:
+    """The included subjects and visits, before any covariate transform or stratification.
+
+    Attributes
+    ----------
+    panel : Panel
+        Response by subject and time since origin (in ``settings.unit``).
+    subject_ids : ndarray
+        Original subject label of each panel subject code.
+    baseline : DataFrame
+        One row per subject in code order: ``subject``, each baseline covariate
+        (value at the first visit with a value), ``n_visits``, ``first_time``, ``last_time``.
+    covariate_kinds : dict
+        'numeric' or 'categorical' for each baseline covariate.
+    covariate : str or None
+        The primary baseline covariate (``settings.covariate`` or the first one listed).
+    attrition : Attrition
+    warnings : tuple of str
+        Problems that did not stop the analysis (e.g. a baseline covariate varying within subject).
+    time_label : str
+        Axis label for time, with its unit.
+    """
+
+    panel: Panel
+    subject_ids: np.ndarray
+    baseline: pd.DataFrame
+    covariate_kinds: dict
+    covariate: str | None
+    attrition: Attrition
+    warnings: tuple[str, ...]
+    roles: Roles
+    settings: Settings
+    time_label: str
+
+
+@dataclass(frozen=True, eq=False)
+class PreparedCohort:
+    """A selected cohort with its transformed covariate and strata.
+
+    Attributes
+    ----------
+    selection : CohortSelection
+    strata : Strata
+        Stratum code per subject (-1 = no value) with labels in the stratifier's own units.
+    x : ndarray or None
+        Transformed and centred primary covariate per subject (None if it is categorical or absent).
+    center_value : float or None
+        The value subtracted when centring, on the transformed scale.
+    baseline : DataFrame
+        ``selection.baseline`` plus ``x``, ``stratum`` and ``stratum_label``.
+    """
+
+    selection: CohortSelection
+    strata: Strata
+    x: np.ndarray | None
+    center_value: float | None
+    baseline: pd.DataFrame
+    warnings: tuple[str, ...]
+
+    # convenience views of the selection
+    @property
+    def panel(self) -> Panel:
+        return self.selection.panel
+
+    @property
+    def subject_ids(self) -> np.ndarray:
+        return self.selection.subject_ids
+
+    @property
+    def attrition(self) -> Attrition:
+        return self.selection.attrition
+
+    @property
+    def roles(self) -> Roles:
+        return self.selection.roles
+
+    @property
+    def settings(self) -> Settings:
+        return self.selection.settings
+
+    @property
+    def covariate(self) -> str | None:
+        return self.selection.covariate
+
+    @property
+    def time_label(self) -> str:
+        return self.selection.time_label
+
+    @property
+    def covariate_label(self) -> str:
+        """The primary covariate as the effect statement names it, e.g. 'log2(marker)'."""
+        c = self.covariate or "covariate"
+        t = self.settings.transform
+        return c if t == "none" else f"{t}({c})"
+
+    @property
+    def frame(self) -> pd.DataFrame:
+        """Long table in panel row order: subject, time, response, stratum, stratum_label."""
+        p = self.panel
+        codes = self.strata.codes[p.codes]
+        labels = np.asarray(self.strata.labels + ("No value",), dtype=object)
+        return pd.DataFrame({
+            "subject": self.subject_ids[p.codes],
+            "time": p.time,
+            "response": p.y,
+            "stratum": codes,
+            "stratum_label": labels[codes],
+        })
+
+
+# --------------------------------------------------------------------------- public API
+def prepare(df: pd.DataFrame, roles: Roles, settings: Settings) -> PreparedCohort:
+    """Validate, re-anchor, filter and stratify in one call (see module docstring)."""
+    return stratify(select_cohort(df, roles, settings), settings)
+
+
+def select_cohort(df: pd.DataFrame, roles: Roles, settings: Settings) -> CohortSelection:
+    """Validate the table against the roles and apply the inclusion rules.
+
+    Parameters
+    ----------
+    df : DataFrame
+        One row per visit.
+    roles : Roles
+    settings : Settings
+        Reads origin, unit, time_min, time_max, min_visits, require_covariate,
+        covariate and duplicates.
+
+    Returns
+    -------
+    CohortSelection
+
+    Raises
+    ------
+    DataError
+        Missing or all-missing column, non-numeric response, unparseable time or
+        event date, event date varying within subject, duplicate visits (with
+        ``duplicates='reject'``), or no subject left after a step.
+    SettingsError
+        A setting that does not fit the data (e.g. origin 'as-is' with a date column).
+    """
+    _check_columns(df, roles, settings)
+    primary = settings.covariate or (roles.covariates[0] if roles.covariates else None)
+    covariates = tuple(dict.fromkeys((*roles.covariates, *([primary] if primary else []))))
+    if settings.stratify_by and settings.stratify_by not in covariates:
+        covariates = (*covariates, settings.stratify_by)
+
+    work = pd.DataFrame({"_row": np.arange(len(df), dtype=np.int64)})
+    work["subject"] = _subject_labels(df[roles.subject])
+    work["response"] = _numeric(df[roles.response], roles.response, "response")
+    time_kind = _time_kind(df[roles.time])
+    work["time_raw"] = _time_values(df[roles.time], roles.time, "time", time_kind)
+    if settings.origin == "as-is" and time_kind == "date":
+        raise SettingsError(
+            f"column '{roles.time}' holds dates, so time since an origin must be computed: "
+            "choose origin 'event-date' (with an event-date column) or 'first-visit'"
+        )
+    if settings.origin == "event-date":
+        work["event"] = _time_values(df[roles.event_date], roles.event_date, "event date", time_kind)
+    for c in covariates:
+        work[f"cov:{c}"] = df[c].to_numpy()
+
+    tracker = _Tracker(work["subject"].to_numpy())
+    keep = work["subject"].notna() & work["response"].notna() & work["time_raw"].notna()
+    work = work[keep.to_numpy()]
+    tracker.record("Subject, time and response all present", work["subject"].to_numpy())
+
+    if settings.origin == "event-date":
+        _check_constant_within_subject(work, "event", roles.event_date, "event date")
+        work = work[work["event"].notna().to_numpy()]
+        tracker.record(f"Event date ({roles.event_date}) present", work["subject"].to_numpy())
+
+    work = work.assign(time=_anchor(work, settings, time_kind))
+    work = work[(work["time"] >= 0).to_numpy()]
+    tracker.record("Visits at or after the time origin", work["subject"].to_numpy())
+
+    if settings.time_min is not None or settings.time_max is not None:
+        lo = -np.inf if settings.time_min is None else settings.time_min
+        hi = np.inf if settings.time_max is None else settings.time_max
+        work = work[((work["time"] >= lo) & (work["time"] <= hi)).to_numpy()]
+        tracker.record(f"Visits inside the time window [{_fmt(lo)}, {_fmt(hi)}] {settings.unit}",
+                       work["subject"].to_numpy())
+
+    work = _handle_duplicates(work, roles, settings)
+    if settings.duplicates == "average":
+        tracker.record("Repeated visits at the same time averaged", work["subject"].to_numpy())
+
+    warnings: list[str] = []
+    kinds = {c: ("numeric" if column_kind(df[c]) == "number" else "categorical") for c in covariates}
+    base = _baseline_values(work, covariates, kinds, warnings)
+
+    if primary and settings.require_covariate:
+        has = set(base.index[base[primary].notna()])
+        work = work[work["subject"].isin(has).to_numpy()]
+        tracker.record(f"Baseline {primary} present", work["subject"].to_numpy())
+
+    n_visits = work.groupby("subject", sort=False).size()
+    enough = set(n_visits.index[n_visits >= settings.min_visits])
+    work = work[work["subject"].isin(enough).to_numpy()]
+    tracker.record(f"At least {settings.min_visits} visit{'s' if settings.min_visits > 1 else ''}",
+                   work["subject"].to_numpy())
+
+    ids, codes = np.unique(work["subject"].to_numpy(), return_inverse=True)
+    panel = Panel.from_codes(codes, work["time"].to_numpy(float), work["response"].to_numpy(float))
+    baseline = base.reindex(ids)
+    baseline.index.name = None
+    baseline.insert(0, "subject", ids)
+    baseline = baseline.reset_index(drop=True)
+    baseline["n_visits"] = panel.counts
+    baseline["first_time"] = panel.time[panel.starts]
+    baseline["last_time"] = panel.time[panel.starts + panel.counts - 1]
+    return CohortSelection(
+        panel=panel, subject_ids=ids, baseline=baseline, covariate_kinds=kinds,
+        covariate=primary, attrition=tracker.result(), warnings=tuple(warnings),
+        roles=roles, settings=settings, time_label=_time_label(roles, settings),
+    )
+
+
+def stratify(selection: CohortSelection, settings: Settings) -> PreparedCohort:
+    """Transform and centre the primary covariate and cut the stratifier into strata.
+
+    Reads transform, center, stratify_by, strata_method, n_strata and breaks.
+    A categorical stratifier's levels are the strata; a numeric one is cut by
+    ``strata_method`` on its original (untransformed) scale so that labels read
+    in the covariate's own units.
+    """
+    base = selection.baseline.copy()
+    warnings = list(selection.warnings)
+    primary = selection.covariate
+    x = center_value = None
+    if primary is not None and selection.covariate_kinds[primary] == "numeric":
+        raw = base[primary].to_numpy(float)
+        xt = transform_values(raw, settings.transform, name=primary)
+        x, center_value = center_values(xt, settings.center)
+        base["x"] = x
+    elif primary is not None and settings.transform != "none":
+        raise SettingsError(
+            f"transform == {settings.transform!r} needs a numeric covariate, "
+            f"but '{primary}' is categorical; choose transform 'none'"
+        )
+    by = settings.stratify_by or primary
+    m = len(base)
+    if by is None:
+        strata = categorical_strata(np.array(["All subjects"] * m, dtype=object), name="all subjects")
+    elif selection.covariate_kinds[by] == "numeric":
+        strata = cut_strata(base[by].to_numpy(float), method=settings.strata_method,
+                            n=settings.n_strata, breaks=settings.breaks, name=by)
+    else:
+        strata = categorical_strata(base[by].to_numpy(object), name=by)
+    labels = np.asarray(tuple(strata.labels) + ("No value",), dtype=object)
+    base["stratum"] = strata.codes
+    base["stratum_label"] = labels[strata.codes]
+    warnings.extend(getattr(strata, "notes", ()))
+    return PreparedCohort(selection=selection, strata=strata, x=x, center_value=center_value,
+                          baseline=base, warnings=tuple(warnings))
+
+
+# --------------------------------------------------------------------------- helpers
+class _Tracker:
+    """Counts subjects and observations after each inclusion step."""
+
+    def __init__(self, subjects_all: np.ndarray):
+        s = pd.Series(subjects_all)
+        self._steps = [AttritionStep("All rows read", int(s.dropna().nunique()), int(len(s)), 0, 0)]
+
+    def record(self, name: str, subjects: np.ndarray) -> None:
+        prev = self._steps[-1]
+        n_sub = int(pd.Series(subjects).nunique())
+        n_obs = int(len(subjects))
+        self._steps.append(AttritionStep(name, n_sub, n_obs, prev.subjects - n_sub,
+                                         prev.observations - n_obs))
+        if n_obs == 0:
+            raise DataError(f"no visits remain after the inclusion step '{name}'; "
+                            "check the column roles and settings")
+
+    def result(self) -> Attrition:
+        return Attrition(tuple(self._steps))
+
+
+def _check_columns(df: pd.DataFrame, roles: Roles, settings: Settings) -> None:
+    if not isinstance(df, pd.DataFrame):
+        raise TypeError(f"data must be a pandas DataFrame, not {type(df).__name__}")
+    if len(df) == 0:
+        raise DataError("the table has no rows")
+    named = [("subject", roles.subject), ("time", roles.time), ("response", roles.response)]
+    named += [("baseline covariate", c) for c in roles.covariates]
+    if settings.origin == "event-date":
+        if not roles.event_date:
+            raise SettingsError("origin == 'event-date' needs an event-date column role")
+        named.append(("event date", roles.event_date))
+    if settings.covariate:
+        named.append(("covariate", settings.covariate))
+    if settings.stratify_by:
+        named.append(("stratify by", settings.stratify_by))
+    available = ", ".join(f"'{c}'" for c in df.columns)
+    for role, col in named:
+        if col not in df.columns:
+            raise DataError(f"column '{col}' ({role}) is not in the table; columns are {available}",
+                            column=col)
+        if df[col].isna().all():
+            raise DataError(f"column '{col}' ({role}) has no values in any row", column=col)
+    roles_used = [c for _, c in named[:3]]
+    if len(set(roles_used)) < 3:
+        raise DataError("subject, time and response must be three different columns",
+                        column=roles.subject)
+
+
+def _subject_labels(s: pd.Series) -> pd.Series:
+    if pd.api.types.is_numeric_dtype(s) and not pd.api.types.is_bool_dtype(s):
+        return s.astype(float).map(lambda v: v if np.isnan(v) else (int(v) if v == int(v) else v)) \
+            .astype(object)
+    return s.astype("string").str.strip().replace("", pd.NA).astype(object).where(s.notna(), None)
+
+
+def _numeric(s: pd.Series, column: str, role: str) -> pd.Series:
+    """Numbers as float; empty cells → NaN; anything else non-numeric → DataError."""
+    if pd.api.types.is_numeric_dtype(s) and not pd.api.types.is_bool_dtype(s):
+        return s.astype(float)
+    text = s.astype("string").str.strip()
+    text = text.mask(text == "")
+    out = pd.to_numeric(text, errors="coerce")
+    bad = out.isna() & text.notna()
+    if bad.any():
+        fixable = text[bad].str.match(_DECIMAL_COMMA.pattern).fillna(False)
+        if fixable.all():
+            out = out.copy()
+            out[bad] = pd.to_numeric(text[bad].str.replace(",", ".", regex=False))
+            return out.astype(float)
+        rows = np.flatnonzero(bad.to_numpy())
+        examples = ", ".join(repr(v) for v in text[bad].unique()[:3])
+        raise DataError(
+            f"column '{column}' ({role}) must hold numbers; {row_list(rows)} hold {examples}",
+            column=column, rows=rows[:20])
+    return out.astype(float)
+
+
+def _time_kind(s: pd.Series) -> str:
+    kind = column_kind(s)
+    return "date" if kind == "date" else "number"
+
+
+def _time_values(s: pd.Series, column: str, role: str, kind: str) -> pd.Series:
+    if kind == "number":
+        if column_kind(s) == "date":
+            raise DataError(f"column '{column}' ({role}) holds dates but the time column holds "
+                            "numbers; both must be numbers or both dates", column=column)
+        return _numeric(s, column, role)
+    parsed = parse_dates(s)
+    text = s.astype("string").str.strip()
+    bad = parsed.isna() & text.notna() & (text != "")
+    if bad.any():
+        rows = np.flatnonzero(bad.to_numpy())
+        examples = ", ".join(repr(v) for v in text[bad].unique()[:3])
+        raise DataError(
+            f"column '{column}' ({role}) must hold dates such as 2021-03-15; "
+            f"{row_list(rows)} hold {examples}", column=column, rows=rows[:20])
+    return parsed
+
+
+def _check_constant_within_subject(work: pd.DataFrame, col: str, column: str, role: str) -> None:
+    n = work.groupby("subject", sort=False)[col].nunique(dropna=True)
+    varying = n.index[n > 1]
+    if len(varying):
+        first = work[work["subject"].isin(varying[:1])]
+        raise DataError(
+            f"column '{column}' ({role}) must be the same on every row of a subject; it varies for "
+            f"{len(varying)} subject(s), e.g. {', '.join(map(str, varying[:3]))} "
+            f"({row_list(first['_row'].to_numpy())})",
+            column=column, rows=first["_row"].to_numpy()[:20])
+
+
+def _anchor(work: pd.DataFrame, settings: Settings, kind: str) -> np.ndarray:
+    t = work["time_raw"]
+    if settings.origin == "event-date":
+        delta = t - work["event"]
+    elif settings.origin == "first-visit":
+        delta = t - work.groupby("subject", sort=False)["time_raw"].transform("min")
+    else:
+        return t.to_numpy(float)
+    if kind == "date":
+        return (delta.dt.total_seconds() / 86400.0 / opt.DAYS_PER_UNIT[settings.unit]).to_numpy(float)
+    return delta.to_numpy(float)
+
+
+def _handle_duplicates(work: pd.DataFrame, roles: Roles, settings: Settings) -> pd.DataFrame:
+    dup = work.duplicated(["subject", "time"], keep=False)
+    if not dup.any():
+        return work
+    if settings.duplicates == "reject":
+        rows = work.loc[dup, "_row"].to_numpy()
+        first = work.loc[dup, "subject"].iloc[0]
+        raise DataError(
+            f"{int(dup.sum())} rows repeat a (subject, time) pair already present, e.g. subject "
+            f"{first} ({row_list(rows)}); remove them, or choose duplicates 'average' to use the "
+            "mean response of each repeated visit", column=roles.time, rows=rows[:20])
+    agg = {c: "first" for c in work.columns if c not in ("subject", "time", "response")}
+    agg["response"] = "mean"
+    return work.groupby(["subject", "time"], sort=False, as_index=False).agg(agg)
+
+
+def _baseline_values(work: pd.DataFrame, covariates, kinds, warnings: list) -> pd.DataFrame:
+    """First non-missing value in time order per subject; warn when a covariate varies."""
+    ordered = work.sort_values(["subject", "time"], kind="stable")
+    grouped = ordered.groupby("subject", sort=True)
+    out = pd.DataFrame(index=pd.Index(sorted(ordered["subject"].unique(), key=_sort_key)))
+    for c in covariates:
+        col = f"cov:{c}"
+        values = ordered[col]
+        if kinds[c] == "numeric":
+            values = _numeric(values.reset_index(drop=True), c, "baseline covariate")
+            values.index = ordered.index
+        frame = pd.DataFrame({"subject": ordered["subject"], "v": values})
+        g = frame.groupby("subject", sort=True)["v"]
+        out[c] = g.first().reindex(out.index)
+        n = g.nunique(dropna=True)
+        varying = n.index[n > 1]
+        if len(varying):
+            warnings.append(
+                f"baseline covariate '{c}' changes within {len(varying)} subject(s) "
+                f"(e.g. {', '.join(map(str, varying[:3]))}); the first visit's value is used")
+    del grouped
+    return out
+
+
+def _sort_key(v):
+    return (0, v, "") if isinstance(v, (int, float)) else (1, 0, str(v))
+
+
+def _time_label(roles: Roles, settings: Settings) -> str:
+    unit = settings.unit.capitalize()
+    if settings.origin == "event-date":
+        return f"{unit} since {roles.event_date}"
+    if settings.origin == "first-visit":
+        return f"{unit} since first visit"
+    return f"{roles.time} ({settings.unit})"
+
+
+def _fmt(v: float) -> str:
+    return "−∞" if v == -np.inf else "∞" if v == np.inf else f"{v:g}"
