@@ -1,0 +1,260 @@
+"""Command line: ``cohortlens [serve] | summarize | fit``.
+
+``serve`` (the default) opens the dashboard; ``summarize`` and ``fit`` run the
+same analysis layer headless and write JSON. Bad input exits with status 2 and
+the same message the dashboard would show.
+"""
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+from pathlib import Path
+
+from analysis import options as opt
+from analysis.errors import CohortError
+from analysis.settings import Roles, Settings
+
+COMMANDS = ("serve", "summarize", "fit")
+
+# (flag, Settings field, type, choices, help)
+SETTING_FLAGS: tuple[tuple[str, str, object, tuple | None, str], ...] = (
+    ("--origin", "origin", str, opt.ORIGINS, "time origin [as-is]"),
+    ("--unit", "unit", str, opt.UNITS, "time unit [months]"),
+    ("--time-min", "time_min", float, None, "drop visits before this time since origin"),
+    ("--time-max", "time_max", float, None, "drop visits after this time since origin"),
+    ("--min-visits", "min_visits", int, None, "minimum visits per subject [3]"),
+    ("--covariate-primary", "covariate", str, None,
+     "which baseline covariate is transformed and enters the interaction [first --covariate]"),
+    ("--duplicates", "duplicates", str, opt.DUPLICATE_POLICIES,
+     "repeated (subject, time) rows: reject or average [reject]"),
+    ("--transform", "transform", str, opt.TRANSFORMS, "covariate transform [none]"),
+    ("--center", "center", str, None, "covariate centring: none, mean, median or a number [none]"),
+    ("--stratify-by", "stratify_by", str, None, "covariate to cut into strata [primary covariate]"),
+    ("--strata-method", "strata_method", str, opt.STRATA_METHODS, "how to cut strata [quantile]"),
+    ("--strata", "n_strata", int, None, "number of strata [4]"),
+    ("--breaks", "breaks", str, None, "custom inner break points, e.g. 10,20,40"),
+    ("--detrend", "detrend", str, opt.DETRENDS, "mean model removed before residual views [spline]"),
+    ("--spline-df", "spline_df", int, None, "degrees of freedom of the detrending spline [4]"),
+    ("--lowess-frac", "lowess_frac", float, None, "lowess span for --detrend lowess [0.3]"),
+    ("--variogram-bins", "variogram_bins", int, None, "semivariogram lag bins [10]"),
+    ("--variogram-max-lag", "variogram_max_lag", float, None, "largest lag binned [all]"),
+    ("--lag-width", "lag_width", float, None, "window width for lag correlations [automatic]"),
+)
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="cohortlens",
+        description="Explore and model longitudinal cohort data. "
+                    "Exploratory research statistics, not for individual care decisions.")
+    sub = parser.add_subparsers(dest="command")
+
+    serve = sub.add_parser("serve", help="open the dashboard (default command)")
+    serve.add_argument("data", nargs="?", help="CSV or Parquet file [bundled demo registry]")
+    _add_roles(serve, required=False)
+    serve.add_argument("--host", default="127.0.0.1", help="address to bind [127.0.0.1]")
+    serve.add_argument("--port", type=int, default=8050, help="port [8050]")
+    serve.add_argument("--debug", action="store_true", help="Dash debug mode (development only)")
+    _add_settings(serve)
+
+    summ = sub.add_parser("summarize", help="write every exploratory number as JSON")
+    summ.add_argument("data", help="CSV or Parquet file, or 'demo' for the bundled registry")
+    _add_roles(summ, required=False)
+    _add_settings(summ)
+    summ.add_argument("--json", required=True, metavar="OUT", help="output file ('-' = stdout)")
+
+    fit = sub.add_parser("fit", help="fit and compare candidate covariance models, write JSON")
+    fit.add_argument("data", help="CSV or Parquet file, or 'demo' for the bundled registry")
+    _add_roles(fit, required=False)
+    _add_settings(fit)
+    fit.add_argument("--models", default=None,
+                     help="comma-separated covariance structures to fit "
+                          "[intercept,intercept+slope,intercept+serial,intercept+slope+serial]")
+    fit.add_argument("--correlation", default="exponential", choices=("exponential", "gaussian"),
+                     help="serial correlation shape [exponential]")
+    fit.add_argument("--ml", action="store_true", help="maximum likelihood instead of REML")
+    fit.add_argument("--confounders", default="",
+                     help="comma-separated baseline covariates added to the mean model")
+    fit.add_argument("--time-spline-df", type=int, default=None,
+                     help="natural spline in time with this many df instead of a straight line")
+    fit.add_argument("--no-gee", action="store_true", help="skip the GEE robustness rows")
+    fit.add_argument("--json", required=True, metavar="OUT", help="output file ('-' = stdout)")
+    return parser
+
+
+def _add_roles(p: argparse.ArgumentParser, *, required: bool) -> None:
+    g = p.add_argument_group("column roles")
+    g.add_argument("--subject", required=required, help="subject id column")
+    g.add_argument("--time", required=required, help="time column (numbers or dates)")
+    g.add_argument("--response", required=required, help="response column")
+    g.add_argument("--covariate", action="append", default=None,
+                   help="baseline covariate column (repeat or comma-separate; first is primary)")
+    g.add_argument("--event-date", help="per-subject event date (for --origin event-date)")
+
+
+def _add_settings(p: argparse.ArgumentParser) -> None:
+    g = p.add_argument_group("settings")
+    g.add_argument("--settings", metavar="FILE.json",
+                   help="settings as JSON (a summarize output works too); flags override it")
+    for flag, field, typ, choices, text in SETTING_FLAGS:
+        g.add_argument(flag, dest=f"set_{field}", type=typ, choices=choices, default=None, help=text)
+    g.add_argument("--require-covariate", dest="set_require_covariate", action="store_true",
+                   default=None, help="drop subjects without the primary covariate [on]")
+    g.add_argument("--keep-missing-covariate", dest="set_require_covariate",
+                   action="store_false", help="keep subjects without the primary covariate")
+    g.add_argument("--detrend-within-strata", dest="set_detrend_within_strata",
+                   action="store_true", default=None, help="fit the detrending curve per stratum")
+
+
+def resolve(args: argparse.Namespace) -> tuple[object, Roles | None, Settings]:
+    """Data source, roles and settings from the parsed arguments (flags over --settings file)."""
+    base_settings: dict = {}
+    base_roles: dict | None = None
+    if getattr(args, "settings", None):
+        try:
+            loaded = json.loads(Path(args.settings).read_text(encoding="utf-8"))
+        except (OSError, json.JSONDecodeError) as exc:
+            raise CohortError(f"--settings {args.settings}: cannot read JSON ({exc})") from None
+        if isinstance(loaded, dict) and "settings" in loaded:
+            base_settings = dict(loaded["settings"])
+            base_roles = loaded.get("roles")
+        else:
+            base_settings = dict(loaded)
+
+    data = getattr(args, "data", None)
+    if data == "demo" or data is None and args.command == "serve":
+        from analysis.demo import DEMO_CSV, demo_roles, demo_settings
+        if data == "demo" or not any(getattr(args, k) for k in ("subject", "time", "response")):
+            data = DEMO_CSV
+            base_roles = base_roles or demo_roles().to_dict()
+            base_settings = {**demo_settings().to_dict(), **base_settings}
+
+    covariates = []
+    for item in args.covariate or []:
+        covariates.extend(c.strip() for c in item.split(",") if c.strip())
+    given = {"subject": args.subject, "time": args.time, "response": args.response,
+             "event_date": args.event_date}
+    roles = None
+    if base_roles or any(v for v in given.values()) or covariates:
+        merged = dict(base_roles or {})
+        merged.update({k: v for k, v in given.items() if v})
+        if covariates:
+            merged["covariates"] = covariates
+        missing = [k for k in ("subject", "time", "response") if not merged.get(k)]
+        if missing:
+            if args.command == "serve":
+                merged = None
+            else:
+                raise CohortError("missing column role(s): " + ", ".join(
+                    f"--{m}" for m in missing) + " (name the columns that hold them)")
+        roles = Roles.from_dict(merged) if merged else None
+    elif args.command != "serve":
+        raise CohortError("name the column roles: --subject COL --time COL --response COL")
+
+    settings_dict = dict(base_settings)
+    for _, field, _, _, _ in SETTING_FLAGS:
+        value = getattr(args, f"set_{field}")
+        if value is not None:
+            settings_dict[field] = value
+    for field in ("require_covariate", "detrend_within_strata"):
+        value = getattr(args, f"set_{field}")
+        if value is not None:
+            settings_dict[field] = value
+    if "breaks" in settings_dict and isinstance(settings_dict["breaks"], str):
+        settings_dict["breaks"] = _parse_breaks(settings_dict["breaks"])
+        settings_dict.setdefault("strata_method", "custom")
+    if isinstance(settings_dict.get("center"), str):
+        settings_dict["center"] = _parse_center(settings_dict["center"])
+    return data, roles, Settings.from_dict(settings_dict)
+
+
+def _parse_breaks(text: str) -> tuple[float, ...]:
+    try:
+        return tuple(float(b) for b in text.split(",") if b.strip())
+    except ValueError:
+        raise CohortError(f"--breaks {text!r}: expected numbers separated by commas, e.g. 10,20,40") \
+            from None
+
+
+def _parse_center(text: str):
+    if text in opt.CENTER_WORDS:
+        return text
+    try:
+        return float(text)
+    except ValueError:
+        raise CohortError(f"--center {text!r}: expected none, mean, median or a number") from None
+
+
+def _write_json(payload: dict, out: str) -> None:
+    text = json.dumps(payload, indent=2, allow_nan=False)
+    if out == "-":
+        sys.stdout.write(text + "\n")
+    else:
+        Path(out).write_text(text + "\n", encoding="utf-8")
+        print(f"wrote {out}", file=sys.stderr)
+
+
+def _load(data) -> "object":
+    from analysis.loading import read_table
+
+    return read_table(data)
+
+
+def cmd_summarize(args) -> int:
+    from analysis.pipeline import explore
+
+    data, roles, settings = resolve(args)
+    result = explore(_load(data), roles, settings)
+    _write_json(result.to_json(), args.json)
+    return 0
+
+
+def cmd_fit(args) -> int:
+    from analysis.mean_model import MeanModel
+    from analysis.modelling import DEFAULT_CANDIDATES, fit_candidates
+    from analysis.pipeline import json_safe
+    from analysis.prepare import prepare
+
+    data, roles, settings = resolve(args)
+    cohort = prepare(_load(data), roles, settings)
+    structures = (tuple(s.strip() for s in args.models.split(",") if s.strip())
+                  if args.models else DEFAULT_CANDIDATES)
+    mean = MeanModel(confounders=tuple(c.strip() for c in args.confounders.split(",") if c.strip()),
+                     time_spline_df=args.time_spline_df)
+    result = fit_candidates(cohort, structures=structures, correlation=args.correlation,
+                            method="ml" if args.ml else "reml", mean=mean,
+                            gee=() if args.no_gee else ("exchangeable", "autoregressive"))
+    payload = json_safe({"settings": settings.to_dict(), "roles": roles.to_dict(),
+                         **result.to_json()})
+    _write_json(payload, args.json)
+    return 0
+
+
+def cmd_serve(args) -> int:
+    from app.server import run_server
+
+    data, roles, settings = resolve(args)
+    run_server(data_path=data, roles=roles, settings=settings, host=args.host, port=args.port,
+               debug=args.debug)
+    return 0
+
+
+def main(argv: list[str] | None = None) -> int:
+    argv = list(sys.argv[1:] if argv is None else argv)
+    if not argv or (argv[0] not in COMMANDS and argv[0] not in ("-h", "--help")):
+        argv.insert(0, "serve")
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    handler = {"serve": cmd_serve, "summarize": cmd_summarize, "fit": cmd_fit}[args.command]
+    try:
+        return handler(args)
+    except CohortError as exc:
+        print(f"cohortlens: {exc}", file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:
+        return 130
+
+
+if __name__ == "__main__":
+    sys.exit(main())

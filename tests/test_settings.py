@@ -1,0 +1,46 @@
+"""Settings: validation messages, JSON round trip, stage cache keys."""
+import pytest
+
+from analysis.errors import SettingsError
+from analysis.settings import Roles, Settings
+
+
+def test_json_round_trip_and_hash():
+    s = Settings(origin="event-date", unit="weeks", breaks=(1, 2.5), strata_method="custom",
+                 center=3, lag_width=4.0)
+    back = Settings.from_json(s.to_json())
+    assert back == s and hash(back) == hash(s)
+    r = Roles("id", "t", "y", covariates=["a", "b"], event_date="e")
+    assert Roles.from_dict(r.to_dict()) == r
+
+
+@pytest.mark.parametrize("kwargs, pattern", [
+    ({"origin": "start"}, r"origin == 'start', must be one of"),
+    ({"min_visits": 0}, r"min_visits == 0, must be >= 1"),
+    ({"min_visits": 2.5}, r"min_visits == 2.5, must be a whole number"),
+    ({"transform": "sqrt"}, r"transform == 'sqrt'"),
+    ({"center": "mode"}, r"center == 'mode'"),
+    ({"strata_method": "custom"}, r"needs breaks"),
+    ({"strata_method": "custom", "breaks": (3, 2)}, r"strictly increasing"),
+    ({"time_min": 5, "time_max": 1}, r"time window \[5, 1\] is empty"),
+    ({"lag_width": 0}, r"lag_width == 0, must be > 0"),
+    ({"lowess_frac": 1.5}, r"lowess_frac == 1.5"),
+])
+def test_bad_settings_name_the_field_and_the_rule(kwargs, pattern):
+    with pytest.raises(SettingsError, match=pattern):
+        Settings(**kwargs)
+
+
+def test_unknown_setting_is_named():
+    with pytest.raises(SettingsError, match="unknown setting"):
+        Settings.from_dict({"bins": 3})
+
+
+def test_stage_keys_change_only_with_their_own_fields():
+    s = Settings()
+    more_bins = s.replace(variogram_bins=20)
+    assert more_bins.key_for("subject_fits") == s.key_for("subject_fits")
+    assert more_bins.key_for("residuals") == s.key_for("residuals")
+    assert more_bins.key_for("variogram") != s.key_for("variogram")
+    fewer_visits = s.replace(min_visits=2)
+    assert fewer_visits.key_for("subject_fits") != s.key_for("subject_fits")
