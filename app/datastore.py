@@ -1,0 +1,98 @@
+"""Server-side home of loaded tables: a bounded LRU keyed by content hash.
+
+Browser stores only ever hold the key. Uploaded bytes are parsed in memory and
+kept here (never written to disk); the least recently used upload is dropped
+when the bound is reached. The dataset the server was started with (the demo
+registry by default) is pinned under a fixed key and loaded on first use.
+"""
+from __future__ import annotations
+
+import threading
+from collections import OrderedDict
+from typing import Callable
+
+import pandas as pd
+
+from analysis.errors import DataError
+from analysis.loading import Dataset
+
+#: the fixed key of the bundled demo registry (also what a shared link carries)
+DEMO_KEY = "demo"
+
+
+class DataStore:
+    """Bounded, thread-safe store of :class:`~analysis.loading.Dataset` objects.
+
+    Parameters
+    ----------
+    max_uploads : int
+        How many uploaded tables to keep; older ones are evicted first.
+    max_cells : int
+        Upper bound on rows x columns of one upload (larger tables are refused).
+    """
+
+    def __init__(self, max_uploads: int = 8, max_cells: int = 20_000_000):
+        if max_uploads < 1:
+            raise ValueError(f"max_uploads == {max_uploads}, must be >= 1")
+        self.max_uploads = max_uploads
+        self.max_cells = max_cells
+        self._uploads: OrderedDict[str, Dataset] = OrderedDict()
+        self._pinned: dict[str, Dataset | Callable[[], Dataset]] = {}
+        self._lock = threading.Lock()
+
+    # -- pinned (start-up) data -------------------------------------------
+    def pin(self, key: str, source: Dataset | Callable[[], Dataset]) -> str:
+        """Keep a dataset (or a zero-argument loader for it) under ``key`` forever."""
+        with self._lock:
+            self._pinned[key] = source
+        return key
+
+    # -- uploads ------------------------------------------------------------
+    def add(self, frame: pd.DataFrame, *, name: str = "upload") -> Dataset:
+        """Store a table under its content hash and return the dataset (same content, same key)."""
+        if frame.size > self.max_cells:
+            raise DataError(
+                f"{name} has {frame.shape[0]:,} rows x {frame.shape[1]} columns; this server "
+                f"accepts at most {self.max_cells:,} cells per table (drop unused columns first)")
+        dataset = Dataset.from_frame(frame, name=name)
+        with self._lock:
+            if dataset.key in self._uploads:
+                self._uploads.move_to_end(dataset.key)
+                return self._uploads[dataset.key]
+            self._uploads[dataset.key] = dataset
+            while len(self._uploads) > self.max_uploads:
+                self._uploads.popitem(last=False)
+        return dataset
+
+    def get(self, key: str | None) -> Dataset | None:
+        """The dataset under ``key``, or None if the server does not hold it (any more)."""
+        if not key:
+            return None
+        with self._lock:
+            if key in self._uploads:
+                self._uploads.move_to_end(key)
+                return self._uploads[key]
+            source = self._pinned.get(key)
+        if source is None:
+            return None
+        if callable(source):
+            loaded = source()
+            with self._lock:
+                self._pinned[key] = loaded
+            return loaded
+        return source
+
+    def __contains__(self, key: str) -> bool:
+        with self._lock:
+            return key in self._uploads or key in self._pinned
+
+    def __len__(self) -> int:
+        with self._lock:
+            return len(self._uploads)
+
+
+def demo_dataset() -> Dataset:
+    """The bundled invented registry as a dataset with the fixed key :data:`DEMO_KEY`."""
+    from analysis.demo import load_demo
+
+    return Dataset(DEMO_KEY, load_demo(), "Kidney transplant registry (invented demo)")

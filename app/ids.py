@@ -1,0 +1,85 @@
+"""Component ids, one constant each (kebab-case, prefixed by the section they belong to)."""
+from __future__ import annotations
+
+# -- page-wide --------------------------------------------------------------
+PAGE_URL = "page-url"
+PAGE_TITLE = "page-title"
+PAGE_CAUTION = "page-caution"
+PAGE_CAUTION_CLOSE = "page-caution-close"
+PAGE_ALERT = "page-alert"
+
+# -- browser stores (keys and small settings only) ---------------------------
+STORE_DATA = "store-data"            # {"key": str, "name": str}
+STORE_ROLES = "store-roles"          # Roles.to_dict() or None
+STORE_SETTINGS = "store-settings"    # Settings.to_dict() (valid) 
+STORE_VIEW = "store-view"            # {"draw": int, "seed": int, "order": str}
+STORE_SUBJECT = "store-subject"      # selected subject id (str) or None
+STORE_STRATUM = "store-stratum"      # selected stratum label (str) or None
+
+# -- data section ------------------------------------------------------------
+DATA_UPLOAD = "data-upload"
+DATA_UPLOAD_MSG = "data-upload-msg"
+DATA_NAME = "data-name"
+DATA_USE_DEMO = "data-use-demo"
+DATA_PREVIEW = "data-preview"
+
+# role mapping: one dropdown + message per role
+ROLE_FIELDS = ("subject", "time", "event_date", "response", "covariates")
+ROLE_INPUT = {r: f"roles-{r.replace('_', '-')}" for r in ROLE_FIELDS}
+ROLE_MSG = {r: f"roles-{r.replace('_', '-')}-msg" for r in ROLE_FIELDS}
+ROLES_STATUS = "roles-status"
+
+# -- settings panel: one control + one message per Settings field ------------
+SETTING_FIELDS = (
+    "origin", "unit", "time_min", "time_max", "min_visits", "require_covariate",
+    "covariate", "duplicates", "transform", "center", "stratify_by", "strata_method",
+    "n_strata", "breaks", "detrend", "spline_df", "lowess_frac", "detrend_within_strata",
+    "variogram_bins", "variogram_max_lag", "lag_width",
+)
+SETTING_INPUT = {f: f"settings-{f.replace('_', '-')}" for f in SETTING_FIELDS}
+SETTING_MSG = {f: f"settings-{f.replace('_', '-')}-msg" for f in SETTING_FIELDS}
+SETTINGS_STATUS = "settings-status"
+SETTINGS_RESET = "settings-reset"
+
+# -- attrition -----------------------------------------------------------------
+KEPT_TABLE = "kept-table"
+KEPT_NOTES = "kept-notes"
+
+# -- stratum chips and the selected-subject card ---------------------------------
+LINK_STRATA = "link-strata"
+LINK_STRATUM_CHIP = "link-stratum-chip"   # pattern-matching type: {"type": ..., "index": label}
+LINK_CLEAR = "link-clear"
+LINK_CARD = "link-card"
+
+# -- views -------------------------------------------------------------------
+COURSE_GRAPH = "course-graph"
+COURSE_DRAW = "course-draw"
+COURSE_SEED = "course-seed"
+COURSE_NOTE = "course-note"
+COURSE_MSG = "course-msg"
+
+SPREAD_GRAPH = "spread-graph"
+SPREAD_READOUT = "spread-readout"
+SPREAD_MSG = "spread-msg"
+
+PAIRS_GRAPH = "pairs-graph"
+PAIRS_NOTE = "pairs-note"
+PAIRS_MSG = "pairs-msg"
+
+LINES_GRAPH = "lines-graph"
+LINES_ORDER = "lines-order"
+LINES_MSG = "lines-msg"
+
+RATE_STRATA_GRAPH = "rate-strata-graph"
+RATE_COVARIATE_GRAPH = "rate-covariate-graph"
+RATE_TABLE = "rate-table"
+RATE_MSG = "rate-msg"
+
+FOLLOW_VISITS_GRAPH = "follow-visits-graph"
+FOLLOW_DROPOUT_GRAPH = "follow-dropout-graph"
+FOLLOW_MSG = "follow-msg"
+
+MODELS_SECTION = "models-section"
+
+#: every graph that carries subject ids in customdata (clicks select a subject)
+SUBJECT_CLICK_GRAPHS = (COURSE_GRAPH, LINES_GRAPH, RATE_COVARIATE_GRAPH)
