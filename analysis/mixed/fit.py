@@ -1,0 +1,412 @@
+"""Fit a linear mixed model with a chosen working covariance structure.
+
+Fixed effects are profiled out (generalised least squares for each θ);
+the variance parameters are optimised on an unconstrained scale with
+L-BFGS-B and the analytic gradient of :mod:`analysis.mixed.likelihood`.
+"""
+from __future__ import annotations
+
+import numpy as np
+from scipy import linalg as sla
+from scipy import optimize
+
+from ..errors import ModelError
+from .likelihood import NotPositiveDefinite, build_groups, evaluate
+from .results import FitInternals, MixedFit
+from .structures import (CORRELATIONS, METHODS, PARAMETER_ORDER, components, natural_from_theta,
+                         spec_for, theta_from_natural)
+
+#: Largest move (on the log scale) of a log-variance away from its start value.
+_LOG_BOUND = 25.0
+_Z95 = 1.959963984540054
+
+
+# ----------------------------------------------------------------------------- validation
+def _check_inputs(panel, X, names, spec, method, correlation, maxiter):
+    if method not in METHODS:
+        raise ModelError(f"method {method!r} is not known; choose one of {list(METHODS)}")
+    if correlation not in CORRELATIONS:
+        raise ModelError(f"correlation {correlation!r} is not known; choose one of {list(CORRELATIONS)}")
+    if int(maxiter) < 1:
+        raise ModelError(f"maxiter == {maxiter}, must be >= 1")
+    X = np.asarray(X, dtype=float)
+    if X.ndim == 1:
+        X = X[:, None]
+    if X.ndim != 2:
+        raise ModelError(f"design matrix must be 2-D (rows x terms), got {X.ndim} dimensions")
+    if X.shape[0] != panel.n_obs:
+        raise ModelError(f"design matrix has {X.shape[0]} rows but the panel has {panel.n_obs} "
+                         "visits; build X in panel row order")
+    names = tuple(str(n) for n in names)
+    if len(names) != X.shape[1]:
+        raise ModelError(f"{len(names)} term names given for {X.shape[1]} design columns")
+    if len(set(names)) != len(names):
+        dup = sorted({n for n in names if names.count(n) > 1})
+        raise ModelError(f"term names must be distinct; repeated: {dup}")
+    if X.shape[1] == 0:
+        raise ModelError("design matrix has no columns; include at least an intercept")
+    bad_y = np.flatnonzero(~np.isfinite(panel.y))
+    if bad_y.size:
+        raise ModelError(f"response is missing or not finite at {bad_y.size} panel row(s) "
+                         f"(first: {bad_y[:5].tolist()}); drop or impute them before fitting")
+    bad = ~np.isfinite(X)
+    if bad.any():
+        cols = [names[j] for j in np.flatnonzero(bad.any(axis=0))]
+        rows = np.flatnonzero(bad.any(axis=1))
+        raise ModelError(f"design column(s) {cols} have missing or non-finite values at "
+                         f"{rows.size} panel row(s) (first: {rows[:5].tolist()})")
+    const = np.ptp(X, axis=0) == 0
+    intercepts = [j for j in np.flatnonzero(const) if X[0, j] != 0]
+    for j in np.flatnonzero(const):
+        if X[0, j] == 0 or (len(intercepts) > 1 and j != intercepts[0]):
+            raise ModelError(f"design column {names[j]!r} has no variation (every row is "
+                             f"{X[0, j]:g}); remove it or check the covariate")
+    _check_rank(X, names)
+    m = panel.n_subjects
+    if m < spec.min_subjects:
+        raise ModelError(f"structure {spec.name!r} needs at least {spec.min_subjects} subjects "
+                         f"(2 per random effect + 1); the data have {m}")
+    if (spec.n_random >= 1 or spec.serial) and panel.counts.max() < 2:
+        raise ModelError(f"structure {spec.name!r} needs at least one subject with 2 or more "
+                         "visits; every subject has a single visit")
+    if spec.n_random == 2:
+        tmin = np.minimum.reduceat(panel.time, panel.starts)
+        tmax = np.maximum.reduceat(panel.time, panel.starts)
+        if not np.any(tmax > tmin):
+            raise ModelError("a random slope needs at least one subject with 2 or more distinct "
+                             "visit times; no subject has")
+    return X, names
+
+
+def _check_rank(X, names):
+    scale = np.sqrt((X**2).sum(axis=0))
+    Xs = X / np.where(scale > 0, scale, 1.0)
+    _, R, piv = sla.qr(Xs, mode="economic", pivoting=True)
+    d = np.abs(np.diag(R))
+    tol = max(X.shape) * np.finfo(float).eps * 1e3 * (d[0] if d.size else 1.0)
+    rank = int((d > tol).sum())
+    if rank < X.shape[1]:
+        dep = [names[j] for j in piv[rank:]]
+        raise ModelError(f"design matrix is singular (rank {rank} of {X.shape[1]}): column(s) "
+                         f"{dep} are linear combinations of the other columns; remove them")
+
+
+# ----------------------------------------------------------------------------- start values
+def _start_natural(panel, X, spec, time_scale):
+    """Moment-based starting values (internal time scale), from OLS residuals.
+
+    Notes
+    -----
+    With OLS residuals r, subject means r̄_i and pooled within-subject
+    variance w: between-subject variance max(var(r̄_i) − w·mean(1/n_i), 0.1·s²);
+    slope variance from per-subject least-squares slopes of r on t, less their
+    sampling variance w/S_tt; serial models split w equally between σ² and τ²;
+    the range starts at half the median follow-up span.
+    """
+    beta, *_ = np.linalg.lstsq(X, panel.y, rcond=None)
+    r = panel.y - X @ beta
+    n, p = X.shape
+    s2 = max(float(r @ r) / max(n - p, 1), 1e-12)
+    cnt = panel.counts.astype(float)
+    rbar = np.add.reduceat(r, panel.starts) / cnt
+    dev = r - rbar[panel.codes]
+    dfw = float((cnt - 1).sum())
+    w = float(dev @ dev) / dfw if dfw > 0 else s2
+    w = max(w, 0.05 * s2)
+    between = max(float(np.var(rbar)) - w * float(np.mean(1.0 / cnt)), 0.1 * s2)
+    t = panel.time / time_scale
+    tbar = np.add.reduceat(t, panel.starts) / cnt
+    tc = t - tbar[panel.codes]
+    stt = np.add.reduceat(tc * tc, panel.starts)
+    str_ = np.add.reduceat(tc * r, panel.starts)
+    nat = {}
+    if spec.n_random >= 1:
+        nat["intercept_var"] = between
+    if spec.n_random == 2:
+        ok = stt > 1e-8 * max(stt.max(), 1e-300)
+        slopes = str_[ok] / stt[ok]
+        v1 = float(np.var(slopes)) - w * float(np.mean(1.0 / stt[ok])) if slopes.size > 1 else 0.0
+        nat["slope_var"] = max(v1, 0.05 * between)
+        nat["intercept_slope_cov"] = 0.0
+    if spec.serial:
+        span = (np.maximum.reduceat(t, panel.starts) - np.minimum.reduceat(t, panel.starts))
+        span = span[span > 0]
+        nat["serial_var"] = 0.5 * w if spec.n_random else max(0.5 * w + between, 0.5 * w)
+        nat["range"] = 0.5 * float(np.median(span)) if span.size else 1.0
+        nat["error_var"] = 0.5 * w
+    else:
+        nat["error_var"] = w
+    # internal scale -> user scale for the converter
+    user = dict(nat)
+    if "slope_var" in user:
+        user["slope_var"] = nat["slope_var"] / time_scale**2
+        user["intercept_slope_cov"] = 0.0
+    if "range" in user:
+        user["range"] = nat["range"] * time_scale
+    return user
+
+
+# ----------------------------------------------------------------------------- optimisation
+def _bounds(spec, theta0):
+    """Box for L-BFGS-B: log-scale entries within ±25 of start, off-diagonal free."""
+    b = []
+    for k in range(spec.n_theta):
+        if spec.n_random == 2 and k == 1:
+            b.append((None, None))
+        else:
+            b.append((theta0[k] - _LOG_BOUND, theta0[k] + _LOG_BOUND))
+    return b
+
+
+def _optimise(groups, spec, theta0, correlation, method, maxiter, n_obs):
+    scale = 1.0 / n_obs
+    state = {"best": None}
+
+    def fun(th):
+        try:
+            ev = evaluate(groups, spec, th, correlation=correlation, method=method)
+        except NotPositiveDefinite:
+            return 1e300, np.zeros_like(th)
+        if state["best"] is None or ev.loglik > state["best"][0]:
+            state["best"] = (ev.loglik, th.copy())
+        return -ev.loglik * scale, -ev.grad * scale
+
+    res = optimize.minimize(fun, theta0, jac=True, method="L-BFGS-B", bounds=_bounds(spec, theta0),
+                            options={"maxiter": int(maxiter), "ftol": 1e-15, "gtol": 1e-10,
+                                     "maxcor": 20})
+    theta = res.x
+    # Newton polishing with a finite-difference Hessian of the analytic gradient
+    theta, polished = _polish(fun, theta)
+    grad_norm = float(np.max(np.abs(fun(theta)[1]))) / scale
+    converged = bool(res.success or res.status == 0) or grad_norm < 1e-3
+    return theta, converged, int(res.nit), str(res.message), grad_norm
+
+
+def _polish(fun, theta, steps=3):
+    """A few damped Newton steps on the profiled objective (safeguarded)."""
+    f0, g0 = fun(theta)
+    for _ in range(steps):
+        H = _fd_jacobian(lambda t: fun(t)[1], theta, 1e-5)
+        H = 0.5 * (H + H.T)
+        try:
+            w = np.linalg.eigvalsh(H)
+            if w.min() <= 0:
+                break
+            step = -np.linalg.solve(H, g0)
+        except np.linalg.LinAlgError:
+            break
+        if np.max(np.abs(step)) > 1.0:
+            break
+        cand = theta + step
+        f1, g1 = fun(cand)
+        if not f1 <= f0 + 1e-15 * abs(f0):
+            break
+        theta, f0, g0 = cand, f1, g1
+        if np.max(np.abs(step)) < 1e-10:
+            break
+    return theta, True
+
+
+def _fd_jacobian(f, x, h):
+    x = np.asarray(x, dtype=float)
+    cols = []
+    for k in range(x.size):
+        e = np.zeros_like(x)
+        e[k] = h * max(1.0, abs(x[k]))
+        cols.append((np.asarray(f(x + e)) - np.asarray(f(x - e))) / (2 * e[k]))
+    return np.column_stack(cols)
+
+
+# ----------------------------------------------------------------------------- reporting scale
+def _eta_from_natural(spec, nat):
+    """Reporting scale for Wald intervals: log of variances/range, raw covariance."""
+    return np.array([nat[k] if k == "intercept_slope_cov" else np.log(nat[k])
+                     for k in spec.parameters])
+
+
+def _natural_from_eta(spec, eta):
+    return {k: (float(v) if k == "intercept_slope_cov" else float(np.exp(v)))
+            for k, v in zip(spec.parameters, eta)}
+
+
+def _variance_intervals(groups, spec, theta, correlation, method, time_scale):
+    """Wald 95% intervals from the numerical Hessian of the profiled ℓ in η.
+
+    η = (log variances, log range, raw intercept–slope covariance). The
+    Hessian is a central finite difference of the analytic gradient mapped to
+    η by the chain rule; intervals are exp(η̂ ± 1.96·se) for log-scale
+    entries and η̂ ± 1.96·se for the covariance.
+    """
+    nat = natural_from_theta(spec, theta, time_scale)
+    eta0 = _eta_from_natural(spec, nat)
+
+    def theta_of(eta):
+        return theta_from_natural(spec, _natural_from_eta(spec, eta), time_scale)
+
+    def grad_eta(eta):
+        th = theta_of(eta)
+        ev = evaluate(groups, spec, th, correlation=correlation, method=method)
+        J = _fd_jacobian(theta_of, eta, 1e-7)
+        return J.T @ ev.grad
+
+    try:
+        H = _fd_jacobian(grad_eta, eta0, 1e-4)
+        H = 0.5 * (H + H.T)
+        cov = np.linalg.inv(-H)
+        se = np.sqrt(np.where(np.diag(cov) > 0, np.diag(cov), np.nan))
+    except (ModelError, NotPositiveDefinite, np.linalg.LinAlgError, FloatingPointError):
+        se = np.full(eta0.size, np.nan)
+    ci = {}
+    for k, e, s in zip(spec.parameters, eta0, se):
+        lo, hi = e - _Z95 * s, e + _Z95 * s
+        ci[k] = (float(lo), float(hi)) if k == "intercept_slope_cov" else \
+            (float(np.exp(lo)), float(np.exp(hi)))
+    return ci
+
+
+def _boundary_notes(spec, theta, theta0, panel, time_scale):
+    """Notes on estimates at or near the edge of the parameter space."""
+    comp = components(spec, theta)
+    notes = []
+    G = comp.G
+    total = comp.error_var + comp.serial_var + (G[0, 0] if G.size else 0.0)
+    rel = 1e-6
+    if G.size and G[0, 0] < rel * total:
+        notes.append("intercept_var is at or near 0 (boundary): little between-subject "
+                     "variation in level beyond the other components")
+    if spec.n_random == 2:
+        if G[1, 1] < rel * total:
+            notes.append("slope_var is at or near 0 (boundary): little between-subject "
+                         "variation in rate of change")
+        else:
+            corr = G[1, 0] / np.sqrt(G[0, 0] * G[1, 1]) if G[0, 0] > 0 else 0.0
+            if abs(corr) > 0.99:
+                notes.append(f"intercept–slope correlation is {corr:.3f}, at or near ±1 "
+                             "(boundary): G is close to singular")
+    if spec.serial:
+        if comp.serial_var < rel * total:
+            notes.append("serial_var is at or near 0 (boundary): no serial correlation detected")
+        t = panel.time / time_scale
+        lags = np.diff(t)[np.diff(panel.codes) == 0]
+        lags = lags[lags > 0]
+        min_lag = float(lags.min()) if lags.size else 1.0
+        span = float(t.max() - t.min()) if t.size else 1.0
+        if comp.range < 1e-2 * min_lag:
+            notes.append("range is near 0 (boundary): serial correlation has died out before "
+                         "the shortest lag, so it is confounded with measurement error")
+        elif comp.range > 100 * max(span, 1e-12):
+            notes.append("range is very large (boundary): the serial process is nearly "
+                         "constant within subjects, like a random intercept")
+    if comp.error_var < rel * total:
+        notes.append("error_var is at or near 0 (boundary): no measurement error beyond "
+                     "the other components")
+    hit = np.abs(theta - theta0) >= _LOG_BOUND - 1e-6
+    if spec.n_random == 2:
+        hit[1] = False
+    for k in np.flatnonzero(hit):
+        notes.append(f"the optimiser stopped at its search limit for {spec.parameters[k]}")
+    return tuple(notes)
+
+
+# ----------------------------------------------------------------------------- public
+def fit_mixed(panel, X, *, names, structure: str = "intercept+slope",
+              correlation: str = "exponential", method: str = "reml", start: dict | None = None,
+              maxiter: int = 500) -> MixedFit:
+    """Fit y = Xβ + Zb + W + ε by REML or ML with a chosen working covariance.
+
+    Parameters
+    ----------
+    panel : analysis.panel.Panel
+        Response ``y``, ``time`` and subject grouping (rows sorted by subject, time).
+    X : ndarray (n_obs, p)
+        Fixed-effects design in panel row order.
+    names : sequence of str
+        The p term names.
+    structure : str
+        One of :data:`analysis.mixed.STRUCTURES`.
+    correlation : {"exponential", "gaussian"}
+        Serial correlation function (used only by structures containing "serial").
+    method : {"reml", "ml"}
+    start : dict, optional
+        Starting natural parameters (keys as in ``MixedFit.variance``); missing keys
+        take the moment-based defaults.
+    maxiter : int
+        Iteration limit of the quasi-Newton optimiser.
+
+    Returns
+    -------
+    MixedFit
+
+    Notes
+    -----
+    Model: y_ij = x_ijᵀβ + z_ijᵀb_i + W_i(t_ij) + ε_ij, b_i ~ N(0, G),
+    W_i stationary with variance σ² and correlation ρ(u), ε_ij ~ N(0, τ²).
+    Log-likelihood convention as statsmodels ``MixedLM`` (REML omits
+    ½ log|XᵀX|); see :mod:`analysis.mixed.likelihood`. Time is divided by
+    its largest absolute value internally; all results are on the user's
+    time scale.
+
+    References
+    ----------
+    Diggle, Heagerty, Liang & Zeger (2002), Analysis of Longitudinal Data, ch. 5.
+    Verbeke & Molenberghs (2000), Linear Mixed Models for Longitudinal Data, ch. 5–6.
+    """
+    spec = spec_for(structure)
+    X, names = _check_inputs(panel, X, names, spec, method, correlation, maxiter)
+    tmax = float(np.max(np.abs(panel.time))) if panel.n_obs else 1.0
+    time_scale = tmax if tmax > 0 else 1.0
+    groups = build_groups(panel, X, spec, time_scale)
+    nat0 = _start_natural(panel, X, spec, time_scale)
+    if start:
+        unknown = set(start) - set(spec.parameters)
+        if unknown:
+            raise ModelError(f"start value(s) {sorted(unknown)} do not belong to structure "
+                             f"{structure!r}; its parameters are {list(spec.parameters)}")
+        for k, v in start.items():
+            if k != "intercept_slope_cov" and not (np.isfinite(v) and v > 0):
+                raise ModelError(f"start value {k} == {v}, must be > 0")
+        nat0.update({k: float(v) for k, v in start.items()})
+    theta0 = theta_from_natural(spec, nat0, time_scale)
+    theta, converged, nit, message, gnorm = _optimise(groups, spec, theta0, correlation, method,
+                                                      maxiter, panel.n_obs)
+    ev = evaluate(groups, spec, theta, correlation=correlation, method=method, gradient=False)
+    natural = natural_from_theta(spec, theta, time_scale)
+    variance = {k: natural[k] for k in PARAMETER_ORDER if k in natural}
+    ci = _variance_intervals(groups, spec, theta, correlation, method, time_scale)
+    variance_ci = {k: ci[k] for k in variance}
+    cov_beta = np.linalg.inv(ev.M)
+    cov_beta = 0.5 * (cov_beta + cov_beta.T)
+    meat = np.zeros_like(ev.M)
+    for g, Vinv, r in zip(groups, ev.Vinv, ev.resid):
+        u = np.einsum("mip,mi->mp", Vinv @ g.X, r)
+        meat += u.T @ u
+    robust = cov_beta @ meat @ cov_beta
+    robust = 0.5 * (robust + robust.T)
+    n_params = X.shape[1] + spec.n_theta
+    notes = _boundary_notes(spec, theta, theta0, panel, time_scale)
+    if not converged:
+        message = f"did not converge: {message} (largest gradient entry {gnorm:.2g})"
+    internals = FitInternals(panel=panel, X=X, spec=spec, theta=theta, time_scale=time_scale,
+                             groups=groups)
+    return MixedFit(
+        structure=structure,
+        correlation=correlation if spec.serial else None,
+        method=method,
+        names=names,
+        beta=ev.beta.copy(),
+        cov_beta=cov_beta,
+        robust_cov_beta=robust,
+        variance=variance,
+        variance_ci=variance_ci,
+        loglik=ev.loglik,
+        n_params=n_params,
+        aic=-2.0 * ev.loglik + 2.0 * n_params,
+        bic=-2.0 * ev.loglik + np.log(panel.n_subjects) * n_params,
+        converged=converged,
+        iterations=nit,
+        boundary=notes,
+        n_subjects=panel.n_subjects,
+        n_obs=panel.n_obs,
+        message=message,
+        internals=internals,
+    )
