@@ -174,37 +174,37 @@ def _optimise(groups, spec, theta0, correlation, method, maxiter, n_obs):
     res = optimize.minimize(fun, theta0, jac=True, method="L-BFGS-B", bounds=_bounds(spec, theta0),
                             options={"maxiter": int(maxiter), "ftol": 1e-15, "gtol": 1e-10,
                                      "maxcor": 20})
-    theta = res.x
-    # Newton polishing with a finite-difference Hessian of the analytic gradient
-    theta, polished = _polish(fun, theta)
+    theta, H = _polish(fun, res.x)
     grad_norm = float(np.max(np.abs(fun(theta)[1]))) / scale
-    converged = bool(res.success or res.status == 0) or grad_norm < 1e-3
-    return theta, converged, int(res.nit), str(res.message), grad_norm
+    converged = bool(res.success) or grad_norm < 1e-3
+    return theta, converged, int(res.nit), str(res.message), grad_norm, None if H is None else H / scale
 
 
-def _polish(fun, theta, steps=3):
-    """A few damped Newton steps on the profiled objective (safeguarded)."""
+def _polish(fun, theta, steps=4):
+    """Newton steps with one finite-difference Hessian of the analytic gradient.
+
+    Returns the polished θ and the Hessian of the scaled objective (or None when
+    it is not positive definite, e.g. at a boundary, in which case θ is kept).
+    Each step is accepted only if the objective does not increase.
+    """
     f0, g0 = fun(theta)
+    H = _fd_jacobian(lambda t: fun(t)[1], theta, 1e-5)
+    H = 0.5 * (H + H.T)
+    try:
+        if np.linalg.eigvalsh(H).min() <= 0:
+            return theta, H
+        Hinv = np.linalg.inv(H)
+    except np.linalg.LinAlgError:
+        return theta, None
     for _ in range(steps):
-        H = _fd_jacobian(lambda t: fun(t)[1], theta, 1e-5)
-        H = 0.5 * (H + H.T)
-        try:
-            w = np.linalg.eigvalsh(H)
-            if w.min() <= 0:
-                break
-            step = -np.linalg.solve(H, g0)
-        except np.linalg.LinAlgError:
+        step = -Hinv @ g0
+        if np.max(np.abs(step)) > 1.0 or np.max(np.abs(step)) < 1e-12:
             break
-        if np.max(np.abs(step)) > 1.0:
-            break
-        cand = theta + step
-        f1, g1 = fun(cand)
+        f1, g1 = fun(theta + step)
         if not f1 <= f0 + 1e-15 * abs(f0):
             break
-        theta, f0, g0 = cand, f1, g1
-        if np.max(np.abs(step)) < 1e-10:
-            break
-    return theta, True
+        theta, f0, g0 = theta + step, f1, g1
+    return theta, H
 
 
 def _fd_jacobian(f, x, h):
@@ -229,38 +229,36 @@ def _natural_from_eta(spec, eta):
             for k, v in zip(spec.parameters, eta)}
 
 
-def _variance_intervals(groups, spec, theta, correlation, method, time_scale):
-    """Wald 95% intervals from the numerical Hessian of the profiled ℓ in η.
+def _variance_intervals(spec, theta, H_theta, time_scale):
+    """Wald 95% intervals from the Hessian of the profiled objective, mapped to η.
 
-    η = (log variances, log range, raw intercept–slope covariance). The
-    Hessian is a central finite difference of the analytic gradient mapped to
-    η by the chain rule; intervals are exp(η̂ ± 1.96·se) for log-scale
-    entries and η̂ ± 1.96·se for the covariance.
+    η = (log variances, log range, raw intercept–slope covariance). With
+    J = ∂θ/∂η (central differences of the parameter map) the observed
+    information in η is Jᵀ H_θ J, where H_θ is the finite-difference Hessian
+    of −ℓ (analytic gradient) at θ̂ (the term in ∂ℓ/∂θ vanishes at the
+    optimum). Intervals are exp(η̂ ± 1.96·se) for log-scale entries and
+    η̂ ± 1.96·se for the covariance; NaN when the information is not
+    positive definite.
     """
     nat = natural_from_theta(spec, theta, time_scale)
     eta0 = _eta_from_natural(spec, nat)
-
-    def theta_of(eta):
-        return theta_from_natural(spec, _natural_from_eta(spec, eta), time_scale)
-
-    def grad_eta(eta):
-        th = theta_of(eta)
-        ev = evaluate(groups, spec, th, correlation=correlation, method=method)
-        J = _fd_jacobian(theta_of, eta, 1e-7)
-        return J.T @ ev.grad
-
-    try:
-        H = _fd_jacobian(grad_eta, eta0, 1e-4)
-        H = 0.5 * (H + H.T)
-        cov = np.linalg.inv(-H)
-        se = np.sqrt(np.where(np.diag(cov) > 0, np.diag(cov), np.nan))
-    except (ModelError, NotPositiveDefinite, np.linalg.LinAlgError, FloatingPointError):
-        se = np.full(eta0.size, np.nan)
+    se = np.full(eta0.size, np.nan)
+    if H_theta is not None:
+        try:
+            J = _fd_jacobian(lambda e: theta_from_natural(spec, _natural_from_eta(spec, e),
+                                                          time_scale), eta0, 1e-6)
+            info = J.T @ H_theta @ J
+            cov = np.linalg.inv(0.5 * (info + info.T))
+            d = np.diag(cov)
+            se = np.sqrt(np.where(d > 0, d, np.nan))
+        except (ModelError, np.linalg.LinAlgError):
+            pass
     ci = {}
-    for k, e, s in zip(spec.parameters, eta0, se):
-        lo, hi = e - _Z95 * s, e + _Z95 * s
-        ci[k] = (float(lo), float(hi)) if k == "intercept_slope_cov" else \
-            (float(np.exp(lo)), float(np.exp(hi)))
+    with np.errstate(over="ignore", invalid="ignore"):
+        for k, e, s in zip(spec.parameters, eta0, se):
+            lo, hi = e - _Z95 * s, e + _Z95 * s
+            ci[k] = (float(lo), float(hi)) if k == "intercept_slope_cov" else \
+                (float(np.exp(lo)), float(np.exp(hi)))
     return ci
 
 
@@ -367,12 +365,12 @@ def fit_mixed(panel, X, *, names, structure: str = "intercept+slope",
                 raise ModelError(f"start value {k} == {v}, must be > 0")
         nat0.update({k: float(v) for k, v in start.items()})
     theta0 = theta_from_natural(spec, nat0, time_scale)
-    theta, converged, nit, message, gnorm = _optimise(groups, spec, theta0, correlation, method,
+    theta, converged, nit, message, gnorm, H = _optimise(groups, spec, theta0, correlation, method,
                                                       maxiter, panel.n_obs)
     ev = evaluate(groups, spec, theta, correlation=correlation, method=method, gradient=False)
     natural = natural_from_theta(spec, theta, time_scale)
     variance = {k: natural[k] for k in PARAMETER_ORDER if k in natural}
-    ci = _variance_intervals(groups, spec, theta, correlation, method, time_scale)
+    ci = _variance_intervals(spec, theta, H, time_scale)
     variance_ci = {k: ci[k] for k in variance}
     cov_beta = np.linalg.inv(ev.M)
     cov_beta = 0.5 * (cov_beta + cov_beta.T)
