@@ -83,3 +83,12 @@ MODELS_SECTION = "models-section"
 
 #: every graph that carries subject ids in customdata (clicks select a subject)
 SUBJECT_CLICK_GRAPHS = (COURSE_GRAPH, LINES_GRAPH, RATE_COVARIATE_GRAPH)
+
+SETTING_CENTER_VALUE = "settings-center-value"
+SETTINGS_DATA_MSG = "settings-data-msg"
+
+#: per-view store of the key its figure was last drawn for (skip redraws that change nothing)
+VIEW_RENDERED = {v: f"{v}-rendered" for v in ("kept", "course", "spread", "pairs", "lines",
+                                              "rate", "follow", "link")}
+#: the SVG export button of a graph (pattern-matching id, index = graph id)
+EXPORT_SVG = "export-svg"

@@ -1,0 +1,225 @@
+"""Settings panel and role mapping: control values ⇄ Settings / Roles (pure functions).
+
+The panel's controls are typed loosely (numbers may be None or text); these
+functions turn them into a validated :class:`Settings` or per-control messages,
+and back again when a link restores a view.
+"""
+from __future__ import annotations
+
+from dataclasses import fields
+
+from analysis import options as opt
+from analysis.errors import CohortError
+from analysis.settings import Roles, Settings
+
+from . import ids
+
+ON = "on"
+
+ORIGIN_LABELS = {
+    "as-is": "Time column as given (already time since origin)",
+    "event-date": "Since each subject's event date",
+    "first-visit": "Since each subject's first visit",
+}
+TRANSFORM_LABELS = {"none": "none", "log": "natural log", "log2": "log base 2", "log10": "log base 10"}
+STRATA_METHOD_LABELS = {"quantile": "equal counts (quantiles)", "equal-width": "equal widths",
+                        "custom": "my own break points"}
+DETREND_LABELS = {"none": "none (raw response)", "linear": "straight line in time",
+                  "spline": "smooth spline in time", "lowess": "lowess smooth"}
+DUPLICATE_LABELS = {"reject": "stop with a message", "average": "average them"}
+CENTER_CHOICES = {"none": "no centring", "mean": "cohort mean", "median": "cohort median",
+                  "value": "a value I give"}
+
+#: controls whose value is a number typed by the user (None when blank)
+NUMBER_FIELDS = ("time_min", "time_max", "min_visits", "n_strata", "spline_df", "lowess_frac",
+                 "variogram_bins", "variogram_max_lag", "lag_width")
+INT_FIELDS = ("min_visits", "n_strata", "spline_df", "variogram_bins")
+CHECK_FIELDS = ("require_covariate", "detrend_within_strata")
+#: fields that must have a value (blank means "use the default")
+REQUIRED_NUMBERS = ("min_visits", "n_strata", "spline_df", "lowess_frac", "variogram_bins")
+
+
+def control_values(settings: Settings) -> dict:
+    """The value of each settings control that shows ``settings``."""
+    d = settings.to_dict()
+    out = {}
+    for f in ids.SETTING_FIELDS:
+        v = d[f]
+        if f in CHECK_FIELDS:
+            out[f] = [ON] if v else []
+        elif f == "breaks":
+            out[f] = ", ".join(_num(b) for b in v)
+        elif f == "center":
+            out[f] = v if isinstance(v, str) else "value"
+        else:
+            out[f] = v
+    out["center_value"] = None if isinstance(d["center"], str) else d["center"]
+    return out
+
+
+def settings_from_controls(values: dict, *, fallback: Settings | None = None
+                           ) -> tuple[Settings | None, dict[str, str]]:
+    """Build Settings from control values.
+
+    Returns (settings or None, {field: message}); settings is None when any
+    control holds something unusable.
+    """
+    fallback = fallback or Settings()
+    messages: dict[str, str] = {}
+    d: dict = {}
+    for f in ids.SETTING_FIELDS:
+        v = values.get(f)
+        try:
+            d[f] = _field_value(f, v, values, fallback)
+        except ValueError as exc:
+            messages[f] = str(exc)
+    if messages:
+        return None, messages
+    try:
+        return Settings.from_dict(d), {}
+    except CohortError as exc:
+        return None, {_field_named_in(str(exc)): _plain(str(exc))}
+
+
+def _field_value(f: str, v, values: dict, fallback: Settings):
+    if f in CHECK_FIELDS:
+        return bool(v) and ON in v
+    if f in NUMBER_FIELDS:
+        if v is None or v == "":
+            if f in REQUIRED_NUMBERS:
+                raise ValueError("enter a number")
+            return None
+        try:
+            num = float(v)
+        except (TypeError, ValueError):
+            raise ValueError(f"expected a number, got {v!r}") from None
+        if f in INT_FIELDS:
+            if not num.is_integer():
+                raise ValueError(f"expected a whole number, got {v}")
+            return int(num)
+        return num
+    if f == "breaks":
+        text = (v or "").strip()
+        if not text:
+            return ()
+        out = []
+        for part in text.replace(";", ",").split(","):
+            part = part.strip()
+            if not part:
+                continue
+            try:
+                out.append(float(part))
+            except ValueError:
+                raise ValueError(f"'{part}' is not a number; write break points like 10, 20, 40"
+                                 ) from None
+        return tuple(out)
+    if f == "center":
+        if v == "value":
+            cv = values.get("center_value")
+            if cv is None or cv == "":
+                raise ValueError("enter the value to centre at")
+            return float(cv)
+        return v or "none"
+    if f in ("covariate", "stratify_by"):
+        return v or None
+    return v if v is not None else getattr(fallback, f)
+
+
+def _field_named_in(message: str) -> str:
+    """Which settings control a validation message is about (first field name it starts with)."""
+    head = message.split(" ", 1)[0]
+    if head in ids.SETTING_FIELDS:
+        return head
+    for f in ids.SETTING_FIELDS:
+        if f in message:
+            return f
+    return "origin"
+
+
+def _plain(message: str) -> str:
+    """Settings messages name fields as in code; say them as the panel does."""
+    for f in ids.SETTING_FIELDS:
+        message = message.replace(f"{f} ==", f"{FIELD_LABELS[f].lower()} is")
+    for f in ids.SETTING_FIELDS:
+        message = message.replace(f, f"'{FIELD_LABELS[f].lower()}'")
+    return message
+
+
+FIELD_LABELS = {
+    "origin": "Time origin",
+    "unit": "Time unit",
+    "time_min": "Window from",
+    "time_max": "Window to",
+    "min_visits": "Fewest visits per subject",
+    "require_covariate": "Require the baseline covariate",
+    "covariate": "Baseline covariate",
+    "duplicates": "Two visits at the same time",
+    "transform": "Transform",
+    "center": "Centre at",
+    "stratify_by": "Group subjects by",
+    "strata_method": "How to cut groups",
+    "n_strata": "Number of groups",
+    "breaks": "Break points",
+    "detrend": "Mean curve removed",
+    "spline_df": "Spline degrees of freedom",
+    "lowess_frac": "Lowess span",
+    "detrend_within_strata": "Separate curve per group",
+    "variogram_bins": "Time-apart bins",
+    "variogram_max_lag": "Largest time apart",
+    "lag_width": "Lag window width",
+}
+
+
+def _num(v: float) -> str:
+    return str(int(v)) if float(v).is_integer() else f"{v:g}"
+
+
+# ------------------------------------------------------------------- roles
+def role_values(roles: Roles | None) -> dict:
+    """The value of each role dropdown that shows ``roles``."""
+    if roles is None:
+        return {r: ([] if r == "covariates" else None) for r in ids.ROLE_FIELDS}
+    return {"subject": roles.subject, "time": roles.time, "event_date": roles.event_date,
+            "response": roles.response, "covariates": list(roles.covariates)}
+
+
+def roles_from_controls(values: dict) -> tuple[Roles | None, dict[str, str]]:
+    """Roles from dropdown values, or None and a message beside each missing role."""
+    messages = {}
+    for r, word in (("subject", "the subject identifier"), ("time", "time or visit date"),
+                    ("response", "the measured response")):
+        if not values.get(r):
+            messages[r] = f"Choose the column that holds {word}."
+    if messages:
+        return None, messages
+    picked = [values["subject"], values["time"], values["response"]]
+    if len(set(picked)) < 3:
+        return None, {"response": "Subject, time and response must be three different columns."}
+    covs = tuple(c for c in (values.get("covariates") or []) if c not in picked)
+    return Roles(subject=values["subject"], time=values["time"], response=values["response"],
+                 covariates=covs, event_date=values.get("event_date") or None), {}
+
+
+def keep_roles_that_fit(roles: Roles | None, columns) -> Roles | None:
+    """The same roles if every named column exists in ``columns``, else None."""
+    if roles is None:
+        return None
+    cols = set(columns)
+    return roles if set(roles.columns()) <= cols else None
+
+
+def role_options(described: list[dict]) -> list[dict]:
+    """Dropdown options naming each column with its kind and missing count."""
+    out = []
+    for c in described:
+        miss = f", {c['n_missing']} missing" if c["n_missing"] else ""
+        out.append({"label": f"{c['name']}  ({c['kind']}{miss})", "value": c["name"]})
+    return out
+
+
+def choice_options(labels: dict) -> list[dict]:
+    return [{"label": text, "value": value} for value, text in labels.items()]
+
+
+def settings_field_names() -> tuple[str, ...]:
+    return tuple(f.name for f in fields(Settings))

@@ -1,0 +1,270 @@
+"""The state hub: the one callback that owns the URL, the loaded-data key, the role
+dropdowns, the settings controls and the highlight (subject, group).
+
+Dash only allows a circular link (URL ⇄ controls) inside a single callback, so
+this is it. It dispatches on what triggered it to small pure functions:
+
+* page load / back-forward  → decode the URL and set every control;
+* upload / demo button      → store the table, offer its columns, keep roles that fit;
+* any control or click      → write the URL (settings only when they are valid).
+"""
+from __future__ import annotations
+
+import base64
+import math
+
+from dash import Input, Output, State, ctx, no_update
+
+from analysis.errors import CohortError
+from analysis.loading import describe_columns, read_table
+
+from . import controls as ctl
+from . import ids, urlstate
+from .session import AppContext, attempt
+
+PREVIEW_ROWS = 6
+_SETTING_KEYS = (*ids.SETTING_FIELDS, "center_value")
+_SETTING_IDS = {**ids.SETTING_INPUT, "center_value": ids.SETTING_CENTER_VALUE}
+_VIEW_IDS = {"draw": ids.COURSE_DRAW, "seed": ids.COURSE_SEED, "order": ids.LINES_ORDER}
+_CLICK_GRAPHS = ids.SUBJECT_CLICK_GRAPHS
+
+
+def _setting_prop(key: str) -> str:
+    return "value"
+
+
+def register(app, context: AppContext) -> None:
+    outputs = dict(
+        search=Output(ids.PAGE_URL, "search"),
+        data=Output(ids.STORE_DATA, "data"),
+        title=Output(ids.PAGE_TITLE, "children"),
+        data_name=Output(ids.DATA_NAME, "children"),
+        upload_msg=Output(ids.DATA_UPLOAD_MSG, "children"),
+        alert=Output(ids.PAGE_ALERT, "children"),
+        preview=Output(ids.DATA_PREVIEW, "data"),
+        preview_cols=Output(ids.DATA_PREVIEW, "columns"),
+        role_options={r: Output(ids.ROLE_INPUT[r], "options") for r in ids.ROLE_FIELDS},
+        roles={r: Output(ids.ROLE_INPUT[r], "value") for r in ids.ROLE_FIELDS},
+        settings={k: Output(_SETTING_IDS[k], "value") for k in _SETTING_KEYS},
+        view={k: Output(i, "value") for k, i in _VIEW_IDS.items()},
+        stratum=Output(ids.LINK_STRATA, "value"),
+        subject=Output(ids.STORE_SUBJECT, "data"),
+    )
+    inputs = dict(
+        search=Input(ids.PAGE_URL, "search"),
+        upload=Input(ids.DATA_UPLOAD, "contents"),
+        demo=Input(ids.DATA_USE_DEMO, "n_clicks"),
+        reset=Input(ids.SETTINGS_RESET, "n_clicks"),
+        roles={r: Input(ids.ROLE_INPUT[r], "value") for r in ids.ROLE_FIELDS},
+        settings={k: Input(_SETTING_IDS[k], "value") for k in _SETTING_KEYS},
+        view={k: Input(i, "value") for k, i in _VIEW_IDS.items()},
+        stratum=Input(ids.LINK_STRATA, "value"),
+        clicks={g: Input(g, "clickData") for g in _CLICK_GRAPHS},
+        stratum_click=Input(ids.RATE_STRATA_GRAPH, "clickData"),
+        clear=Input(ids.LINK_CLEAR, "n_clicks"),
+    )
+    state = dict(
+        filename=State(ids.DATA_UPLOAD, "filename"),
+        data=State(ids.STORE_DATA, "data"),
+        subject=State(ids.STORE_SUBJECT, "data"),
+    )
+
+    @app.callback(output=outputs, inputs=inputs, state=state)
+    def hub(search, upload, demo, reset, roles, settings, view, stratum, clicks, stratum_click,
+            clear, filename, data, subject):
+        out = _unchanged(outputs)
+        trig = ctx.triggered_id
+        now = dict(data=data, roles=roles, settings=settings, view=view, stratum=stratum,
+                   subject=subject)
+        if trig is None or trig == ids.PAGE_URL:
+            _from_url(context, search, out)
+            return out
+        if trig == ids.DATA_UPLOAD:
+            if not _from_upload(context, upload, filename, now, out):
+                return out
+        elif trig == ids.DATA_USE_DEMO:
+            _show_dataset(context, context.default_key, context.default_roles, out)
+            now.update(data=out["data"], roles=out["roles"], subject=None, stratum=None)
+            out["subject"], out["stratum"] = None, None
+        elif trig == ids.SETTINGS_RESET:
+            values = ctl.control_values(context.default_settings)
+            out["settings"] = {k: values[k] for k in _SETTING_KEYS}
+            now["settings"] = out["settings"]
+        elif trig in ids.ROLE_INPUT.values():
+            _fit_covariate_choices(roles, settings, out, now)
+        elif trig in _CLICK_GRAPHS:
+            picked = clicked_subject(clicks.get(trig))
+            if picked is None:
+                return out
+            now["subject"] = out["subject"] = picked
+        elif trig == ids.RATE_STRATA_GRAPH:
+            label = clicked_stratum(stratum_click)
+            if label is None:
+                return out
+            now["stratum"] = out["stratum"] = None if label == stratum else label
+        elif trig == ids.LINK_CLEAR:
+            now["subject"] = now["stratum"] = out["subject"] = out["stratum"] = None
+        out["search"] = _encode(context, now)
+        return out
+
+
+def _unchanged(spec):
+    if isinstance(spec, dict):
+        return {k: _unchanged(v) for k, v in spec.items()}
+    return no_update
+
+
+# ------------------------------------------------------------------ dispatch targets
+def _from_url(context: AppContext, search: str | None, out: dict) -> None:
+    state = urlstate.decode(search, base=context.default_settings,
+                            base_roles=context.default_roles, base_data=context.default_key)
+    problems = list(state.problems)
+    key = state.data_key
+    if key not in context.datasets:
+        problems.insert(0, "The link refers to a table this server does not hold (uploads are "
+                           "kept in memory only, and not after a restart); showing the start-up "
+                           "table instead. Upload the file again to continue.")
+        key = context.default_key
+        roles = context.default_roles
+    else:
+        roles = state.roles
+    _show_dataset(context, key, roles, out)
+    values = ctl.control_values(state.settings)
+    out["settings"] = {k: values[k] for k in _SETTING_KEYS}
+    out["view"] = dict(state.view)
+    out["stratum"] = state.stratum
+    out["subject"] = state.subject
+    out["alert"] = _problem_list(problems)
+
+
+def _from_upload(context: AppContext, contents, filename, now: dict, out: dict) -> bool:
+    if not contents:
+        return False
+    name = filename or "uploaded file"
+
+    def load():
+        raw = decode_upload(contents, name)
+        return context.datasets.add(read_table(raw, name=name), name=name)
+
+    dataset, message, _ = attempt(load, what=f"reading {name}")
+    if dataset is None:
+        out["upload_msg"] = f"Could not use {name}: {message}"
+        return False
+    current = now["roles"]
+    roles, _ = ctl.roles_from_controls(current)
+    keep = ctl.keep_roles_that_fit(roles, dataset.frame.columns)
+    _show_dataset(context, dataset.key, keep, out)
+    out["upload_msg"] = ""
+    out["subject"], out["stratum"] = None, None
+    now.update(data=out["data"], roles=out["roles"], subject=None, stratum=None)
+    return True
+
+
+def _show_dataset(context: AppContext, key: str, roles, out: dict) -> None:
+    dataset = context.datasets.get(key)
+    described = describe_columns(dataset.frame)
+    options = ctl.role_options(described)
+    roles = ctl.keep_roles_that_fit(roles, dataset.frame.columns)
+    out["data"] = {"key": dataset.key, "name": dataset.name}
+    out["title"] = dataset.name
+    n_subjects = "?"
+    if roles is not None:
+        n_subjects = f"{dataset.frame[roles.subject].nunique():,}"
+    out["data_name"] = (f"{dataset.name}: {len(dataset.frame):,} rows, "
+                        f"{dataset.frame.shape[1]} columns, {n_subjects} subjects")
+    out["role_options"] = {r: options for r in ids.ROLE_FIELDS}
+    out["roles"] = ctl.role_values(roles)
+    out["preview"], out["preview_cols"] = preview(dataset.frame, described)
+    out["upload_msg"] = ""
+
+
+def _fit_covariate_choices(roles: dict, settings: dict, out: dict, now: dict) -> None:
+    """When the covariate list changes, forget covariate choices that are no longer in it."""
+    covs = set(roles.get("covariates") or [])
+    changed = dict(settings)
+    for f in ("covariate", "stratify_by"):
+        if settings.get(f) and settings[f] not in covs:
+            changed[f] = None
+            out["settings"][f] = None
+    now["settings"] = changed
+
+
+def _encode(context: AppContext, now: dict):
+    values = dict(now["settings"])
+    settings, problems = ctl.settings_from_controls(values, fallback=context.default_settings)
+    if settings is None:
+        return no_update
+    roles, _ = ctl.roles_from_controls(now["roles"])
+    key = (now["data"] or {}).get("key")
+    view = {k: v for k, v in (now["view"] or {}).items() if v not in (None, "")}
+    return urlstate.encode(
+        data_key=None if key == context.default_key else key,
+        roles=roles, base_roles=context.default_roles if key == context.default_key else None,
+        settings=settings, base=context.default_settings, view=view,
+        subject=now["subject"], stratum=now["stratum"])
+
+
+# ------------------------------------------------------------------ small pure helpers
+def decode_upload(contents: str, name: str) -> bytes:
+    """Bytes of a dcc.Upload data URL ('data:...;base64,....')."""
+    try:
+        _, b64 = contents.split(",", 1)
+        return base64.b64decode(b64)
+    except (ValueError, TypeError) as exc:
+        raise CohortError(f"{name}: the browser sent an unreadable upload ({exc})") from None
+
+
+def preview(frame, described) -> tuple[list[dict], list[dict]]:
+    """First rows as display strings, with column headers naming each column's kind."""
+    head = frame.head(PREVIEW_ROWS)
+    columns = [{"name": [c["name"], c["kind"]], "id": str(i)} for i, c in enumerate(described)]
+    rows = []
+    for _, row in head.iterrows():
+        rows.append({str(i): _cell(v) for i, v in enumerate(row.tolist())})
+    return rows, columns
+
+
+def _cell(v) -> str:
+    if v is None or (isinstance(v, float) and math.isnan(v)):
+        return ""
+    try:
+        import pandas as pd
+        if pd.isna(v):
+            return ""
+    except (TypeError, ValueError):
+        pass
+    return str(v)
+
+
+def clicked_subject(click: dict | None) -> str | None:
+    """The subject id carried in a clicked point's customdata (first element if a list)."""
+    if not click or not click.get("points"):
+        return None
+    cd = click["points"][0].get("customdata")
+    if isinstance(cd, (list, tuple)):
+        cd = cd[0] if cd else None
+    return None if cd is None else str(cd)
+
+
+def clicked_stratum(click: dict | None) -> str | None:
+    """The group label of a clicked box/point in the slopes-by-group view."""
+    if not click or not click.get("points"):
+        return None
+    p = click["points"][0]
+    cd = p.get("customdata")
+    if isinstance(cd, (list, tuple)) and len(cd) > 1:
+        return str(cd[1])
+    for key in ("x", "y"):
+        v = p.get(key)
+        if isinstance(v, str):
+            return v
+    return None
+
+
+def _problem_list(problems):
+    from dash import html
+
+    if not problems:
+        return ""
+    return [html.Strong("Some parts of the link could not be used:"),
+            html.Ul([html.Li(p) for p in problems])]
