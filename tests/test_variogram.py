@@ -90,6 +90,9 @@ def test_pair_chunks_concatenate_to_the_full_enumeration():
     assert len(chunks) > 5
     assert np.array_equal(np.concatenate([c[0] for c in chunks]), a)
     assert np.array_equal(np.concatenate([c[1] for c in chunks]), b)
+    # memory bound: a chunk exceeds max_pairs only when one subject alone has more pairs
+    largest_subject = int(p.counts.max() * (p.counts.max() - 1) // 2)
+    assert max(c[0].size for c in chunks) <= max(7, largest_subject)
 
 
 # -- semivariogram against brute force ----------------------------------------
