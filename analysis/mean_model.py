@@ -426,9 +426,9 @@ def _require_column(baseline, c):
 
 
 def _missing(s: pd.Series) -> np.ndarray:
-    miss = s.isna().to_numpy(dtype=bool)
+    miss = np.array(s.isna().to_numpy(dtype=bool), copy=True)
     if _is_numeric(s):
-        miss |= ~np.isfinite(s.to_numpy(dtype=float, na_value=np.nan))
+        miss = miss | ~np.isfinite(s.to_numpy(dtype=float, na_value=np.nan))
     return miss
 
 
