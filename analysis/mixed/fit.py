@@ -303,8 +303,8 @@ def _boundary_notes(spec, theta, theta0, panel, time_scale):
         else:
             corr = G[1, 0] / np.sqrt(G[0, 0] * G[1, 1]) if G[0, 0] > 0 else 0.0
             if abs(corr) > 0.99:
-                notes.append(f"intercept–slope correlation is {corr:.3f}, at or near ±1 "
-                             "(boundary): G is close to singular")
+                notes.append(f"intercept_slope_cov: the intercept–slope correlation is "
+                             f"{corr:.3f}, at or near ±1 (boundary): G is close to singular")
     if spec.serial:
         if comp.serial_var < rel * total:
             notes.append("serial_var is at or near 0 (boundary): no serial correlation detected")
