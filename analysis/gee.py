@@ -215,7 +215,7 @@ def _time_gap_autoregressive():
 
     α minimises the weighted least-squares criterion of statsmodels'
     ``Autoregressive`` (standardised residual r_j regressed on α^d r_k over all
-    within-subject pairs, d the time gap) but over the bounded interval
+    within-subject pairs, d the time gap, weights from the current α) but over the bounded interval
     [0, :data:`AR_MAX`] instead of a bracket search, so a correlation that does
     not decay with the gap gives α at the bound (noted) rather than an error.
     """
@@ -252,10 +252,13 @@ def _time_gap_autoregressive():
                 (e - cm[0]) / np.sqrt(scale * self.model.family.variance(cm[0]))
                 for e, cm in zip(self.model.endog_li, self.model.cached_means)])
             r1, r2 = resid[i1], resid[i2]
+            # weights 1/var(r1 - a^d r2) at the current α, held fixed while minimising (as statsmodels)
+            a0 = float(self.dep_params)
+            w = (1.0 - a0 * a0) / np.maximum(1.0 - a0 ** (2 * d), 1e-12)
+            w = w / w.sum()
 
             def crit(a):
-                w = (1.0 - a * a) / np.maximum(1.0 - a ** (2 * d), 1e-12)
-                return float(np.dot(w / w.sum(), (r1 - a ** d * r2) ** 2))
+                return float(np.dot(w, (r1 - a ** d * r2) ** 2))
 
             res = minimize_scalar(crit, bounds=(0.0, AR_MAX), method="bounded",
                                   options={"xatol": 1e-8})
@@ -271,6 +274,13 @@ def _time_gap_autoregressive():
             t = np.asarray(self.model.time_li[index], dtype=float)
             gap = np.abs(t[:, None, :] - t[None, :, :]).sum(axis=2)
             return alpha ** gap, True
+
+        # the parent's banded solver assumes unit index gaps; use the generic dense solve
+        covariance_matrix_solve = cs.CovStruct.covariance_matrix_solve
+
+        def summary(self):
+            return (f"Autoregressive in time gaps: correlation {float(self.dep_params):.4f} "
+                    "at one time unit")
 
     return TimeGapAutoregressive(grid=False)
 
