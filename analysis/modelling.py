@@ -226,7 +226,10 @@ def fit_candidates(cohort, *, structures=DEFAULT_CANDIDATES, correlation: str = 
     keep = complete_subjects(baseline, mean, covariate_name=COVARIATE_COLUMN)
     n_dropped = int((~keep).sum())
     if n_dropped:
-        cols = ", ".join(_display(c, cohort) for c in used_columns(mean, COVARIATE_COLUMN))
+        cols = ", ".join(
+            _display(c, cohort) for c in used_columns(mean, COVARIATE_COLUMN)
+            if not complete_subjects(baseline, MeanModel(covariate=False, interaction=False,
+                                                         confounders=(c,)), covariate_name=c).all())
         notes.append(f"{n_dropped} of {len(keep)} subjects dropped: missing value of {cols}")
         if not keep.any():
             raise ModelError(f"every subject lacks a value of {cols}; no model can be fitted")
