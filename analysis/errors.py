@@ -18,14 +18,14 @@ class DataError(CohortError):
     column : str or None
         The column concerned (the UI shows the message beside that role's control).
     rows : tuple of int
-        First few offending row numbers, counted from 1 as in a spreadsheet
+        First few offending row numbers (built from the 0-based data-row ``positions``), counted from 1 as in a spreadsheet
         (the header is row 1, so the first data row is row 2).
     """
 
-    def __init__(self, message: str, *, column: str | None = None, rows=()):
+    def __init__(self, message: str, *, column: str | None = None, positions=()):
         super().__init__(message)
         self.column = column
-        self.rows = tuple(int(r) for r in rows)
+        self.rows = tuple(int(r) + 2 for r in positions)
 
 
 class ModelError(CohortError):
@@ -39,3 +39,9 @@ def row_list(rows, limit: int = 5) -> str:
     more = len(rows) - limit
     word = "row" if len(rows) == 1 else "rows"
     return f"{word} {shown}" + (f" and {more} more" if more > 0 else "")
+
+
+def rows_hold(rows, examples, limit: int = 5) -> str:
+    """'rows 2, 5 hold 'x', 'y'' / 'row 4 holds 'x'' from 0-based positions and example values."""
+    verb = "holds" if len(rows) == 1 else "hold"
+    return f"{row_list(rows, limit)} {verb} " + ", ".join(repr(v) for v in examples)

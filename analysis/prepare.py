@@ -20,7 +20,7 @@ import numpy as np
 import pandas as pd
 
 from . import options as opt
-from .errors import DataError, SettingsError, row_list
+from .errors import DataError, SettingsError, row_list, rows_hold
 from .loading import column_kind, parse_dates
 from .panel import Panel
 from .settings import Roles, Settings
@@ -386,16 +386,23 @@ def _numeric(s: pd.Series, column: str, role: str) -> pd.Series:
             out[bad] = pd.to_numeric(text[bad].str.replace(",", ".", regex=False))
             return out.astype(float)
         rows = np.flatnonzero(bad.to_numpy())
-        examples = ", ".join(repr(v) for v in text[bad].unique()[:3])
         raise DataError(
-            f"column '{column}' ({role}) must hold numbers; {row_list(rows)} hold {examples}",
-            column=column, rows=rows[:20])
+            f"column '{column}' ({role}) must hold numbers; {rows_hold(rows, text[bad].unique()[:3])}",
+            column=column, positions=rows[:20])
     return out.astype(float)
 
 
 def _time_kind(s: pd.Series) -> str:
+    """'date' or 'number'; a column that is mostly dates counts as dates, so the few cells that
+    do not parse are reported by row rather than the whole column being called non-numeric."""
     kind = column_kind(s)
-    return "date" if kind == "date" else "number"
+    if kind != "text":
+        return "date" if kind == "date" else "number"
+    values = s.dropna().astype("string").str.strip()
+    values = values[values != ""]
+    numeric = pd.to_numeric(values, errors="coerce").notna().mean()
+    dates = parse_dates(values).notna().mean()
+    return "date" if dates > max(numeric, 0.5) else "number"
 
 
 def _time_values(s: pd.Series, column: str, role: str, kind: str) -> pd.Series:
@@ -409,10 +416,9 @@ def _time_values(s: pd.Series, column: str, role: str, kind: str) -> pd.Series:
     bad = parsed.isna() & text.notna() & (text != "")
     if bad.any():
         rows = np.flatnonzero(bad.to_numpy())
-        examples = ", ".join(repr(v) for v in text[bad].unique()[:3])
         raise DataError(
             f"column '{column}' ({role}) must hold dates such as 2021-03-15; "
-            f"{row_list(rows)} hold {examples}", column=column, rows=rows[:20])
+            f"{rows_hold(rows, text[bad].unique()[:3])}", column=column, positions=rows[:20])
     return parsed
 
 
@@ -425,7 +431,7 @@ def _check_constant_within_subject(work: pd.DataFrame, col: str, column: str, ro
             f"column '{column}' ({role}) must be the same on every row of a subject; it varies for "
             f"{len(varying)} subject(s), e.g. {', '.join(map(str, varying[:3]))} "
             f"({row_list(first['_row'].to_numpy())})",
-            column=column, rows=first["_row"].to_numpy()[:20])
+            column=column, positions=first["_row"].to_numpy()[:20])
 
 
 def _anchor(work: pd.DataFrame, settings: Settings, kind: str) -> np.ndarray:
@@ -451,7 +457,7 @@ def _handle_duplicates(work: pd.DataFrame, roles: Roles, settings: Settings) -> 
         raise DataError(
             f"{int(dup.sum())} rows repeat a (subject, time) pair already present, e.g. subject "
             f"{first} ({row_list(rows)}); remove them, or choose duplicates 'average' to use the "
-            "mean response of each repeated visit", column=roles.time, rows=rows[:20])
+            "mean response of each repeated visit", column=roles.time, positions=rows[:20])
     agg = {c: "first" for c in work.columns if c not in ("subject", "time", "response")}
     agg["response"] = "mean"
     return work.groupby(["subject", "time"], sort=False, as_index=False).agg(agg)
