@@ -105,6 +105,8 @@ def demo_roles() -> Roles:
         response="egfr",
         covariates=("urine_protein_ratio", "centre", "sex", "age_at_tx", "donor_type"),
         event_date="tx_date",
+        response_unit="mL/min/1.73m²",
+        covariate_unit="mg/mmol",
     )
 
 

@@ -146,6 +146,24 @@ class PreparedCohort:
         return self.selection.time_label
 
     @property
+    def response_unit(self) -> str:
+        """The response's unit as given with the roles ('' when not given)."""
+        return self.roles.response_unit
+
+    @property
+    def response_label(self) -> str:
+        """Axis label of the response, e.g. 'egfr (mL/min/1.73m²)'."""
+        u = self.roles.response_unit
+        return f"{self.roles.response} ({u})" if u else self.roles.response
+
+    @property
+    def covariate_unit(self) -> str:
+        """The unit given with the roles for the first listed covariate, when that is the primary
+        one ('' otherwise)."""
+        first = self.roles.covariates[0] if self.roles.covariates else None
+        return self.roles.covariate_unit if first is not None and self.covariate == first else ""
+
+    @property
     def covariate_label(self) -> str:
         """The primary covariate as the effect statement names it, e.g. 'log2(marker)'."""
         c = self.covariate or "covariate"

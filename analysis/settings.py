@@ -23,7 +23,8 @@ class Roles:
     or calendar dates. ``event_date`` is a per-subject anchoring date (or number)
     used when ``Settings.origin == "event-date"``. ``covariates`` are baseline
     covariates (numeric or categorical), the first being the primary one unless
-    ``Settings.covariate`` names another.
+    ``Settings.covariate`` names another. ``response_unit`` and ``covariate_unit``
+    (optional, e.g. "mL/min/1.73m²", "mg/mmol") only label axes and effect statements.
     """
 
     subject: str
@@ -31,6 +32,8 @@ class Roles:
     response: str
     covariates: tuple[str, ...] = ()
     event_date: str | None = None
+    response_unit: str = ""
+    covariate_unit: str = ""
 
     def __post_init__(self):
         object.__setattr__(self, "covariates", tuple(self.covariates))

@@ -91,6 +91,8 @@ def _add_roles(p: argparse.ArgumentParser, *, required: bool) -> None:
     g.add_argument("--covariate", action="append", default=None,
                    help="baseline covariate column (repeat or comma-separate; first is primary)")
     g.add_argument("--event-date", help="per-subject event date (for --origin event-date)")
+    g.add_argument("--response-unit", help="unit of the response, for labels (e.g. 'mg/dL')")
+    g.add_argument("--covariate-unit", help="unit of the primary covariate, for labels")
 
 
 def _add_settings(p: argparse.ArgumentParser) -> None:
@@ -135,12 +137,15 @@ def resolve(args: argparse.Namespace) -> tuple[object, Roles | None, Settings]:
         covariates.extend(c.strip() for c in item.split(",") if c.strip())
     given = {"subject": args.subject, "time": args.time, "response": args.response,
              "event_date": args.event_date}
+    units = {"response_unit": getattr(args, "response_unit", None),
+             "covariate_unit": getattr(args, "covariate_unit", None)}
     roles = None
     if base_roles or any(v for v in given.values()) or covariates:
         merged = dict(base_roles or {})
         merged.update({k: v for k, v in given.items() if v})
         if covariates:
             merged["covariates"] = covariates
+        merged.update({k: v for k, v in units.items() if v})
         missing = [k for k in ("subject", "time", "response") if not merged.get(k)]
         if missing:
             if args.command == "serve":

@@ -201,3 +201,14 @@ def test_categorical_stratifier_uses_levels():
 def test_categorical_covariate_cannot_be_log_transformed():
     with pytest.raises(SettingsError, match="'centre' is categorical"):
         prepare(cohort_frame(), ROLES, settings(covariate="centre", transform="log"))
+
+
+def test_units_given_with_the_roles_label_the_response_and_covariate():
+    df = cohort_frame()
+    roles = Roles("pid", "visit", "gfr", covariates=("marker", "centre"), event_date="tx",
+                  response_unit="mL/min", covariate_unit="mg/L")
+    cohort = prepare(df, roles, settings())
+    assert cohort.response_label == "gfr (mL/min)" and cohort.covariate_unit == "mg/L"
+    other = prepare(df, roles, settings(covariate="centre"))
+    assert other.covariate_unit == ""      # the unit belongs to the first listed covariate only
+    assert Roles.from_dict(roles.to_dict()) == roles
