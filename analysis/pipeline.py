@@ -14,6 +14,8 @@ Stages and the settings they read (see :data:`analysis.settings.STAGE_FIELDS`)::
     variogram     residuals + bins, maximum lag
     lagcorr       residuals + window width
     summaries     cohort
+    models        cohort + the model choices (structures, correlation, REML/ML,
+                  confounders, spline in time, GEE rows; see analysis.modelstage)
 """
 from __future__ import annotations
 
@@ -121,7 +123,9 @@ class Workbench:
     Parameters
     ----------
     max_entries : int
-        Bound on cached results (all stages together).
+        Bound on cached exploratory results (all those stages together).
+    max_model_sets : int
+        Bound on cached fitted model sets (the ``models`` stage).
 
     Attributes
     ----------
@@ -129,8 +133,10 @@ class Workbench:
         How many times each stage was actually computed (cache misses).
     """
 
-    def __init__(self, max_entries: int = 128):
+    def __init__(self, max_entries: int = 128, max_model_sets: int = 8):
         self._cache = ResultCache(max_entries)
+        # fitted model sets keep their data and are slow to make: a bound of their own
+        self._model_cache = ResultCache(max_model_sets)
         self.compute_counts: Counter = Counter()
         self._count_lock = threading.Lock()
 
@@ -149,6 +155,7 @@ class Workbench:
             "residuals": sel + res,
             "variogram": sel + res + STAGE_FIELDS["variogram"],
             "lagcorr": sel + res + STAGE_FIELDS["lagcorr"],
+            "models": sel + strata,
         }
         return table[stage]
 
@@ -156,12 +163,13 @@ class Workbench:
         d = settings.to_dict()
         sub = {k: d[k] for k in self.stage_fields(stage, settings)} if stage in (
             "selection", "subject_fits", "cohort", "summaries", "residuals", "variogram",
-            "lagcorr") else d
+            "lagcorr", "models") else d
         digest = hashlib.sha1(json.dumps(sub, sort_keys=True, default=str).encode()).hexdigest()
         return (dataset.key, roles, stage, digest[:16], extra)
 
     def _memo(self, stage, dataset, roles, settings, compute, extra=()):
-        value, fresh = self._cache.get_or_compute(
+        cache = self._model_cache if stage == "models" else self._cache
+        value, fresh = cache.get_or_compute(
             self._key(stage, dataset, roles, settings, extra), compute)
         if fresh:
             with self._count_lock:
@@ -252,6 +260,17 @@ class Workbench:
             return Summaries(table, smooth, dropout_summary(cohort.panel, cohort.strata))
 
         return self._memo("summaries", dataset, roles, settings, compute)
+
+    def models(self, dataset: Dataset, roles: Roles, settings: Settings, choices=None):
+        """Candidate mixed models fitted to the cohort (refitted only when the data, the
+        cohort's settings or the :class:`~analysis.modelstage.ModelChoices` change)."""
+        from . import modelstage
+
+        choices = choices if choices is not None else modelstage.ModelChoices()
+        return self._memo("models", dataset, roles, settings,
+                          lambda: modelstage.fit_models(self.cohort(dataset, roles, settings),
+                                                        choices),
+                          extra=(choices.key(),))
 
     def explore(self, dataset: Dataset, roles: Roles, settings: Settings) -> Exploration:
         """Every exploratory stage (each one cached on its own)."""

@@ -1,0 +1,408 @@
+"""One self-contained HTML report of an analysis: choices, cohort, exploration, models.
+
+:func:`model_tables` turns a :class:`~analysis.modelling.ModelSet` into the
+display tables shown both in the dashboard's model section and in the report,
+so the two always say the same thing. :func:`build_report` writes the whole
+report as a single HTML string (inline CSS; figures, when given, are HTML
+snippets prepared by the caller, e.g. plotly with its JavaScript inlined, so
+the file works offline). Nothing here touches the disk.
+"""
+from __future__ import annotations
+
+import html
+import math
+from dataclasses import dataclass
+from datetime import datetime, timezone
+
+import numpy as np
+import pandas as pd
+
+from .effects import format_number
+
+TITLE = "cohortlens analysis report"
+CAUTIONS = (
+    "Exploratory research statistics, not for individual care decisions.",
+    "Use de-identified data under your institution's approvals.",
+)
+#: Why REML criteria compare only models sharing one mean model.
+REML_NOTE = ("REML likelihoods, AIC and BIC compare only models with the same fixed effects. "
+             "Every candidate here shares one mean model, so the comparison is of covariance "
+             "structures; to compare mean models, refit by ML.")
+ML_NOTE = ("ML likelihoods can compare models with different fixed effects, but ML variance "
+           "estimates are biased downwards in small samples; REML is preferred for reporting.")
+#: Why the likelihood-ratio p-values are not all plain chi-squared.
+MIXTURE_NOTE = ("When the simpler model sets a variance to zero, the edge of its allowed range, "
+                "the usual χ² reference is too conservative. Where a known result applies the "
+                "p-value uses a 50:50 mixture of χ² distributions; otherwise the plain χ² value "
+                "is shown and marked as an approximation. The reference of each test is listed.")
+PREFERRED_RULE = "Marked ★: lowest AIC among converged fits (a common-practice rule)."
+ASSOCIATION_NOTE = "This is an association in this cohort, not a causal effect."
+
+VARIANCE_LABELS = {
+    "intercept_var": "random intercept variance",
+    "slope_var": "random slope variance (per {unit}²)",
+    "intercept_slope_cov": "intercept–slope covariance (per {unit})",
+    "serial_var": "serial variance σ²",
+    "range": "serial range φ ({unit})",
+    "error_var": "measurement error variance τ² (nugget)",
+}
+
+
+# --------------------------------------------------------------------------- formatting
+def fmt(v, digits: int = 4) -> str:
+    """Significant-figure formatting; blanks for missing values."""
+    try:
+        f = float(v)
+    except (TypeError, ValueError):
+        return "" if v is None else str(v)
+    if not math.isfinite(f):
+        return "—"
+    return format_number(f, digits)
+
+
+def fmt_p(p) -> str:
+    """p-values: three significant figures, '< 0.0001' below that."""
+    try:
+        f = float(p)
+    except (TypeError, ValueError):
+        return ""
+    if not math.isfinite(f):
+        return "—"
+    return "< 0.0001" if f < 1e-4 else format_number(f, 3)
+
+
+def interval(lo, hi, digits: int = 4) -> str:
+    return f"{fmt(lo, digits)} to {fmt(hi, digits)}"
+
+
+# --------------------------------------------------------------------------- model tables
+@dataclass(frozen=True, eq=False)
+class ModelTables:
+    """Display tables (strings) of a model set, one model's details chosen.
+
+    Attributes
+    ----------
+    chosen : str or None
+        Name of the model whose fixed effects and variance parameters are shown.
+    comparison, lrt, fixed, variance, gee : DataFrame
+        Ready-to-show tables with human column names.
+    method_note : str
+        REML or ML caveat for the comparison.
+    warning : str or None
+        Caution from :func:`analysis.compare.comparison_warning`.
+    reference : str
+        Reference distribution of the fixed-effect tests.
+    """
+
+    chosen: str | None
+    comparison: pd.DataFrame
+    lrt: pd.DataFrame
+    fixed: pd.DataFrame
+    variance: pd.DataFrame
+    gee: pd.DataFrame
+    method_note: str
+    warning: str | None
+    reference: str
+
+
+def model_tables(models, chosen: str | None = None, *, unit: str = "time unit") -> ModelTables:
+    """Display tables of a :class:`~analysis.modelling.ModelSet`.
+
+    Parameters
+    ----------
+    models : ModelSet
+    chosen : str, optional
+        Model whose details are shown (default: the preferred model).
+    unit : str
+        Time unit for the variance parameter labels.
+    """
+    fits = models.fits
+    if chosen not in fits:
+        chosen = models.preferred if models.preferred in fits else next(iter(fits), None)
+    comp = models.comparison
+    comparison = pd.DataFrame({
+        "": ["★" if m == models.preferred else "" for m in comp["model"]],
+        "model": comp["model"],
+        "parameters": comp["n_params"].astype(int).astype(str),
+        "log-likelihood": comp["loglik"].map(lambda v: fmt(v, 6)),
+        "AIC": comp["aic"].map(lambda v: fmt(v, 6)),
+        "ΔAIC": comp["delta_aic"].map(lambda v: fmt(v, 3)),
+        "BIC": comp["bic"].map(lambda v: fmt(v, 6)),
+        "ΔBIC": comp["delta_bic"].map(lambda v: fmt(v, 3)),
+        "converged": comp["converged"].map(lambda b: "yes" if b else "NO"),
+        "boundary": comp["boundary"],
+    })
+    failed = [c for c in models.candidates if c.fit is None]
+    if failed:
+        comparison = pd.concat([comparison, pd.DataFrame({
+            "": "", "model": [c.name for c in failed], "parameters": "", "log-likelihood": "",
+            "AIC": "", "ΔAIC": "", "BIC": "", "ΔBIC": "", "converged": "not fitted",
+            "boundary": [c.error or "" for c in failed]})], ignore_index=True)
+
+    lrt = pd.DataFrame([{
+        "simpler model": t.null, "richer model": t.alt, "LR statistic": fmt(t.statistic, 4),
+        "extra parameters": str(t.df), "p": fmt_p(t.p), "p (plain χ²)": fmt_p(t.p_naive),
+        "reference": t.reference} for t in models.lrts],
+        columns=["simpler model", "richer model", "LR statistic", "extra parameters", "p",
+                 "p (plain χ²)", "reference"])
+
+    fixed = pd.DataFrame(columns=["term", "estimate", "model-based SE", "95% CI (model-based)",
+                                  "p (model-based)", "robust SE", "95% CI (robust)",
+                                  "p (robust)"])
+    variance = pd.DataFrame(columns=["parameter", "estimate", "95% CI", "note"])
+    reference = ""
+    if chosen is not None:
+        fit = fits[chosen]
+        ff = fit.fixed_frame()
+        fixed = pd.DataFrame({
+            "term": ff["term"], "estimate": ff["estimate"].map(fmt),
+            "model-based SE": ff["se"].map(fmt),
+            "95% CI (model-based)": [interval(a, b) for a, b in zip(ff["lo"], ff["hi"])],
+            "p (model-based)": ff["p"].map(fmt_p), "robust SE": ff["robust_se"].map(fmt),
+            "95% CI (robust)": [interval(a, b) for a, b in zip(ff["robust_lo"], ff["robust_hi"])],
+            "p (robust)": ff["robust_p"].map(fmt_p)})
+        vf = fit.variance_frame()
+        variance = pd.DataFrame({
+            "parameter": [VARIANCE_LABELS.get(p, p).format(unit=unit) for p in vf["parameter"]],
+            "estimate": vf["estimate"].map(fmt),
+            "95% CI": [interval(a, b) if np.isfinite([a, b]).all() else "not available"
+                       for a, b in zip(vf["lo"], vf["hi"])],
+            "note": vf["note"]})
+        reference = fit.reference
+
+    gee_rows = []
+    term = models.design.interaction_term
+    for g in models.gee:
+        if g.fit is None:
+            gee_rows.append({"fit": g.name, "term": "", "estimate": "", "robust SE": "",
+                             "95% CI": "", "p": "", "note": g.error or ""})
+            continue
+        ff = g.fit.fixed_frame()
+        rows = ff if term is None else ff[ff["term"].isin([term, "time"])]
+        for r in rows.to_dict("records"):
+            gee_rows.append({"fit": g.name, "term": r["term"], "estimate": fmt(r["estimate"]),
+                             "robust SE": fmt(r["robust_se"]), "95% CI": interval(r["lo"], r["hi"]),
+                             "p": fmt_p(r["p"]), "note": g.fit.message})
+    gee = pd.DataFrame(gee_rows, columns=["fit", "term", "estimate", "robust SE", "95% CI", "p",
+                                          "note"])
+    return ModelTables(chosen=chosen, comparison=comparison, lrt=lrt, fixed=fixed,
+                       variance=variance, gee=gee,
+                       method_note=REML_NOTE if models.method == "reml" else ML_NOTE,
+                       warning=comp.attrs.get("warning"), reference=reference)
+
+
+# --------------------------------------------------------------------------- HTML pieces
+CSS = """
+body{font-family:system-ui,-apple-system,"Segoe UI",Roboto,sans-serif;margin:2rem auto;
+max-width:72rem;padding:0 1.5rem;color:#1d2430;line-height:1.45}
+h1{font-size:1.8rem;margin-bottom:.2rem}h2{font-size:1.3rem;margin-top:2.2rem;
+border-bottom:2px solid #d4dae3;padding-bottom:.2rem}h3{font-size:1.05rem;margin-top:1.4rem}
+.meta{color:#4a5566;margin:.1rem 0}.caution{border-left:5px solid #b5651d;background:#fbf4ec;
+padding:.6rem 1rem;margin:1rem 0}.caution p{margin:.2rem 0;font-weight:600}
+table{border-collapse:collapse;margin:.6rem 0;font-size:.92rem}th,td{padding:.25rem .6rem;
+border-bottom:1px solid #e1e5eb;text-align:left;vertical-align:top}th{background:#f2f4f7}
+td.num{text-align:right;font-variant-numeric:tabular-nums}.note{color:#4a5566;font-size:.9rem}
+.effect{font-size:1.35rem;font-weight:600;margin:1rem 0 .4rem;padding:.8rem 1rem;
+background:#eef4fb;border-radius:6px}.effect-alt{font-size:1.05rem;margin:.3rem 1rem}
+.warn{color:#8a3a00}figure{margin:1rem 0}
+@media print{body{margin:0}h2{break-after:avoid}table{break-inside:avoid}}
+"""
+
+
+def _e(text) -> str:
+    return html.escape("" if text is None else str(text))
+
+
+def table_html(frame: pd.DataFrame, *, numeric=()) -> str:
+    """A plain HTML table of a frame's values (escaped; ``numeric`` columns right-aligned)."""
+    head = "".join(f"<th>{_e(c)}</th>" for c in frame.columns)
+    rows = []
+    for rec in frame.itertuples(index=False):
+        cells = []
+        for col, v in zip(frame.columns, rec):
+            cls = ' class="num"' if col in numeric else ""
+            cells.append(f"<td{cls}>{_e(fmt(v) if isinstance(v, (float, np.floating)) else v)}"
+                         "</td>")
+        rows.append("<tr>" + "".join(cells) + "</tr>")
+    return f"<table><thead><tr>{head}</tr></thead><tbody>{''.join(rows)}</tbody></table>"
+
+
+def _dict_table(d: dict, key="setting", value="value") -> str:
+    frame = pd.DataFrame({key: list(d), value: [_plain_value(v) for v in d.values()]})
+    return table_html(frame)
+
+
+def _plain_value(v) -> str:
+    if v is None:
+        return "—"
+    if isinstance(v, (list, tuple)):
+        return ", ".join(str(x) for x in v) if v else "—"
+    return str(v)
+
+
+def _p(text, cls=None) -> str:
+    c = f' class="{cls}"' if cls else ""
+    return f"<p{c}>{_e(text)}</p>"
+
+
+def lag_matrix_frame(lag) -> pd.DataFrame:
+    """Lag-correlation matrix as 'r (n pairs)' cells, windows labelled by their edges."""
+    w = lag.windows
+    labels = [f"[{fmt(a, 3)}, {fmt(b, 3)})" for a, b in zip(w["lo"], w["hi"])]
+    cells = [[(f"{fmt(r, 2)} (n={int(n)})" if np.isfinite(r) else f"— (n={int(n)})")
+              for r, n in zip(row_r, row_n)] for row_r, row_n in zip(lag.matrix, lag.pairs)]
+    frame = pd.DataFrame(cells, columns=labels)
+    frame.insert(0, "window", labels)
+    return frame
+
+
+# --------------------------------------------------------------------------- the report
+def build_report(cohort, exploration=None, models=None, *, data_name: str = "data",
+                 data_key: str = "", choices=None, figures=(), chosen: str | None = None,
+                 created: datetime | None = None) -> str:
+    """The whole analysis as one self-contained HTML document.
+
+    Parameters
+    ----------
+    cohort : PreparedCohort
+        Settings, roles, attrition, warnings and size.
+    exploration : Exploration, optional
+        From :meth:`analysis.pipeline.Workbench.explore`: stratum summary,
+        semivariogram and lag correlations (sections left out when None).
+    models : ModelSet, optional
+        Fitted candidate models (the model sections say "not fitted" when None).
+    data_name, data_key : str
+        Display name and content fingerprint of the data.
+    choices : ModelChoices, optional
+        The model options, listed with the settings.
+    figures : sequence of (caption, html) pairs
+        Figure snippets embedded as given (must not need the network).
+    chosen : str, optional
+        Model whose details are shown (default: the preferred model).
+    created : datetime, optional
+        Time stamp (default: now, UTC).
+
+    Returns
+    -------
+    str
+        A complete HTML document.
+    """
+    created = created or datetime.now(timezone.utc)
+    s = cohort.settings
+    unit = s.unit
+    parts = [f"<h1>{_e(TITLE)}</h1>",
+             _p(f"Data: {data_name} (content fingerprint {data_key or 'not given'})", "meta"),
+             _p(f"Created {created.strftime('%Y-%m-%d %H:%M %Z').strip()}", "meta"),
+             '<div class="caution">' + "".join(_p(c) for c in CAUTIONS) + "</div>"]
+
+    # -- choices
+    parts.append("<h2>Column roles and settings</h2>")
+    parts.append("<h3>Column roles</h3>" + _dict_table(cohort.roles.to_dict(), "role", "column"))
+    parts.append("<h3>Settings</h3>" + _dict_table(s.to_dict()))
+    if choices is not None:
+        parts.append("<h3>Model options</h3>" + _dict_table(choices.to_dict(), "option"))
+
+    # -- cohort
+    parts.append("<h2>Who is analysed</h2>")
+    parts.append(_p(f"{cohort.panel.n_subjects:,} subjects and {cohort.panel.n_obs:,} visits. "
+                    f"Time: {cohort.time_label}. Primary covariate: "
+                    f"{cohort.covariate or 'none'} (transform {s.transform}, centring "
+                    f"{s.center}, centre value {fmt(cohort.center_value)} on the transformed "
+                    "scale)."))
+    att = cohort.attrition.to_frame().rename(columns={
+        "step": "inclusion step", "subjects": "subjects kept", "observations": "visits kept",
+        "subjects_removed": "subjects removed", "observations_removed": "visits removed"})
+    parts.append(table_html(att, numeric=tuple(att.columns[1:])))
+    parts.append("<h3>Warnings</h3>")
+    parts.append("<ul>" + "".join(f"<li>{_e(w)}</li>" for w in cohort.warnings) + "</ul>"
+                 if cohort.warnings else _p("None.", "note"))
+
+    if exploration is not None:
+        parts.append(_exploration_html(exploration, unit))
+
+    for caption, snippet in figures:
+        parts.append(f"<figure>{snippet}<figcaption class=\"note\">{_e(caption)}</figcaption>"
+                     "</figure>")
+
+    parts.append(_models_html(models, chosen=chosen, unit=unit))
+    parts.append('<div class="caution">' + "".join(_p(c) for c in CAUTIONS) + "</div>")
+    body = "\n".join(parts)
+    return ("<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
+            f"<title>{_e(TITLE)} — {_e(data_name)}</title><style>{CSS}</style></head>"
+            f"<body>\n{body}\n</body></html>\n")
+
+
+def _exploration_html(ex, unit: str) -> str:
+    out = ["<h2>Groups of the baseline covariate</h2>"]
+    out.append(table_html(ex.summaries.stratum_table))
+    vg = ex.variogram
+    out.append("<h2>Semivariogram of the residuals</h2>")
+    out.append(_p(f"Residuals after removing: {ex.residuals.description}. "
+                  f"{vg.n_pairs:,} within-subject pairs up to a lag of {fmt(vg.max_lag, 3)} "
+                  f"{unit}; total residual (process) variance {fmt(vg.process_variance)}."))
+    bins = vg.bins.rename(columns={"lag_lo": f"lag from ({unit})", "lag_hi": f"lag to ({unit})",
+                                   "lag_mean": "mean lag", "gamma": "semivariance",
+                                   "pairs": "pairs"})
+    out.append(table_html(bins, numeric=tuple(bins.columns)))
+    r = vg.readout
+    sh = r.shares or {}
+
+    def pct(k):
+        v = sh.get(k)
+        return "—" if v is None or not np.isfinite(v) else f"{100 * v:.0f}%"
+
+    out.append(_p(f"Read-out: measurement error (nugget) {fmt(r.nugget)} ({pct('nugget')}), "
+                  f"serially correlated variation {fmt(r.serial)} ({pct('serial')}), stable "
+                  f"between-subject differences {fmt(r.between)} ({pct('between')})."))
+    out += [_p(n, "note") for n in vg.notes]
+    out.append(_p(vg.caveat, "note"))
+    lc = ex.lag_correlation
+    out.append("<h2>Correlation between a subject's visits</h2>")
+    out.append(_p(f"Residual correlation between time windows {fmt(lc.width, 3)} {unit} wide; "
+                  "each cell gives the correlation and the number of subjects seen in both "
+                  "windows. Blank (—) where too few subjects.", "note"))
+    out.append(table_html(lag_matrix_frame(lc)))
+    return "\n".join(out)
+
+
+def _models_html(models, *, chosen, unit) -> str:
+    out = ["<h2>Models</h2>"]
+    if models is None:
+        out.append(_p("No models were fitted for this report.", "note"))
+        return "\n".join(out)
+    t = model_tables(models, chosen, unit=unit)
+    out.append(_p(models.mean.describe("the primary covariate (x)")))
+    out.append(_p(f"{models.n_subjects:,} subjects and {models.n_obs:,} visits were used."))
+    out += [_p(n, "note") for n in models.notes]
+    if models.effect is not None:
+        e = models.effect
+        out.append("<h3>Does the covariate change the rate of change?</h3>")
+        out.append(f'<p class="effect">{_e(e.statement)}</p>')
+        out.append(f'<p class="effect-alt">{_e(e.robust_statement)}</p>')
+        out.append(_p(f"From {e.model}. p = {fmt_p(e.p)} (model-based), {fmt_p(e.robust_p)} "
+                      f"(robust). {ASSOCIATION_NOTE}", "note"))
+    else:
+        out.append(_p("No time × covariate term in the model (no numeric primary covariate), so "
+                      "there is no effect statement.", "note"))
+    out.append("<h3>Comparison of working covariance structures</h3>")
+    out.append(table_html(t.comparison))
+    out.append(_p(PREFERRED_RULE, "note"))
+    out.append(_p(t.method_note, "note"))
+    if t.warning:
+        out.append(_p("Caution: " + t.warning, "warn"))
+    out.append("<h3>Likelihood-ratio tests of nested structures</h3>")
+    out.append(table_html(t.lrt) if len(t.lrt) else _p("No nested pairs among the fits.", "note"))
+    out.append(_p(MIXTURE_NOTE, "note"))
+    if t.chosen is not None:
+        out.append(f"<h3>Fixed effects — {_e(t.chosen)}</h3>")
+        out.append(table_html(t.fixed))
+        out.append(_p(f"95% intervals and p-values: {t.reference}. Robust SEs are the sandwich "
+                      "estimator clustered by subject.", "note"))
+        out.append(f"<h3>Variance parameters — {_e(t.chosen)}</h3>")
+        out.append(table_html(t.variance))
+    if len(t.gee):
+        out.append("<h3>GEE robustness rows</h3>")
+        out.append(table_html(t.gee))
+        out.append(_p("GEE with robust (sandwich) SEs: the mean-model coefficients without "
+                      "trusting the working covariance.", "note"))
+    return "\n".join(out)
