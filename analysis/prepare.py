@@ -223,7 +223,8 @@ def select_cohort(df: pd.DataFrame, roles: Roles, settings: Settings) -> CohortS
         covariates = (*covariates, settings.stratify_by)
 
     work = pd.DataFrame({"_row": np.arange(len(df), dtype=np.int64)})
-    work["subject"] = _subject_labels(df[roles.subject])
+    sid, labels = _subject_codes(df[roles.subject])
+    work["subject"] = sid                       # rank of the subject's label; -1 = missing
     work["response"] = _numeric(df[roles.response], roles.response, "response")
     time_kind = _time_kind(df[roles.time])
     work["time_raw"] = _time_values(df[roles.time], roles.time, "time", time_kind)
@@ -238,12 +239,12 @@ def select_cohort(df: pd.DataFrame, roles: Roles, settings: Settings) -> CohortS
         work[f"cov:{c}"] = df[c].to_numpy()
 
     tracker = _Tracker(work["subject"].to_numpy())
-    keep = work["subject"].notna() & work["response"].notna() & work["time_raw"].notna()
+    keep = (work["subject"] >= 0) & work["response"].notna() & work["time_raw"].notna()
     work = work[keep.to_numpy()]
     tracker.record("Subject, time and response all present", work["subject"].to_numpy())
 
     if settings.origin == "event-date":
-        _check_constant_within_subject(work, "event", roles.event_date, "event date")
+        _check_constant_within_subject(work, "event", roles.event_date, "event date", labels)
         work = work[work["event"].notna().to_numpy()]
         tracker.record(f"Event date ({roles.event_date}) present", work["subject"].to_numpy())
 
@@ -258,28 +259,28 @@ def select_cohort(df: pd.DataFrame, roles: Roles, settings: Settings) -> CohortS
         tracker.record(f"Visits inside the time window [{_fmt(lo)}, {_fmt(hi)}] {settings.unit}",
                        work["subject"].to_numpy())
 
-    work = _handle_duplicates(work, roles, settings)
+    work = _handle_duplicates(work, roles, settings, labels)
     if settings.duplicates == "average":
         tracker.record("Repeated visits at the same time averaged", work["subject"].to_numpy())
 
     warnings: list[str] = []
     kinds = {c: ("numeric" if column_kind(df[c]) == "number" else "categorical") for c in covariates}
-    base = _baseline_values(work, covariates, kinds, warnings)
+    base = _baseline_values(work, covariates, kinds, warnings, labels)
 
     if primary and settings.require_covariate:
-        has = set(base.index[base[primary].notna()])
-        work = work[work["subject"].isin(has).to_numpy()]
+        has = base.index[base[primary].notna()].to_numpy()
+        work = work[np.isin(work["subject"].to_numpy(), has)]
         tracker.record(f"Baseline {primary} present", work["subject"].to_numpy())
 
-    n_visits = work.groupby("subject", sort=False).size()
-    enough = set(n_visits.index[n_visits >= settings.min_visits])
-    work = work[work["subject"].isin(enough).to_numpy()]
+    n_visits = np.bincount(work["subject"].to_numpy(), minlength=len(labels))
+    work = work[n_visits[work["subject"].to_numpy()] >= settings.min_visits]
     tracker.record(f"At least {settings.min_visits} visit{'s' if settings.min_visits > 1 else ''}",
                    work["subject"].to_numpy())
 
-    ids, codes = np.unique(work["subject"].to_numpy(), return_inverse=True)
+    ranks, codes = np.unique(work["subject"].to_numpy(), return_inverse=True)
     panel = Panel.from_codes(codes, work["time"].to_numpy(float), work["response"].to_numpy(float))
-    baseline = base.reindex(ids)
+    ids = labels[ranks]
+    baseline = base.reindex(ranks)
     baseline.index.name = None
     baseline.insert(0, "subject", ids)
     baseline = baseline.reset_index(drop=True)
@@ -337,12 +338,13 @@ class _Tracker:
     """Counts subjects and observations after each inclusion step."""
 
     def __init__(self, subjects_all: np.ndarray):
-        s = pd.Series(subjects_all)
-        self._steps = [AttritionStep("All rows read", int(s.dropna().nunique()), int(len(s)), 0, 0)]
+        """``subjects_all``: subject code per row (-1 = no subject)."""
+        n_sub = int(np.count_nonzero(np.bincount(subjects_all[subjects_all >= 0] + 0)))
+        self._steps = [AttritionStep("All rows read", n_sub, int(len(subjects_all)), 0, 0)]
 
     def record(self, name: str, subjects: np.ndarray) -> None:
         prev = self._steps[-1]
-        n_sub = int(pd.Series(subjects).nunique())
+        n_sub = int(np.count_nonzero(np.bincount(subjects))) if len(subjects) else 0
         n_obs = int(len(subjects))
         self._steps.append(AttritionStep(name, n_sub, n_obs, prev.subjects - n_sub,
                                          prev.observations - n_obs))
@@ -382,11 +384,36 @@ def _check_columns(df: pd.DataFrame, roles: Roles, settings: Settings) -> None:
                         column=roles.subject)
 
 
-def _subject_labels(s: pd.Series) -> pd.Series:
-    if pd.api.types.is_numeric_dtype(s) and not pd.api.types.is_bool_dtype(s):
-        return s.astype(float).map(lambda v: v if np.isnan(v) else (int(v) if v == int(v) else v)) \
-            .astype(object)
-    return s.astype("string").str.strip().replace("", pd.NA).astype(object).where(s.notna(), None)
+def _subject_codes(s: pd.Series) -> tuple[np.ndarray, np.ndarray]:
+    """(code per row, distinct labels in sorted order): code = the label's rank, -1 if missing.
+
+    Labels are the stripped text (empty = missing), or numbers with whole values shown as
+    integers. The cleaning runs on the distinct raw values only, so it costs little on long
+    tables; raw values that clean to the same label (e.g. 'A' and 'A ') share one code.
+    """
+    numeric = pd.api.types.is_numeric_dtype(s) and not pd.api.types.is_bool_dtype(s)
+    # factorize plain arrays: uniques come back as an array, without building a pandas Index
+    raw = s.to_numpy(dtype=float) if numeric else s.to_numpy(dtype=object, na_value=None)
+    raw_codes, raw_uniq = pd.factorize(raw, use_na_sentinel=True)
+    if numeric:
+        v = np.asarray(raw_uniq, dtype=float)
+        clean = pd.Series([int(x) if x == int(x) else float(x) for x in v], dtype=object)
+    else:
+        text = pd.Series(raw_uniq, dtype=object).astype("string").str.strip()
+        clean = text.mask(text == "").astype(object).where(text.notna() & (text != ""), None)
+    clean_codes, clean_uniq = pd.factorize(clean.to_numpy(dtype=object), use_na_sentinel=True)
+    uniq = list(clean_uniq)
+    if all(isinstance(v, str) for v in uniq):
+        order = np.argsort(np.asarray(uniq, dtype=str), kind="stable")
+    else:
+        order = np.asarray(sorted(range(len(uniq)), key=lambda i: _sort_key(uniq[i])), dtype=np.int64)
+    rank = np.empty(len(uniq), dtype=np.int64)
+    rank[order] = np.arange(len(order))
+    per_raw = np.where(clean_codes >= 0, rank[np.maximum(clean_codes, 0)], -1)
+    rows = np.where(raw_codes >= 0, per_raw[np.maximum(raw_codes, 0)], -1).astype(np.int64)
+    labels = np.empty(len(order), dtype=object)
+    labels[:] = [uniq[i] for i in order]
+    return rows, labels
 
 
 def _numeric(s: pd.Series, column: str, role: str) -> pd.Series:
@@ -440,14 +467,15 @@ def _time_values(s: pd.Series, column: str, role: str, kind: str) -> pd.Series:
     return parsed
 
 
-def _check_constant_within_subject(work: pd.DataFrame, col: str, column: str, role: str) -> None:
-    n = work.groupby("subject", sort=False)[col].nunique(dropna=True)
+def _check_constant_within_subject(work: pd.DataFrame, col: str, column: str, role: str,
+                                   labels: np.ndarray) -> None:
+    n = work.groupby("subject", sort=True)[col].nunique(dropna=True)
     varying = n.index[n > 1]
     if len(varying):
         first = work[work["subject"].isin(varying[:1])]
         raise DataError(
             f"column '{column}' ({role}) must be the same on every row of a subject; it varies for "
-            f"{len(varying)} subject(s), e.g. {', '.join(map(str, varying[:3]))} "
+            f"{len(varying)} subject(s), e.g. {', '.join(map(str, labels[varying[:3]]))} "
             f"({row_list(first['_row'].to_numpy())})",
             column=column, positions=first["_row"].to_numpy()[:20])
 
@@ -465,13 +493,20 @@ def _anchor(work: pd.DataFrame, settings: Settings, kind: str) -> np.ndarray:
     return delta.to_numpy(float)
 
 
-def _handle_duplicates(work: pd.DataFrame, roles: Roles, settings: Settings) -> pd.DataFrame:
-    dup = work.duplicated(["subject", "time"], keep=False)
-    if not dup.any():
+def _handle_duplicates(work: pd.DataFrame, roles: Roles, settings: Settings,
+                       labels: np.ndarray) -> pd.DataFrame:
+    sid, t = work["subject"].to_numpy(), work["time"].to_numpy(float)
+    order = np.lexsort((t, sid))
+    same = (np.diff(sid[order]) == 0) & (np.diff(t[order]) == 0)
+    if not same.any():
         return work
+    flag = np.zeros(len(work), dtype=bool)
+    flag[order[1:][same]] = True
+    flag[order[:-1][same]] = True
+    dup = pd.Series(flag, index=work.index)
     if settings.duplicates == "reject":
         rows = work.loc[dup, "_row"].to_numpy()
-        first = work.loc[dup, "subject"].iloc[0]
+        first = labels[work.loc[dup, "subject"].iloc[0]]
         raise DataError(
             f"{int(dup.sum())} rows repeat a (subject, time) pair already present, e.g. subject "
             f"{first} ({row_list(rows)}); remove them, or choose duplicates 'average' to use the "
@@ -481,11 +516,12 @@ def _handle_duplicates(work: pd.DataFrame, roles: Roles, settings: Settings) -> 
     return work.groupby(["subject", "time"], sort=False, as_index=False).agg(agg)
 
 
-def _baseline_values(work: pd.DataFrame, covariates, kinds, warnings: list) -> pd.DataFrame:
-    """First non-missing value in time order per subject; warn when a covariate varies."""
-    ordered = work.sort_values(["subject", "time"], kind="stable")
-    grouped = ordered.groupby("subject", sort=True)
-    out = pd.DataFrame(index=pd.Index(sorted(ordered["subject"].unique(), key=_sort_key)))
+def _baseline_values(work: pd.DataFrame, covariates, kinds, warnings: list,
+                     labels: np.ndarray) -> pd.DataFrame:
+    """First non-missing value in time order per subject (indexed by subject code); warn when
+    a covariate varies."""
+    ordered = work.iloc[np.lexsort((work["time"].to_numpy(), work["subject"].to_numpy()))]
+    out = pd.DataFrame(index=pd.Index(np.unique(ordered["subject"].to_numpy())))
     for c in covariates:
         col = f"cov:{c}"
         values = ordered[col]
@@ -500,8 +536,7 @@ def _baseline_values(work: pd.DataFrame, covariates, kinds, warnings: list) -> p
         if len(varying):
             warnings.append(
                 f"baseline covariate '{c}' changes within {len(varying)} subject(s) "
-                f"(e.g. {', '.join(map(str, varying[:3]))}); the first visit's value is used")
-    del grouped
+                f"(e.g. {', '.join(map(str, labels[varying[:3]]))}); the first visit's value is used")
     return out
 
 

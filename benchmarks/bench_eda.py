@@ -7,10 +7,9 @@ Prints wall times and ratios measured in this run (target: fast path >= 50x the
 reference), the pair-enumeration step on its own, and time and peak memory of the
 fast path on the large cohort. Nothing here asserts a time.
 
-The fast path is ``analysis.pipeline.explore`` (per-subject OLS lines, detrended
-residuals, semivariogram, lag correlation, strata) when every stage module is
-present; otherwise the components that exist are called directly and a
-vectorised stand-in is used for a missing one (which is printed).
+The fast path is ``analysis.pipeline.explore`` (validation and cohort selection,
+per-subject OLS lines, detrended residuals, semivariogram, lag correlation, strata
+and their summaries).
 
 The reference does the same jobs the obvious way: pandas ``groupby().apply`` with
 ``np.polyfit`` per subject for the lines, a global straight-line detrend, a
@@ -32,8 +31,9 @@ import warnings
 import numpy as np
 import pandas as pd
 
-from analysis.lagcorr import default_lag_width, lag_correlation
+from analysis.lagcorr import default_lag_width
 from analysis.pairs import within_pair_rows
+from analysis.pipeline import explore
 from analysis.panel import Panel
 from analysis.settings import Roles, Settings
 from analysis.variogram import semivariogram
@@ -47,7 +47,7 @@ def simulate(n_subjects: int, seed: int = 0) -> pd.DataFrame:
     rng = np.random.default_rng(seed)
     visits = rng.integers(1, 13, n_subjects)
     subj = np.repeat(np.arange(n_subjects), visits)
-    months = rng.uniform(0, 60, subj.size).round(2)
+    months = rng.uniform(0, 60, subj.size)          # continuous: no repeated (subject, time)
     age = rng.normal(45, 12, n_subjects).round(0)
     slope = -0.05 - 0.004 * (age - 45) + rng.normal(0, 0.05, n_subjects)
     level = 55 + rng.normal(0, 9, n_subjects)
@@ -58,47 +58,8 @@ def simulate(n_subjects: int, seed: int = 0) -> pd.DataFrame:
 
 # -- fast path ------------------------------------------------------------------
 def fast_path(df: pd.DataFrame):
-    try:
-        from analysis.pipeline import explore
-        import analysis.detrend, analysis.subject_fits, analysis.summaries  # noqa: F401
-    except ImportError as err:
-        return _components(df, missing=str(err))
+    """The full exploratory recompute the dashboard and CLI run (``analysis.pipeline.explore``)."""
     return explore(df, ROLES, SETTINGS), "analysis.pipeline.explore"
-
-
-def _components(df: pd.DataFrame, missing: str):
-    panel = Panel.from_arrays(df["subject"].to_numpy(), df["months"].to_numpy(float),
-                              df["egfr"].to_numpy(float))
-    try:
-        from analysis.subject_fits import fit_subject_lines
-        lines = fit_subject_lines(panel)
-    except ImportError:
-        lines = _standin_lines(panel)
-    try:
-        from analysis.detrend import detrend
-        resid = detrend(panel, method="linear").residual
-    except ImportError:
-        beta = np.polyfit(panel.time, panel.y, 1)
-        resid = panel.y - np.polyval(beta, panel.time)
-    rp = panel.with_y(resid)
-    sv = semivariogram(rp)
-    lc = lag_correlation(rp, width=default_lag_width(rp.time))
-    first = df.groupby("subject", sort=True)["donor_age"].first().to_numpy()
-    strata = np.searchsorted(np.quantile(first, [0.25, 0.5, 0.75]), first, side="right")
-    return (lines, sv, lc, strata), f"components (stand-in used: {missing})"
-
-
-def _standin_lines(panel: Panel):
-    """Per-subject OLS intercept and slope from reduceat sums (stand-in only)."""
-    s = panel.starts
-    n = panel.counts.astype(float)
-    st_ = np.add.reduceat(panel.time, s)
-    sy = np.add.reduceat(panel.y, s)
-    stt = np.add.reduceat(panel.time ** 2, s)
-    sty = np.add.reduceat(panel.time * panel.y, s)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        slope = (sty - st_ * sy / n) / (stt - st_ ** 2 / n)
-    return slope, sy / n - slope * st_ / n
 
 
 # -- reference ------------------------------------------------------------------
