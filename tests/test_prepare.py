@@ -212,3 +212,20 @@ def test_units_given_with_the_roles_label_the_response_and_covariate():
     other = prepare(df, roles, settings(covariate="centre"))
     assert other.covariate_unit == ""      # the unit belongs to the first listed covariate only
     assert Roles.from_dict(roles.to_dict()) == roles
+
+
+def test_subject_labels_are_trimmed_and_numeric_ids_stay_whole_numbers():
+    df = cohort_frame()
+    spaced = df.assign(pid=" " + df["pid"] + "  ")
+    a, b = select_cohort(df, ROLES, settings()), select_cohort(spaced, ROLES, settings())
+    # reference: the untouched table; surrounding spaces must not create new subjects
+    assert list(b.subject_ids) == list(a.subject_ids)
+    np.testing.assert_array_equal(b.panel.y, a.panel.y)
+    numeric = df.assign(pid=df["pid"].str[1:].astype(float) + 100)
+    c = select_cohort(numeric, ROLES, settings())
+    # reference: Python's own int() of the float ids, in numeric order
+    assert list(c.subject_ids) == sorted(int(v) for v in numeric["pid"].unique())
+    blank = df.copy()
+    blank.loc[[0, 1], "pid"] = "  "
+    d = select_cohort(blank, ROLES, settings())
+    assert d.attrition.steps[1].observations == len(df) - 2
