@@ -1,7 +1,8 @@
-"""Command line: ``cohortlens [serve] | summarize | fit``.
+"""Command line: ``cohortlens [serve] | summarize | fit | report``.
 
 ``serve`` (the default) opens the dashboard; ``summarize`` and ``fit`` run the
-same analysis layer headless and write JSON. Bad input exits with status 2 and
+same analysis layer headless and write JSON; ``report`` writes one
+self-contained HTML report. Bad input exits with status 2 and
 the same message the dashboard would show.
 """
 from __future__ import annotations
@@ -15,7 +16,7 @@ from analysis import options as opt
 from analysis.errors import CohortError
 from analysis.settings import Roles, Settings
 
-COMMANDS = ("serve", "summarize", "fit")
+COMMANDS = ("serve", "summarize", "fit", "report")
 
 # (flag, Settings field, type, choices, help)
 SETTING_FLAGS: tuple[tuple[str, str, object, tuple | None, str], ...] = (
@@ -80,6 +81,23 @@ def build_parser() -> argparse.ArgumentParser:
                      help="natural spline in time with this many df instead of a straight line")
     fit.add_argument("--no-gee", action="store_true", help="skip the GEE robustness rows")
     fit.add_argument("--json", required=True, metavar="OUT", help="output file ('-' = stdout)")
+
+    rep = sub.add_parser("report", help="write the exploration and the models as one HTML file")
+    rep.add_argument("data", help="CSV or Parquet file, or 'demo' for the bundled registry")
+    _add_roles(rep, required=False)
+    _add_settings(rep)
+    rep.add_argument("--models", default=None,
+                     help="comma-separated covariance structures to fit "
+                          "[intercept,intercept+slope,intercept+serial,intercept+slope+serial]")
+    rep.add_argument("--correlation", default="exponential", choices=("exponential", "gaussian"),
+                     help="serial correlation shape [exponential]")
+    rep.add_argument("--ml", action="store_true", help="maximum likelihood instead of REML")
+    rep.add_argument("--confounders", default="",
+                     help="comma-separated baseline covariates added to the mean model")
+    rep.add_argument("--time-spline-df", type=int, default=None,
+                     help="natural spline in time with this many df instead of a straight line")
+    rep.add_argument("--no-models", action="store_true", help="exploration only, fit no models")
+    rep.add_argument("--out", required=True, metavar="FILE.html", help="report file to write")
     return parser
 
 
@@ -236,6 +254,44 @@ def cmd_fit(args) -> int:
     return 0
 
 
+def cmd_report(args) -> int:
+    from analysis.loading import Dataset
+    from analysis.modelstage import ModelChoices
+    from analysis.pipeline import Workbench
+    from analysis.report import build_report
+    from app.models_view import report_figures
+
+    data, roles, settings = resolve(args)
+    choices = None
+    if not args.no_models:
+        kw = {"structures": _split(args.models)} if args.models else {}
+        choices = ModelChoices(**kw, correlation=args.correlation,
+                               method="ml" if args.ml else "reml",
+                               confounders=_split(args.confounders),
+                               time_spline_df=args.time_spline_df)
+    name = "demo registry" if data == "demo" or str(data).endswith("kidney_registry.csv") \
+        else Path(str(data)).name
+    dataset = Dataset.from_frame(_load(data), name=name)
+    wb = Workbench(max_entries=32, max_model_sets=1)
+    exploration = wb.explore(dataset, roles, settings)
+    models = wb.models(dataset, roles, settings, choices) if choices else None
+    text = build_report(exploration.cohort, exploration, models, data_name=dataset.name,
+                        data_key=dataset.key, choices=choices,
+                        figures=report_figures(exploration, models, unit=settings.unit,
+                                               response=roles.response,
+                                               response_unit=exploration.cohort.response_unit))
+    try:
+        Path(args.out).write_text(text, encoding="utf-8")
+    except OSError as exc:
+        raise CohortError(f"--out {args.out}: cannot write the report ({exc.strerror})") from None
+    print(f"wrote {args.out}", file=sys.stderr)
+    return 0
+
+
+def _split(text: str | None) -> tuple[str, ...]:
+    return tuple(t.strip() for t in (text or "").split(",") if t.strip())
+
+
 def cmd_serve(args) -> int:
     from app.server import run_server
 
@@ -251,7 +307,8 @@ def main(argv: list[str] | None = None) -> int:
         argv.insert(0, "serve")
     parser = build_parser()
     args = parser.parse_args(argv)
-    handler = {"serve": cmd_serve, "summarize": cmd_summarize, "fit": cmd_fit}[args.command]
+    handler = {"serve": cmd_serve, "summarize": cmd_summarize, "fit": cmd_fit,
+               "report": cmd_report}[args.command]
     try:
         return handler(args)
     except CohortError as exc:

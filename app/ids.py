@@ -92,3 +92,21 @@ VIEW_RENDERED = {v: f"{v}-rendered" for v in ("kept", "course", "spread", "pairs
                                               "rate", "follow", "link")}
 #: the SVG export button of a graph (pattern-matching id, index = graph id)
 EXPORT_SVG = "export-svg"
+
+# -- models section (candidate covariance structures, comparison, effect, report) ------
+MODELS_STRUCTURES = "models-structures"
+MODELS_CORRELATION = "models-correlation"
+MODELS_METHOD = "models-method"
+MODELS_CONFOUNDERS = "models-confounders"
+MODELS_SPLINE_DF = "models-spline-df"
+MODELS_FIT = "models-fit"
+MODELS_STATUS = "models-status"       # live note: choices invalid / results out of date
+MODELS_MSG = "models-msg"             # fitting errors
+MODELS_SUMMARY = "models-summary"     # effect statement, comparison, LRTs, GEE rows, notes
+MODELS_GRAPH = "models-graph"
+MODELS_CHOSEN = "models-chosen"       # model whose fixed effects / variance parameters show
+MODELS_DETAIL = "models-detail"
+MODELS_SNAPSHOT = "models-snapshot"   # store: {"key", "data", "roles", "settings", "choices"}
+MODELS_EXPORT = "models-export"
+MODELS_EXPORT_MSG = "models-export-msg"
+MODELS_DOWNLOAD = "models-download"

@@ -355,13 +355,9 @@ def follow_section():
 
 
 def models_section():
-    return section("section-models", "Models",
-                   None,
-                   html.Div(id=ids.MODELS_SECTION, className="cl-placeholder", children=[
-                       html.P("Fitting and comparing mixed models (working covariance, "
-                              "REML/ML, AIC/BIC, likelihood-ratio tests) and the time × "
-                              "covariate answer will appear here."),
-                   ]))
+    from .models_view import models_section as build  # the view module imports this one
+
+    return build()
 
 
 __all__ = ["build_layout", "GRAPH_CONFIG", "CAUTION", "MAX_DRAW"]

@@ -1,0 +1,430 @@
+"""Models section: choose candidate covariance structures, fit on request, compare, read the answer.
+
+Fitting is explicit (a button) because it can take seconds. The fitted set is
+cached in the app's :class:`~analysis.pipeline.Workbench` under the data, the
+cohort's settings and the :class:`~analysis.modelstage.ModelChoices`, so
+re-drawing, choosing another model's details or exporting the report never
+refits. The browser keeps only a small snapshot of what was fitted (keys and
+choices).
+"""
+from __future__ import annotations
+
+import hashlib
+import json
+import re
+
+import numpy as np
+import pandas as pd
+import plotly.graph_objects as go
+from dash import Input, Output, State, dash_table, dcc, html, no_update
+
+from analysis.errors import ModelError
+from analysis.modelstage import ModelChoices
+from analysis.pipeline import Workbench
+from analysis.report import (ASSOCIATION_NOTE, CAUTIONS, MIXTURE_NOTE, PREFERRED_RULE,
+                             build_report, model_tables)
+
+from . import ids
+from .layout import GRAPH_CONFIG, message, section
+from .session import AppContext, NeedsInput, attempt
+
+#: (structure, label) in the order offered; every structure includes measurement error
+STRUCTURE_CHOICES: tuple[tuple[str, str], ...] = (
+    ("intercept", "Random intercept"),
+    ("intercept+slope", "Random intercept + random slope"),
+    ("serial", "Serial correlation + measurement error"),
+    ("intercept+serial", "Random intercept + serial + measurement error"),
+    ("intercept+slope+serial", "Random intercept + slope + serial + measurement error"),
+    ("independence", "Independence (measurement error only)"),
+)
+START_STRUCTURES = ("intercept", "intercept+slope", "intercept+serial", "intercept+slope+serial")
+#: one line colour per model (cycled), distinct from the empirical points
+CURVE_COLOURS = ("#1b6a9e", "#c0621a", "#2c8a5a", "#8c4a9c", "#a33b4b", "#127f86")
+EMPIRICAL_COLOUR = "#2b2b2b"
+CURVE_POINTS = 160
+
+TABLE_STYLE = dict(
+    style_table={"overflowX": "auto"},
+    style_cell={"fontFamily": "inherit", "fontSize": "15px", "padding": "4px 10px",
+                "textAlign": "left", "whiteSpace": "normal", "height": "auto",
+                "maxWidth": "28rem"},
+    style_header={"fontWeight": "600"},
+    style_as_list_view=True,
+)
+
+
+# ------------------------------------------------------------------ layout
+def models_section() -> html.Section:
+    """Controls, the Fit button, the results area (filled after fitting) and the report export."""
+    controls = html.Div(className="cl-model-controls", children=[
+        html.Div(className="cl-field", children=[
+            html.Label("Working covariance structures to compare", className="cl-label"),
+            dcc.Checklist(id=ids.MODELS_STRUCTURES, className="cl-check",
+                          value=list(START_STRUCTURES),
+                          options=[{"label": lab, "value": s} for s, lab in STRUCTURE_CHOICES],
+                          labelStyle={"display": "block"}),
+        ]),
+        html.Div(className="cl-field", children=[
+            html.Label("Serial correlation shape", className="cl-label"),
+            dcc.RadioItems(id=ids.MODELS_CORRELATION, inline=True, className="cl-radio",
+                           value="exponential",
+                           options=[{"label": "exponential", "value": "exponential"},
+                                    {"label": "Gaussian", "value": "gaussian"}]),
+            html.Label("Estimation", className="cl-label"),
+            dcc.RadioItems(id=ids.MODELS_METHOD, inline=True, className="cl-radio", value="reml",
+                           options=[{"label": "REML", "value": "reml"},
+                                    {"label": "ML", "value": "ml"}]),
+            html.Small("REML for variance estimates; ML to compare different mean models.",
+                       className="cl-hint"),
+        ]),
+        html.Div(className="cl-field", children=[
+            html.Label("Adjust for (other baseline covariates)", className="cl-label"),
+            dcc.Dropdown(id=ids.MODELS_CONFOUNDERS, multi=True, options=[], value=[],
+                         placeholder="none"),
+            html.Label("Time as a natural spline (df)", className="cl-label"),
+            dcc.Input(id=ids.MODELS_SPLINE_DF, type="number", min=1, step=1, value=None,
+                      debounce=True, placeholder="straight line", className="cl-input"),
+        ]),
+    ])
+    buttons = html.Div(className="cl-view-controls", children=[
+        html.Button("Fit models", id=ids.MODELS_FIT, className="cl-btn"),
+        html.Button("Export report", id=ids.MODELS_EXPORT, className="cl-btn cl-btn-quiet",
+                    title="Download everything on this page as one HTML file"),
+        dcc.Download(id=ids.MODELS_DOWNLOAD),
+        html.Span(id=ids.MODELS_EXPORT_MSG, className="cl-hint"),
+    ])
+    results = dcc.Loading(type="circle", children=html.Div(children=[
+        message(ids.MODELS_MSG),
+        html.Div(id=ids.MODELS_SUMMARY),
+        html.Div(className="cl-graph", children=dcc.Graph(
+            id=ids.MODELS_GRAPH, config=GRAPH_CONFIG, style={"height": "460px"},
+            figure=placeholder_figure())),
+        html.Div(className="cl-view-controls", children=[
+            html.Label("Details of model", className="cl-label"),
+            dcc.Dropdown(id=ids.MODELS_CHOSEN, options=[], value=None, clearable=False,
+                         placeholder="fit models first", style={"minWidth": "24rem"}),
+        ]),
+        html.Div(id=ids.MODELS_DETAIL),
+    ]))
+    return section("section-models", "Models: does the covariate change the rate of change?",
+                   "Fit mixed models with a time × covariate term under several working "
+                   "covariance structures, compare them, and read the answer with model-based "
+                   "and robust standard errors. Fitting starts only when you press the button.",
+                   dcc.Store(id=ids.MODELS_SNAPSHOT),
+                   html.Div(id=ids.MODELS_SECTION, children=[
+                       controls, buttons,
+                       html.Div(id=ids.MODELS_STATUS, className="cl-status"),
+                       results]))
+
+
+# ------------------------------------------------------------------ pure helpers
+def choices_from_controls(structures, correlation, method, confounders, spline_df) -> ModelChoices:
+    """The model options from the control values (ModelError with a message when unusable)."""
+    if spline_df in ("", None):
+        spline_df = None
+    elif isinstance(spline_df, (int, float)) and float(spline_df).is_integer():
+        spline_df = int(spline_df)
+    return ModelChoices(structures=tuple(structures or ()), correlation=correlation or "exponential",
+                        method=method or "reml", confounders=tuple(confounders or ()),
+                        time_spline_df=spline_df)
+
+
+def confounder_options(roles: dict | None, settings: dict | None) -> list[dict]:
+    """Baseline covariates under the roles other than the primary one."""
+    covs = list(((roles or {}).get("roles") or {}).get("covariates") or [])
+    primary = (settings or {}).get("covariate") or (covs[0] if covs else None)
+    return [{"label": c, "value": c} for c in covs if c != primary]
+
+
+def snapshot_key(context: AppContext, data, roles, settings, choices: ModelChoices) -> str:
+    """What a fitted model set depends on: data key, roles, the cohort's settings and the choices."""
+    dataset, r, s = context.inputs(data, roles, settings)
+    d = s.to_dict()
+    sub = {k: d[k] for k in Workbench.stage_fields("models", s)}
+    raw = json.dumps([dataset.key, r.to_dict(), sub, choices.to_dict()], sort_keys=True,
+                     default=str)
+    return hashlib.sha1(raw.encode()).hexdigest()
+
+
+def fit_for_view(context: AppContext, data, roles, settings, choices: ModelChoices):
+    """(model set, cohort) through the app's Workbench cache."""
+    dataset, r, s = context.inputs(data, roles, settings)
+    return context.workbench.models(dataset, r, s, choices), context.workbench.cohort(dataset, r, s)
+
+
+def model_curves(models, max_lag: float, n: int = CURVE_POINTS) -> pd.DataFrame:
+    """Each fitted model's implied semivariogram on a lag grid: columns model, lag, gamma."""
+    lags = np.linspace(0.0, float(max_lag), n)
+    parts = [pd.DataFrame({"model": name, "lag": lags, "gamma": fit.variogram_curve(lags)})
+             for name, fit in models.fits.items()]
+    return (pd.concat(parts, ignore_index=True) if parts
+            else pd.DataFrame({"model": [], "lag": [], "gamma": []}))
+
+
+def variogram_overlay(bins: pd.DataFrame, curves: pd.DataFrame, *, unit: str, response: str,
+                      response_unit: str = "", preferred: str | None = None) -> go.Figure:
+    """Empirical semivariogram (points sized by pairs) with each model's fitted curve.
+
+    Parameters
+    ----------
+    bins : DataFrame
+        ``Semivariogram.to_frame()``: lag_mean, gamma, pairs (and bin edges).
+    curves : DataFrame
+        :func:`model_curves`: model, lag, gamma.
+    unit : str
+        Time unit (x axis).
+    response, response_unit : str
+        Response name and unit (the y axis is in squared response units).
+    preferred : str, optional
+        Model drawn thicker.
+    """
+    fig = go.Figure()
+    ok = bins[np.isfinite(bins["gamma"].to_numpy(float))]
+    pairs = ok["pairs"].to_numpy(float)
+    size = 7 + 11 * np.sqrt(pairs / pairs.max()) if len(pairs) and pairs.max() > 0 else 9
+    fig.add_trace(go.Scatter(
+        x=ok["lag_mean"], y=ok["gamma"], mode="markers", name="empirical (binned residual pairs)",
+        marker={"color": EMPIRICAL_COLOUR, "size": size, "symbol": "circle"},
+        customdata=np.column_stack([ok["pairs"], ok["lag_lo"], ok["lag_hi"]]) if len(ok) else None,
+        hovertemplate=(f"lag %{{customdata[1]:.3g}}–%{{customdata[2]:.3g}} {unit}<br>"
+                       "semivariance %{y:.4g}<br>%{customdata[0]} pairs<extra></extra>")))
+    for i, (name, part) in enumerate(curves.groupby("model", sort=False)):
+        best = name == preferred
+        fig.add_trace(go.Scatter(
+            x=part["lag"], y=part["gamma"], mode="lines",
+            name=f"{name} ★" if best else name,
+            line={"color": CURVE_COLOURS[i % len(CURVE_COLOURS)], "width": 4 if best else 2,
+                  "dash": "solid" if best else "dash"},
+            hovertemplate=f"{name}<br>lag %{{x:.3g}} {unit}<br>fitted %{{y:.4g}}<extra></extra>"))
+    fig.update_layout(
+        title={"text": "Fitted semivariograms against the empirical one", "x": 0.01},
+        xaxis_title=f"time apart ({unit})",
+        yaxis_title=(f"semivariance of {response} (({response_unit})²)" if response_unit
+                     else f"semivariance ({response} units²)"),
+        template="plotly_white", font={"size": 15}, margin={"l": 70, "r": 20, "t": 60, "b": 60},
+        legend={"orientation": "h", "yanchor": "top", "y": -0.18, "x": 0},
+        hovermode="closest")
+    fig.update_xaxes(rangemode="tozero")
+    fig.update_yaxes(rangemode="tozero")
+    return fig
+
+
+def placeholder_figure(text: str = "Press “Fit models” to draw the fitted semivariograms.") -> dict:
+    return {"data": [], "layout": {
+        "xaxis": {"visible": False}, "yaxis": {"visible": False},
+        "annotations": [{"text": text, "showarrow": False, "font": {"size": 16},
+                         "xref": "paper", "yref": "paper", "x": 0.5, "y": 0.5}]}}
+
+
+def datatable(frame: pd.DataFrame, **extra) -> dash_table.DataTable:
+    return dash_table.DataTable(data=frame.to_dict("records"),
+                                columns=[{"name": c or " ", "id": c} for c in frame.columns],
+                                **TABLE_STYLE, **extra)
+
+
+def effect_block(models) -> html.Div:
+    """The plain-language answer in large type with its caution."""
+    e = models.effect
+    if e is None:
+        return html.Div(className="cl-effect", children=[html.P(
+            "No time × covariate term was fitted (the primary covariate is not numeric), so "
+            "there is no statement about the rate of change.", className="cl-effect-main")])
+    return html.Div(className="cl-effect", role="status", children=[
+        html.P(e.statement, className="cl-effect-main",
+               style={"fontSize": "1.45rem", "fontWeight": 600, "lineHeight": 1.35}),
+        html.P(e.robust_statement, className="cl-effect-alt", style={"fontSize": "1.1rem"}),
+        html.P([html.Strong("Caution: "), ASSOCIATION_NOTE.rstrip(".") +
+                " — adjusted only for what is in the mean model. " + " ".join(CAUTIONS)],
+               className="cl-caveat"),
+        html.P(f"From {e.model}; p = {_p(e.p)} (model-based), {_p(e.robust_p)} (robust).",
+               className="cl-hint"),
+    ])
+
+
+def summary_children(models, *, unit: str) -> list:
+    """Effect statement, comparison with its notes, LRTs with the mixture note, GEE rows, notes."""
+    t = model_tables(models, unit=unit)
+    preferred_row = [{"if": {"filter_query": '{} = "★"'}, "fontWeight": 700,
+                      "backgroundColor": "#eef4fb"}]
+    out = [effect_block(models),
+           html.H3("Comparing working covariance structures"),
+           html.P(models.mean.describe(f"the primary covariate (x)") +
+                  f" {models.n_subjects:,} subjects, {models.n_obs:,} visits.", className="cl-note"),
+           datatable(t.comparison, style_data_conditional=preferred_row),
+           html.P(PREFERRED_RULE, className="cl-caveat"),
+           html.P(t.method_note, className="cl-caveat")]
+    if t.warning:
+        out.append(html.P("Caution: " + t.warning, className="cl-msg"))
+    out.append(html.H3("Likelihood-ratio tests of nested structures"))
+    out.append(datatable(t.lrt) if len(t.lrt) else
+               html.P("No nested pairs among the fitted models.", className="cl-note"))
+    out.append(html.P(MIXTURE_NOTE, className="cl-caveat"))
+    if len(t.gee):
+        out += [html.H3("GEE robustness rows (time and time × covariate)"), datatable(t.gee),
+                html.P("GEE estimates with robust (sandwich) SEs do not rely on the working "
+                       "covariance being right; similar numbers here support the mixed-model "
+                       "reading.", className="cl-caveat")]
+    if models.notes:
+        out += [html.H3("Notes"), html.Ul([html.Li(n) for n in models.notes])]
+    return out
+
+
+def detail_children(models, chosen: str | None, *, unit: str) -> list:
+    """Fixed effects (both SEs, both CIs and p-values, reference) and variance parameters."""
+    t = model_tables(models, chosen, unit=unit)
+    if t.chosen is None:
+        return [html.P("No model could be fitted.", className="cl-msg")]
+    return [html.H3(f"Fixed effects — {t.chosen}"), datatable(t.fixed),
+            html.P(f"Intervals and p-values: {t.reference}. Robust SEs: sandwich estimator "
+                   "clustered by subject.", className="cl-caveat"),
+            html.H3(f"Variance parameters — {t.chosen}"), datatable(t.variance)]
+
+
+def report_figures(exploration, models, *, unit: str, response: str,
+                   response_unit: str = "") -> list[tuple[str, str]]:
+    """(caption, self-contained HTML) figures for the report: the semivariogram overlay."""
+    import plotly.io as pio
+
+    vg = exploration.variogram
+    curves = (model_curves(models, vg.max_lag) if models is not None
+              else pd.DataFrame({"model": [], "lag": [], "gamma": []}))
+    fig = variogram_overlay(vg.to_frame(), curves, unit=unit, response=response,
+                            response_unit=response_unit,
+                            preferred=getattr(models, "preferred", None))
+    snippet = pio.to_html(fig, include_plotlyjs=True, full_html=False,
+                          config={"displaylogo": False}, default_height="460px")
+    return [("Empirical semivariogram of the residuals (points, sized by pair count) with the "
+             "semivariogram implied by each fitted model (lines; ★ = preferred).", snippet)]
+
+
+def report_text(context: AppContext, data, roles, settings, snapshot: dict | None,
+                chosen: str | None = None) -> tuple[str, str]:
+    """(file name, HTML) of the report for the current choices.
+
+    Models are included when the last fit (``snapshot``) was made for these
+    same data, roles and cohort settings; they come from the cache.
+    """
+    dataset, r, s = context.inputs(data, roles, settings)
+    wb = context.workbench
+    exploration = wb.explore(dataset, r, s)
+    cohort = exploration.cohort
+    models = choices = None
+    if snapshot and snapshot.get("choices") is not None:
+        choices = ModelChoices.from_dict(snapshot["choices"])
+        if snapshot.get("key") == snapshot_key(context, data, roles, settings, choices):
+            models = wb.models(dataset, r, s, choices)
+        else:
+            choices = None
+    figures = report_figures(exploration, models, unit=s.unit, response=r.response,
+                             response_unit=cohort.response_unit)
+    text = build_report(cohort, exploration, models, data_name=dataset.name,
+                        data_key=dataset.key, choices=choices, figures=figures, chosen=chosen)
+    stem = re.sub(r"[^A-Za-z0-9_-]+", "-", dataset.name.rsplit(".", 1)[0]).strip("-") or "data"
+    return f"cohortlens-report-{stem}.html", text
+
+
+def _p(v) -> str:
+    from analysis.report import fmt_p
+
+    return fmt_p(v)
+
+
+# ------------------------------------------------------------------ callbacks
+STORES = (State(ids.STORE_DATA, "data"), State(ids.STORE_ROLES, "data"),
+          State(ids.STORE_SETTINGS, "data"))
+CONTROLS = (ids.MODELS_STRUCTURES, ids.MODELS_CORRELATION, ids.MODELS_METHOD,
+            ids.MODELS_CONFOUNDERS, ids.MODELS_SPLINE_DF)
+
+
+def register(app, context: AppContext) -> None:
+    @app.callback(Output(ids.MODELS_CONFOUNDERS, "options"), Output(ids.MODELS_CONFOUNDERS, "value"),
+                  Input(ids.STORE_ROLES, "data"), Input(ids.STORE_SETTINGS, "data"),
+                  State(ids.MODELS_CONFOUNDERS, "value"))
+    def confounders(roles, settings, current):
+        opts = confounder_options(roles, settings)
+        allowed = {o["value"] for o in opts}
+        return opts, [c for c in (current or []) if c in allowed]
+
+    @app.callback(Output(ids.MODELS_STATUS, "children"),
+                  Input(ids.STORE_DATA, "data"), Input(ids.STORE_ROLES, "data"),
+                  Input(ids.STORE_SETTINGS, "data"),
+                  *[Input(c, "value") for c in CONTROLS], Input(ids.MODELS_SNAPSHOT, "data"))
+    def status(data, roles, settings, structures, correlation, method, conf, df, snapshot):
+        def check():
+            choices = choices_from_controls(structures, correlation, method, conf, df)
+            key = snapshot_key(context, data, roles, settings, choices)
+            if snapshot and snapshot.get("key") != key:
+                return ("The results below were fitted for earlier choices; press “Fit models” "
+                        "to refit.")
+            return ""
+
+        text, msg, err = attempt(check, what="checking the model choices")
+        if text is not None:
+            return text
+        return "" if isinstance(err, NeedsInput) else msg
+
+    @app.callback(
+        output=dict(msg=Output(ids.MODELS_MSG, "children"),
+                    summary=Output(ids.MODELS_SUMMARY, "children"),
+                    fig=Output(ids.MODELS_GRAPH, "figure"),
+                    chosen_opts=Output(ids.MODELS_CHOSEN, "options"),
+                    chosen=Output(ids.MODELS_CHOSEN, "value"),
+                    snapshot=Output(ids.MODELS_SNAPSHOT, "data")),
+        inputs=dict(n=Input(ids.MODELS_FIT, "n_clicks"), stores=STORES,
+                    controls=tuple(State(c, "value") for c in CONTROLS)),
+        prevent_initial_call=True)
+    def fit(n, stores, controls):
+        value, msg, _ = attempt(lambda: fit_outputs(context, *stores, *controls),
+                                what="fitting the models")
+        if value is not None:
+            return value
+        return dict(msg=msg, summary=[], fig=placeholder_figure("No models fitted."),
+                    chosen_opts=[], chosen=None, snapshot=None)
+
+    @app.callback(Output(ids.MODELS_DETAIL, "children"), Input(ids.MODELS_CHOSEN, "value"),
+                  Input(ids.MODELS_SNAPSHOT, "data"), prevent_initial_call=True)
+    def detail(chosen, snapshot):
+        if not snapshot:
+            return []
+
+        def make():
+            choices = ModelChoices.from_dict(snapshot["choices"])
+            models, cohort = fit_for_view(context, snapshot["data"], snapshot["roles"],
+                                          snapshot["settings"], choices)
+            return detail_children(models, chosen, unit=cohort.settings.unit)
+
+        value, msg, _ = attempt(make, what="showing the model details")
+        return value if value is not None else html.P(msg, className="cl-msg")
+
+    @app.callback(Output(ids.MODELS_DOWNLOAD, "data"), Output(ids.MODELS_EXPORT_MSG, "children"),
+                  Input(ids.MODELS_EXPORT, "n_clicks"), *STORES,
+                  State(ids.MODELS_SNAPSHOT, "data"), State(ids.MODELS_CHOSEN, "value"),
+                  prevent_initial_call=True)
+    def export(n, data, roles, settings, snapshot, chosen):
+        value, msg, _ = attempt(lambda: report_text(context, data, roles, settings, snapshot,
+                                                    chosen), what="writing the report")
+        if value is None:
+            return no_update, msg
+        name, text = value
+        return dict(content=text, filename=name, type="text/html"), f"Report ready: {name}"
+
+
+def fit_outputs(context: AppContext, data, roles, settings, structures, correlation, method,
+                confounders, spline_df) -> dict:
+    """Everything the Fit button shows (the fit callback's outputs)."""
+    choices = choices_from_controls(structures, correlation, method, confounders, spline_df)
+    models, cohort = fit_for_view(context, data, roles, settings, choices)
+    if not models.fits:
+        raise ModelError("none of the chosen models could be fitted: " + "; ".join(models.notes))
+    dataset, r, s = context.inputs(data, roles, settings)
+    vg = context.workbench.variogram(dataset, r, s)
+    fig = variogram_overlay(vg.to_frame(), model_curves(models, vg.max_lag), unit=s.unit,
+                            response=r.response, response_unit=cohort.response_unit,
+                            preferred=models.preferred)
+    names = list(models.fits)
+    snapshot = {"key": snapshot_key(context, data, roles, settings, choices), "data": data,
+                "roles": roles, "settings": settings, "choices": choices.to_dict()}
+    return dict(msg="", summary=summary_children(models, unit=s.unit), fig=fig,
+                chosen_opts=[{"label": f"{n} ★" if n == models.preferred else n, "value": n}
+                             for n in names],
+                chosen=models.preferred or names[0], snapshot=snapshot)
