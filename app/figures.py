@@ -311,6 +311,10 @@ def courses_figure(shown: pd.DataFrame, *, full: pd.DataFrame, look: CohortLook,
     hl = None if highlight_subject is None else str(highlight_subject)
     hover = (f"subject %{{customdata}}<br>%{{x:.1f}} {look.time_unit}: %{{y:.1f}}"
              f" {look.response_unit}<extra></extra>")
+    # WebGL traces are painted above SVG ones, so once the subject lines need WebGL,
+    # the mean and the highlighted subject use it too (and stay on top)
+    biggest = int(shown["stratum_label"].value_counts().max()) if len(shown) else 0
+    kind = go.Scattergl if biggest > GL_POINTS else go.Scatter
     for i, lab in enumerate(labels):
         row, col = i // ncol + 1, i % ncol + 1
         colour = look.colour(lab)
@@ -318,7 +322,6 @@ def courses_figure(shown: pd.DataFrame, *, full: pd.DataFrame, look: CohortLook,
         sub = shown[shown["stratum_label"] == lab]
         xs, ys, cd = _segments(sub["subject"].to_numpy(), sub["time"].to_numpy(),
                                sub["response"].to_numpy(), sub["subject"].to_numpy())
-        kind = go.Scattergl if len(sub) > GL_POINTS else go.Scatter
         fig.add_trace(kind(
             x=xs, y=ys, customdata=cd, mode="lines", name=look.group_title(lab),
             legendgroup=lab, showlegend=True,
@@ -328,14 +331,14 @@ def courses_figure(shown: pd.DataFrame, *, full: pd.DataFrame, look: CohortLook,
         if len(m):
             common = dict(x=m["time"].to_numpy(), y=m["response"].to_numpy(), mode="lines",
                           legendgroup=lab, showlegend=False, hoverinfo="skip")
-            fig.add_trace(go.Scatter(**common, line={"color": "rgba(255,255,255,0.9)",
-                                                     "width": 8}), row=row, col=col)
-            fig.add_trace(go.Scatter(
+            fig.add_trace(kind(**common, line={"color": "rgba(255,255,255,0.9)",
+                                               "width": 8}), row=row, col=col)
+            fig.add_trace(kind(
                 x=m["time"].to_numpy(), y=m["response"].to_numpy(), mode="lines+markers",
                 name=f"{look.group_title(lab)} mean", legendgroup=lab, showlegend=False,
                 customdata=m["visits"].to_numpy(),
                 line={"color": pal.with_alpha(colour, max(strength, 0.35)), "width": 4},
-                marker={"size": 6, "color": colour},
+                marker={"size": 6, "color": pal.with_alpha(colour, max(strength, 0.35))},
                 hovertemplate=(f"group mean {look.group_title(lab)}<br>%{{x:.1f}} "
                                f"{look.time_unit}: %{{y:.1f}} {look.response_unit}"
                                "<br>%{customdata} visits<extra></extra>")), row=row, col=col)
@@ -343,7 +346,7 @@ def courses_figure(shown: pd.DataFrame, *, full: pd.DataFrame, look: CohortLook,
             h = full[(full["subject"].astype(str) == hl) & (full["stratum_label"].astype(str) == lab)]
             if len(h):
                 h = h.sort_values("time")
-                fig.add_trace(go.Scatter(
+                fig.add_trace(kind(
                     x=h["time"].to_numpy(), y=h["response"].to_numpy(), mode="lines+markers",
                     customdata=np.full(len(h), hl, dtype=object), name=f"subject {hl}",
                     line={"color": pal.HIGHLIGHT_COLOR, "width": 3.5},
@@ -549,6 +552,9 @@ def intervals_figure(lines: pd.DataFrame, *, look: CohortLook, order: str = "slo
     df = interval_layout(lines, strata=look.strata, order=order)
     no_slope = int(len(lines) - len(df))
     many = len(df) > 300
+    # WebGL traces are painted above SVG ones: every trace here, the highlight included,
+    # uses the same kind so the drawing order is the trace order
+    kind = go.Scattergl if many else go.Scatter
     fig = go.Figure()
     labels = [s for s in look.strata if s in set(df["stratum_label"])] + sorted(
         set(df["stratum_label"]) - set(look.strata))
@@ -565,7 +571,7 @@ def intervals_figure(lines: pd.DataFrame, *, look: CohortLook, order: str = "slo
         if len(gi):
             xs, ys = _rows_to_segments(gi["slope_lo"].to_numpy(), gi["slope_hi"].to_numpy(),
                                        gi["pos"].to_numpy(), gi["pos"].to_numpy())
-            fig.add_trace(go.Scattergl(
+            fig.add_trace(kind(
                 x=xs, y=ys, mode="lines", legendgroup=lab, showlegend=False, hoverinfo="skip",
                 name=f"{lab} intervals",
                 line={"color": pal.with_alpha(colour, (0.45 if many else 0.7) * strength),
@@ -573,7 +579,6 @@ def intervals_figure(lines: pd.DataFrame, *, look: CohortLook, order: str = "slo
         custom = np.c_[g["subject"].astype(str).to_numpy(dtype=object),
                        g["slope_lo"].to_numpy(), g["slope_hi"].to_numpy(),
                        g["n"].to_numpy(), g["intercept"].to_numpy()]
-        kind = go.Scattergl if many else go.Scatter
         fig.add_trace(kind(
             x=g["slope"].to_numpy()[has], y=g["pos"].to_numpy()[has], customdata=custom[has],
             mode="markers", name=look.group_title(lab), legendgroup=lab,
@@ -595,10 +600,10 @@ def intervals_figure(lines: pd.DataFrame, *, look: CohortLook, order: str = "slo
         if len(h):
             r = h.iloc[0]
             lo, hi = (r["slope_lo"], r["slope_hi"]) if bool(r["has_interval"]) else (r["slope"],) * 2
-            fig.add_trace(go.Scatter(
+            fig.add_trace(kind(
                 x=[lo, hi], y=[r["pos"], r["pos"]], mode="lines", showlegend=False,
                 line={"color": pal.HIGHLIGHT_COLOR, "width": 4}, hoverinfo="skip"))
-            fig.add_trace(go.Scatter(
+            fig.add_trace(kind(
                 x=[r["slope"]], y=[r["pos"]], mode="markers+text",
                 customdata=[[str(r["subject"]), lo, hi, r["n"], r["intercept"]]],
                 name=f"subject {highlight_subject}", text=[f"  {highlight_subject}"],
@@ -622,7 +627,7 @@ def intervals_figure(lines: pd.DataFrame, *, look: CohortLook, order: str = "slo
     if no_slope:
         notes.append(f"{no_slope} without a slope (one visit or one time) not shown")
     fig.add_vline(x=0, line={"color": pal.REFERENCE_COLOR, "width": 1.5, "dash": "dot"})
-    _finish(fig, f"Each subject's slope with its 95% interval", subtitle=" · ".join(notes),
+    _finish(fig, "Each subject's slope with its 95% interval", subtitle=" · ".join(notes),
             bottom=105, left=150 if len(df) > MAX_SUBJECT_TICKS else 110)
     fig.update_xaxes(title_text=look.slope_label, range=xr)
     fig.update_yaxes(title_text=f"subjects, grouped by {look.stratifier}", autorange="reversed",
@@ -662,7 +667,7 @@ def slopes_by_stratum_figure(lines: pd.DataFrame, *, look: CohortLook, highlight
                 x=[look.group_title(lab)], y=h["slope"].to_numpy()[:1], mode="markers",
                 name=f"subject {highlight_subject}",
                 customdata=[[str(highlight_subject), lab]],
-                marker={"size": 16, "color": "rgba(0,0,0,0)", "symbol": "diamond-open",
+                marker={"size": 16, "color": pal.HIGHLIGHT_COLOR, "symbol": "diamond-open",
                         "line": {"width": 3, "color": pal.HIGHLIGHT_COLOR}},
                 hovertemplate="subject %{customdata[0]}<br>slope %{y:.3g}<extra></extra>"))
     yr, outside = _robust_range(df["slope"].to_numpy(float))
@@ -694,10 +699,10 @@ def slope_vs_covariate_figure(lines: pd.DataFrame, smooth: pd.DataFrame | None, 
                             title=f"Subject slope against {name}")
     log_axis = look.transform.startswith("log") and bool((df["covariate"] > 0).all())
     fig = go.Figure()
+    kind = go.Scattergl if len(df) > GL_POINTS else go.Scatter   # one kind: order = trace order
     for lab in _present_strata(look, df["stratum_label"]):
         g = df[df["stratum_label"].astype(str) == lab]
         strength = _strength(look, lab, highlight_stratum)
-        kind = go.Scattergl if len(g) > GL_POINTS else go.Scatter
         fig.add_trace(kind(
             x=g["covariate"].to_numpy(), y=g["slope"].to_numpy(), mode="markers",
             name=look.group_title(lab),
@@ -708,18 +713,18 @@ def slope_vs_covariate_figure(lines: pd.DataFrame, smooth: pd.DataFrame | None, 
             hovertemplate=(f"subject %{{customdata[0]}}<br>{name} %{{x:.3g}}"
                            f"<br>slope %{{y:.3g}} {look.per_time}<extra></extra>")))
     if smooth is not None and len(smooth):
-        fig.add_trace(go.Scatter(
+        fig.add_trace(kind(
             x=smooth["covariate"].to_numpy(), y=smooth["slope_smooth"].to_numpy(), mode="lines",
             name="lowess smooth, all subjects", line={"color": pal.HIGHLIGHT_COLOR, "width": 3.5},
             hovertemplate=f"{name} %{{x:.3g}}<br>smoothed slope %{{y:.3g}}<extra></extra>"))
     if highlight_subject is not None:
         h = df[df["subject"].astype(str) == str(highlight_subject)]
         if len(h):
-            fig.add_trace(go.Scatter(
+            fig.add_trace(kind(
                 x=h["covariate"].to_numpy(), y=h["slope"].to_numpy(), mode="markers",
                 customdata=[[str(highlight_subject), str(h["stratum_label"].iloc[0])]],
                 name=f"subject {highlight_subject}",
-                marker={"size": 18, "color": "rgba(0,0,0,0)", "symbol": "diamond-open",
+                marker={"size": 18, "color": pal.HIGHLIGHT_COLOR, "symbol": "diamond-open",
                         "line": {"width": 3, "color": pal.HIGHLIGHT_COLOR}},
                 hovertemplate="subject %{customdata[0]}<extra></extra>"))
     yr, outside = _robust_range(df["slope"].to_numpy(float))
@@ -853,9 +858,16 @@ def dropout_figure(dropout, *, look: CohortLook, highlight_stratum=None) -> go.F
         colours = [pal.REFERENCE_COLOR if lab == ALL_LABEL else look.colour(lab) for lab in labs]
         opac = [1.0 if lab == ALL_LABEL else _strength(look, lab, highlight_stratum)
                 for lab in labs]
+        # legend key in neutral grey (the points carry their group's colour)
+        fig.add_trace(go.Scatter(x=[None], y=[None], mode="markers", name=name,
+                                 legendgroup=group, hoverinfo="skip",
+                                 marker={"symbol": symbol, "size": 12,
+                                         "color": pal.REFERENCE_COLOR,
+                                         "line": {"width": 2.5, "color": pal.REFERENCE_COLOR}}),
+                      row=1, col=2)
         fig.add_trace(go.Scatter(
             x=g["mean"].to_numpy(), y=[ypos[lab] + shift for lab in labs], mode="markers",
-            name=name, legendgroup=group,
+            name=name, legendgroup=group, showlegend=False,
             marker={"symbol": symbol, "size": 12, "color": colours, "opacity": opac,
                     "line": {"width": 2.5, "color": colours}},
             error_x={"type": "data", "array": np.nan_to_num(half), "color": "#7b8590",

@@ -304,6 +304,12 @@ def test_many_subjects_stay_readable(res):
     ids = {s for t in fig.data if t.customdata is not None
            for s in np.asarray(t.customdata, dtype=object)[:, 0]}
     assert ids == set(big["subject"])
+    # WebGL is painted above SVG: the highlighted subject must be drawn with the same kind
+    sid = str(big["subject"].iloc[7])
+    fig = draw.intervals(big, cohort=res["cohort"], order="slope", highlight_subject=sid)
+    hl = next(t for t in fig.data if t.name == f"subject {sid}")
+    assert hl.type == fig.data[0].type == "scattergl"
+    assert list(hl.customdata[0])[0] == sid
 
 
 def test_bad_order_is_a_clear_error(res):
@@ -366,7 +372,7 @@ def test_dropout_step_curve_and_last_visit_means(res):
     # right panel: pandas groupby mean of the last response by (group, left before horizon)
     ref = last.assign(early=last["t"] < horizon).groupby(["lab", "early"])["y"].mean()
     for name, early in (("left before horizon", True), ("followed to horizon", False)):
-        tr = next(t for t in fig.data if t.name == name)
+        tr = next(t for t in fig.data if t.name == name and t.customdata is not None)
         for lab, m in zip(np.asarray(tr.customdata, dtype=object)[:, 0], tr.x):
             if lab in c.strata.labels:
                 assert m == pytest.approx(ref[(lab, early)])
