@@ -530,7 +530,10 @@ def interval_layout(lines: pd.DataFrame, *, strata: Sequence[str], order: str) -
     rank = {s: i for i, s in enumerate(strata)}
     df["_g"] = df["stratum_label"].map(rank).fillna(len(rank)).astype(int)
     key = df[ORDER_COLUMNS[order]]
-    df["_k"] = key.astype(str) if order == "subject" else key.astype(float)
+    numeric = pd.to_numeric(key, errors="coerce")
+    # a categorical covariate (or subject ids) sorts as text
+    df["_k"] = key.astype(str) if order == "subject" or numeric.isna().all() and key.notna().any() \
+        else numeric
     df = df.sort_values(["_g", "_k", "subject"], na_position="last", kind="stable")
     gap = max(2.0, 0.03 * len(df))
     df["pos"] = np.arange(len(df), dtype=float) + gap * (df["_g"].rank(method="dense").to_numpy() - 1)
@@ -691,11 +694,13 @@ def slope_vs_covariate_figure(lines: pd.DataFrame, smooth: pd.DataFrame | None, 
     The x axis is logarithmic when the covariate is analysed on a log scale
     (and every value is positive).
     """
-    df = lines[np.isfinite(lines["slope"].to_numpy(float))
-               & np.isfinite(lines["covariate"].to_numpy(float))]
     name = look.covariate or "covariate"
+    cov = pd.to_numeric(lines["covariate"], errors="coerce").to_numpy(float)
+    df = lines[np.isfinite(lines["slope"].to_numpy(float)) & np.isfinite(cov)].assign(
+        covariate=cov[np.isfinite(lines["slope"].to_numpy(float)) & np.isfinite(cov)])
     if df.empty:
-        return empty_figure(f"No subject has both a slope and a numeric value of {name}.",
+        return empty_figure(f"{name} has no numeric values here, so slopes cannot be plotted "
+                            "against it; the box plot compares its groups.",
                             title=f"Subject slope against {name}")
     log_axis = look.transform.startswith("log") and bool((df["covariate"] > 0).all())
     fig = go.Figure()

@@ -404,3 +404,17 @@ def test_group_colours_are_the_same_in_every_view_and_no_value_is_grey(loose):
 def test_empty_figure_carries_the_message():
     fig = draw.empty("Choose the response column.")
     assert fig.layout.annotations[0].text == "Choose the response column."
+
+
+def test_categorical_covariate_gives_a_message_not_a_traceback(res):
+    lines = res["lines"]
+    cat = lines.assign(covariate=np.where(lines["slope"] > 0, "rising", "falling"))
+    fig = draw.slope_vs_covariate(cat, None, cohort=res["cohort"])
+    assert "no numeric values" in fig.layout.annotations[0].text
+    fig = draw.intervals(cat, cohort=res["cohort"], order="covariate")
+    # reference: pandas — text keys sort alphabetically within each group
+    for t in fig.data:
+        if t.mode == "markers" and t.legendgroup in res["cohort"].strata.labels:
+            sids = np.asarray(t.customdata, dtype=object)[:, 0][np.argsort(np.asarray(t.y))]
+            keys = cat.set_index(cat["subject"].astype(str)).loc[sids, "covariate"]
+            assert keys.reset_index(drop=True).is_monotonic_increasing
