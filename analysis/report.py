@@ -40,8 +40,8 @@ ASSOCIATION_NOTE = "This is an association in this cohort, not a causal effect."
 
 VARIANCE_LABELS = {
     "intercept_var": "random intercept variance",
-    "slope_var": "random slope variance (per {unit}²)",
-    "intercept_slope_cov": "intercept–slope covariance (per {unit})",
+    "slope_var": "random slope variance (per {per}²)",
+    "intercept_slope_cov": "intercept–slope covariance (per {per})",
     "serial_var": "serial variance σ²",
     "range": "serial range φ ({unit})",
     "error_var": "measurement error variance τ² (nugget)",
@@ -68,7 +68,19 @@ def fmt_p(p) -> str:
         return ""
     if not math.isfinite(f):
         return "—"
-    return "< 0.0001" if f < 1e-4 else format_number(f, 3)
+    return "<\u00a00.0001" if f < 1e-4 else format_number(f, 3)
+
+
+def p_phrase(p) -> str:
+    """'p < 0.0001' or 'p = 0.0312'."""
+    text = fmt_p(p)
+    return f"p {text}" if text.startswith("<") else f"p = {text}"
+
+
+def short_reference(reference: str) -> str:
+    """The distribution part of an LRT reference text, e.g. '0.5·χ²_1 + 0.5·χ²_2'."""
+    head = reference.split(";")[0].strip()
+    return head + (" (approximate)" if "approximation" in reference else "")
 
 
 def interval(lo, hi, digits: int = 4) -> str:
@@ -86,6 +98,10 @@ class ModelTables:
         Name of the model whose fixed effects and variance parameters are shown.
     comparison, lrt, fixed, variance, gee : DataFrame
         Ready-to-show tables with human column names.
+    boundary_notes : tuple of str
+        "model: note" for estimates at the edge of the parameter space.
+    lrt_notes : tuple of str
+        The full wording of each distinct LRT reference distribution.
     method_note : str
         REML or ML caveat for the comparison.
     warning : str or None
@@ -100,6 +116,8 @@ class ModelTables:
     fixed: pd.DataFrame
     variance: pd.DataFrame
     gee: pd.DataFrame
+    boundary_notes: tuple
+    lrt_notes: tuple
     method_note: str
     warning: str | None
     reference: str
@@ -121,28 +139,30 @@ def model_tables(models, chosen: str | None = None, *, unit: str = "time unit") 
         chosen = models.preferred if models.preferred in fits else next(iter(fits), None)
     comp = models.comparison
     comparison = pd.DataFrame({
-        "": ["★" if m == models.preferred else "" for m in comp["model"]],
+        "preferred": ["★" if m == models.preferred else "" for m in comp["model"]],
         "model": comp["model"],
-        "parameters": comp["n_params"].astype(int).astype(str),
+        "params": comp["n_params"].astype(int).astype(str),
         "log-likelihood": comp["loglik"].map(lambda v: fmt(v, 6)),
         "AIC": comp["aic"].map(lambda v: fmt(v, 6)),
         "ΔAIC": comp["delta_aic"].map(lambda v: fmt(v, 3)),
         "BIC": comp["bic"].map(lambda v: fmt(v, 6)),
         "ΔBIC": comp["delta_bic"].map(lambda v: fmt(v, 3)),
         "converged": comp["converged"].map(lambda b: "yes" if b else "NO"),
-        "boundary": comp["boundary"],
+        "at boundary": comp["boundary"].map(lambda b: "yes" if b else ""),
     })
+    boundary_notes = tuple(f"{m}: {b}" for m, b in zip(comp["model"], comp["boundary"]) if b)
     failed = [c for c in models.candidates if c.fit is None]
     if failed:
         comparison = pd.concat([comparison, pd.DataFrame({
-            "": "", "model": [c.name for c in failed], "parameters": "", "log-likelihood": "",
+            "preferred": "", "model": [c.name for c in failed], "params": "", "log-likelihood": "",
             "AIC": "", "ΔAIC": "", "BIC": "", "ΔBIC": "", "converged": "not fitted",
-            "boundary": [c.error or "" for c in failed]})], ignore_index=True)
+            "at boundary": ""})], ignore_index=True)
+        boundary_notes += tuple(f"{c.name} not fitted: {c.error}" for c in failed)
 
     lrt = pd.DataFrame([{
         "simpler model": t.null, "richer model": t.alt, "LR statistic": fmt(t.statistic, 4),
         "extra parameters": str(t.df), "p": fmt_p(t.p), "p (plain χ²)": fmt_p(t.p_naive),
-        "reference": t.reference} for t in models.lrts],
+        "reference": short_reference(t.reference)} for t in models.lrts],
         columns=["simpler model", "richer model", "LR statistic", "extra parameters", "p",
                  "p (plain χ²)", "reference"])
 
@@ -153,6 +173,7 @@ def model_tables(models, chosen: str | None = None, *, unit: str = "time unit") 
     reference = ""
     if chosen is not None:
         fit = fits[chosen]
+        per = unit[:-1] if unit.endswith("s") else unit
         ff = fit.fixed_frame()
         fixed = pd.DataFrame({
             "term": ff["term"], "estimate": ff["estimate"].map(fmt),
@@ -163,7 +184,8 @@ def model_tables(models, chosen: str | None = None, *, unit: str = "time unit") 
             "p (robust)": ff["robust_p"].map(fmt_p)})
         vf = fit.variance_frame()
         variance = pd.DataFrame({
-            "parameter": [VARIANCE_LABELS.get(p, p).format(unit=unit) for p in vf["parameter"]],
+            "parameter": [VARIANCE_LABELS.get(p, p).format(unit=unit, per=per)
+                          for p in vf["parameter"]],
             "estimate": vf["estimate"].map(fmt),
             "95% CI": [interval(a, b) if np.isfinite([a, b]).all() else "not available"
                        for a, b in zip(vf["lo"], vf["hi"])],
@@ -185,8 +207,12 @@ def model_tables(models, chosen: str | None = None, *, unit: str = "time unit") 
                              "p": fmt_p(r["p"]), "note": g.fit.message})
     gee = pd.DataFrame(gee_rows, columns=["fit", "term", "estimate", "robust SE", "95% CI", "p",
                                           "note"])
+    lrt_notes = tuple(dict.fromkeys(
+        f"{short_reference(t.reference)}: {t.reference.split(';', 1)[1].strip()}"
+        for t in models.lrts if ";" in t.reference))
     return ModelTables(chosen=chosen, comparison=comparison, lrt=lrt, fixed=fixed,
-                       variance=variance, gee=gee,
+                       variance=variance, gee=gee, boundary_notes=boundary_notes,
+                       lrt_notes=lrt_notes,
                        method_note=REML_NOTE if models.method == "reml" else ML_NOTE,
                        warning=comp.attrs.get("warning"), reference=reference)
 
@@ -379,13 +405,14 @@ def _models_html(models, *, chosen, unit) -> str:
         out.append("<h3>Does the covariate change the rate of change?</h3>")
         out.append(f'<p class="effect">{_e(e.statement)}</p>')
         out.append(f'<p class="effect-alt">{_e(e.robust_statement)}</p>')
-        out.append(_p(f"From {e.model}. p = {fmt_p(e.p)} (model-based), {fmt_p(e.robust_p)} "
+        out.append(_p(f"From {e.model}: {p_phrase(e.p)} (model-based), {p_phrase(e.robust_p)} "
                       f"(robust). {ASSOCIATION_NOTE}", "note"))
     else:
         out.append(_p("No time × covariate term in the model (no numeric primary covariate), so "
                       "there is no effect statement.", "note"))
     out.append("<h3>Comparison of working covariance structures</h3>")
     out.append(table_html(t.comparison))
+    out += [_p("At the boundary — " + n, "note") for n in t.boundary_notes]
     out.append(_p(PREFERRED_RULE, "note"))
     out.append(_p(t.method_note, "note"))
     if t.warning:
@@ -393,6 +420,7 @@ def _models_html(models, *, chosen, unit) -> str:
     out.append("<h3>Likelihood-ratio tests of nested structures</h3>")
     out.append(table_html(t.lrt) if len(t.lrt) else _p("No nested pairs among the fits.", "note"))
     out.append(_p(MIXTURE_NOTE, "note"))
+    out += [_p(n, "note") for n in t.lrt_notes]
     if t.chosen is not None:
         out.append(f"<h3>Fixed effects — {_e(t.chosen)}</h3>")
         out.append(table_html(t.fixed))

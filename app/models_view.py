@@ -22,7 +22,7 @@ from analysis.errors import ModelError
 from analysis.modelstage import ModelChoices
 from analysis.pipeline import Workbench
 from analysis.report import (ASSOCIATION_NOTE, CAUTIONS, MIXTURE_NOTE, PREFERRED_RULE,
-                             build_report, model_tables)
+                             build_report, model_tables, p_phrase)
 
 from . import ids
 from .layout import GRAPH_CONFIG, message, section
@@ -43,6 +43,10 @@ CURVE_COLOURS = ("#1b6a9e", "#c0621a", "#2c8a5a", "#8c4a9c", "#a33b4b", "#127f86
 EMPIRICAL_COLOUR = "#2b2b2b"
 CURVE_POINTS = 160
 
+CONTROLS_GRID = {"display": "grid", "gap": "0.5rem 2.5rem", "alignItems": "start",
+                 "gridTemplateColumns": "repeat(auto-fit, minmax(18rem, 1fr))"}
+CHECK_COLUMN = {"display": "grid", "gridTemplateColumns": "1fr", "gap": "0.35rem"}
+
 TABLE_STYLE = dict(
     style_table={"overflowX": "auto"},
     style_cell={"fontFamily": "inherit", "fontSize": "15px", "padding": "4px 10px",
@@ -56,13 +60,13 @@ TABLE_STYLE = dict(
 # ------------------------------------------------------------------ layout
 def models_section() -> html.Section:
     """Controls, the Fit button, the results area (filled after fitting) and the report export."""
-    controls = html.Div(className="cl-model-controls", children=[
+    controls = html.Div(className="cl-model-controls", style=CONTROLS_GRID, children=[
         html.Div(className="cl-field", children=[
             html.Label("Working covariance structures to compare", className="cl-label"),
-            dcc.Checklist(id=ids.MODELS_STRUCTURES, className="cl-check",
+            dcc.Checklist(id=ids.MODELS_STRUCTURES,
                           value=list(START_STRUCTURES),
                           options=[{"label": lab, "value": s} for s, lab in STRUCTURE_CHOICES],
-                          labelStyle={"display": "block"}),
+                          inline=True, style=CHECK_COLUMN),
         ]),
         html.Div(className="cl-field", children=[
             html.Label("Serial correlation shape", className="cl-label"),
@@ -83,7 +87,8 @@ def models_section() -> html.Section:
                          placeholder="none"),
             html.Label("Time as a natural spline (df)", className="cl-label"),
             dcc.Input(id=ids.MODELS_SPLINE_DF, type="number", min=1, step=1, value=None,
-                      debounce=True, placeholder="straight line", className="cl-input"),
+                      debounce=True, placeholder="straight line", className="cl-input",
+                      style={"maxWidth": "12rem"}),
         ]),
     ])
     buttons = html.Div(className="cl-view-controls", children=[
@@ -120,6 +125,8 @@ def models_section() -> html.Section:
 # ------------------------------------------------------------------ pure helpers
 def choices_from_controls(structures, correlation, method, confounders, spline_df) -> ModelChoices:
     """The model options from the control values (ModelError with a message when unusable)."""
+    if not structures:
+        raise ModelError("Tick at least one covariance structure to fit.")
     if spline_df in ("", None):
         spline_df = None
     elif isinstance(spline_df, (int, float)) and float(spline_df).is_integer():
@@ -218,7 +225,7 @@ def placeholder_figure(text: str = "Press “Fit models” to draw the fitted se
 
 def datatable(frame: pd.DataFrame, **extra) -> dash_table.DataTable:
     return dash_table.DataTable(data=frame.to_dict("records"),
-                                columns=[{"name": c or " ", "id": c} for c in frame.columns],
+                                columns=[{"name": c, "id": c} for c in frame.columns],
                                 **TABLE_STYLE, **extra)
 
 
@@ -236,21 +243,22 @@ def effect_block(models) -> html.Div:
         html.P([html.Strong("Caution: "), ASSOCIATION_NOTE.rstrip(".") +
                 " — adjusted only for what is in the mean model. " + " ".join(CAUTIONS)],
                className="cl-caveat"),
-        html.P(f"From {e.model}; p = {_p(e.p)} (model-based), {_p(e.robust_p)} (robust).",
-               className="cl-hint"),
+        html.P(f"From {e.model}: {p_phrase(e.p)} (model-based), {p_phrase(e.robust_p)} "
+               "(robust).", className="cl-hint"),
     ])
 
 
 def summary_children(models, *, unit: str) -> list:
     """Effect statement, comparison with its notes, LRTs with the mixture note, GEE rows, notes."""
     t = model_tables(models, unit=unit)
-    preferred_row = [{"if": {"filter_query": '{} = "★"'}, "fontWeight": 700,
+    preferred_row = [{"if": {"filter_query": '{preferred} = "★"'}, "fontWeight": 700,
                       "backgroundColor": "#eef4fb"}]
     out = [effect_block(models),
            html.H3("Comparing working covariance structures"),
            html.P(models.mean.describe(f"the primary covariate (x)") +
                   f" {models.n_subjects:,} subjects, {models.n_obs:,} visits.", className="cl-note"),
            datatable(t.comparison, style_data_conditional=preferred_row),
+           *[html.P("At the boundary — " + n, className="cl-caveat") for n in t.boundary_notes],
            html.P(PREFERRED_RULE, className="cl-caveat"),
            html.P(t.method_note, className="cl-caveat")]
     if t.warning:
@@ -259,6 +267,7 @@ def summary_children(models, *, unit: str) -> list:
     out.append(datatable(t.lrt) if len(t.lrt) else
                html.P("No nested pairs among the fitted models.", className="cl-note"))
     out.append(html.P(MIXTURE_NOTE, className="cl-caveat"))
+    out += [html.P(n, className="cl-caveat") for n in t.lrt_notes]
     if len(t.gee):
         out += [html.H3("GEE robustness rows (time and time × covariate)"), datatable(t.gee),
                 html.P("GEE estimates with robust (sandwich) SEs do not rely on the working "
@@ -269,15 +278,26 @@ def summary_children(models, *, unit: str) -> list:
     return out
 
 
-def detail_children(models, chosen: str | None, *, unit: str) -> list:
+def detail_children(models, chosen: str | None, *, unit: str, x_note: str = "") -> list:
     """Fixed effects (both SEs, both CIs and p-values, reference) and variance parameters."""
     t = model_tables(models, chosen, unit=unit)
     if t.chosen is None:
         return [html.P("No model could be fitted.", className="cl-msg")]
     return [html.H3(f"Fixed effects — {t.chosen}"), datatable(t.fixed),
-            html.P(f"Intervals and p-values: {t.reference}. Robust SEs: sandwich estimator "
-                   "clustered by subject.", className="cl-caveat"),
+            html.P(f"{x_note} Time in {unit}. Intervals and p-values: {t.reference}. Robust SEs: "
+                   "sandwich estimator clustered by subject.".strip(), className="cl-caveat"),
             html.H3(f"Variance parameters — {t.chosen}"), datatable(t.variance)]
+
+
+def x_description(cohort) -> str:
+    """What the term x means, e.g. 'x = log2(urine_protein_ratio) minus 4.32 (its median).'"""
+    if cohort.covariate is None or cohort.x is None:
+        return ""
+    centre = cohort.settings.center
+    if cohort.center_value is None or centre == "none":
+        return f"x = {cohort.covariate_label} (not centred)."
+    how = f"its {centre}" if isinstance(centre, str) else "the chosen value"
+    return f"x = {cohort.covariate_label} minus {cohort.center_value:.4g} ({how})."
 
 
 def report_figures(exploration, models, *, unit: str, response: str,
@@ -323,12 +343,6 @@ def report_text(context: AppContext, data, roles, settings, snapshot: dict | Non
     return f"cohortlens-report-{stem}.html", text
 
 
-def _p(v) -> str:
-    from analysis.report import fmt_p
-
-    return fmt_p(v)
-
-
 # ------------------------------------------------------------------ callbacks
 STORES = (State(ids.STORE_DATA, "data"), State(ids.STORE_ROLES, "data"),
           State(ids.STORE_SETTINGS, "data"))
@@ -348,8 +362,10 @@ def register(app, context: AppContext) -> None:
     @app.callback(Output(ids.MODELS_STATUS, "children"),
                   Input(ids.STORE_DATA, "data"), Input(ids.STORE_ROLES, "data"),
                   Input(ids.STORE_SETTINGS, "data"),
-                  *[Input(c, "value") for c in CONTROLS], Input(ids.MODELS_SNAPSHOT, "data"))
-    def status(data, roles, settings, structures, correlation, method, conf, df, snapshot):
+                  *[Input(c, "value") for c in CONTROLS], Input(ids.MODELS_SNAPSHOT, "data"),
+                  State(ids.MODELS_MSG, "children"))
+    def status(data, roles, settings, structures, correlation, method, conf, df, snapshot,
+               shown):
         def check():
             choices = choices_from_controls(structures, correlation, method, conf, df)
             key = snapshot_key(context, data, roles, settings, choices)
@@ -361,7 +377,8 @@ def register(app, context: AppContext) -> None:
         text, msg, err = attempt(check, what="checking the model choices")
         if text is not None:
             return text
-        return "" if isinstance(err, NeedsInput) else msg
+        # a problem already shown by the last fit attempt is not repeated
+        return "" if isinstance(err, NeedsInput) or msg == shown else msg
 
     @app.callback(
         output=dict(msg=Output(ids.MODELS_MSG, "children"),
@@ -391,7 +408,8 @@ def register(app, context: AppContext) -> None:
             choices = ModelChoices.from_dict(snapshot["choices"])
             models, cohort = fit_for_view(context, snapshot["data"], snapshot["roles"],
                                           snapshot["settings"], choices)
-            return detail_children(models, chosen, unit=cohort.settings.unit)
+            return detail_children(models, chosen, unit=cohort.settings.unit,
+                                   x_note=x_description(cohort))
 
         value, msg, _ = attempt(make, what="showing the model details")
         return value if value is not None else html.P(msg, className="cl-msg")

@@ -64,7 +64,7 @@ def test_comparison_equals_direct_fit_candidates(fitted):
     # the starred row of the displayed table is the lowest AIC (brute force over the direct fits)
     table = mv.model_tables(models, unit="months").comparison
     best = min(direct.fits.items(), key=lambda kv: kv[1].aic)[0]
-    assert table.loc[table[""] == "★", "model"].tolist() == [best]
+    assert table.loc[table["preferred"] == "★", "model"].tolist() == [best]
 
 
 def _mixedlm_intercept_slope(panel, X):
@@ -151,7 +151,7 @@ def test_detail_and_report_use_the_cache(fitted):
 
 
 @pytest.mark.parametrize("controls, pattern", [
-    (([], "exponential", "reml", [], None), "no covariance structure chosen"),
+    (([], "exponential", "reml", [], None), "Tick at least one covariance structure"),
     ((["intercept"], "spherical", "reml", [], None), "correlation == 'spherical'"),
     ((["intercept"], "exponential", "reml", ["urine_protein_ratio"], None), "primary covariate"),
     ((["intercept"], "exponential", "reml", ["not_a_column"], None), "not one of the baseline"),
@@ -174,6 +174,10 @@ def test_model_choices_round_trip_and_keys():
     assert c.key() != ModelChoices().key()
     with pytest.raises(ModelError, match="unknown model option"):
         ModelChoices.from_dict({"structure": ["intercept"]})
+    with pytest.raises(ModelError, match="no covariance structure chosen"):
+        ModelChoices(structures=())
+    with pytest.raises(ModelError, match=r"structures \['slope'\] not known"):
+        ModelChoices(structures=("slope",))
 
 
 def test_confounder_options_exclude_the_primary_covariate():
