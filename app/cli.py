@@ -69,16 +69,7 @@ def build_parser() -> argparse.ArgumentParser:
     fit.add_argument("data", help="CSV or Parquet file, or 'demo' for the bundled registry")
     _add_roles(fit, required=False)
     _add_settings(fit)
-    fit.add_argument("--models", default=None,
-                     help="comma-separated covariance structures to fit "
-                          "[intercept,intercept+slope,intercept+serial,intercept+slope+serial]")
-    fit.add_argument("--correlation", default="exponential", choices=("exponential", "gaussian"),
-                     help="serial correlation shape [exponential]")
-    fit.add_argument("--ml", action="store_true", help="maximum likelihood instead of REML")
-    fit.add_argument("--confounders", default="",
-                     help="comma-separated baseline covariates added to the mean model")
-    fit.add_argument("--time-spline-df", type=int, default=None,
-                     help="natural spline in time with this many df instead of a straight line")
+    _add_model_options(fit)
     fit.add_argument("--no-gee", action="store_true", help="skip the GEE robustness rows")
     fit.add_argument("--json", required=True, metavar="OUT", help="output file ('-' = stdout)")
 
@@ -86,19 +77,23 @@ def build_parser() -> argparse.ArgumentParser:
     rep.add_argument("data", help="CSV or Parquet file, or 'demo' for the bundled registry")
     _add_roles(rep, required=False)
     _add_settings(rep)
-    rep.add_argument("--models", default=None,
-                     help="comma-separated covariance structures to fit "
-                          "[intercept,intercept+slope,intercept+serial,intercept+slope+serial]")
-    rep.add_argument("--correlation", default="exponential", choices=("exponential", "gaussian"),
-                     help="serial correlation shape [exponential]")
-    rep.add_argument("--ml", action="store_true", help="maximum likelihood instead of REML")
-    rep.add_argument("--confounders", default="",
-                     help="comma-separated baseline covariates added to the mean model")
-    rep.add_argument("--time-spline-df", type=int, default=None,
-                     help="natural spline in time with this many df instead of a straight line")
+    _add_model_options(rep)
     rep.add_argument("--no-models", action="store_true", help="exploration only, fit no models")
     rep.add_argument("--out", required=True, metavar="FILE.html", help="report file to write")
     return parser
+
+
+def _add_model_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--models", default=None,
+                   help="comma-separated covariance structures to fit "
+                        "[intercept,intercept+slope,intercept+serial,intercept+slope+serial]")
+    p.add_argument("--correlation", default="exponential", choices=("exponential", "gaussian"),
+                   help="serial correlation shape [exponential]")
+    p.add_argument("--ml", action="store_true", help="maximum likelihood instead of REML")
+    p.add_argument("--confounders", default="",
+                   help="comma-separated baseline covariates added to the mean model")
+    p.add_argument("--time-spline-df", type=int, default=None,
+                   help="natural spline in time with this many df instead of a straight line")
 
 
 def _add_roles(p: argparse.ArgumentParser, *, required: bool) -> None:
