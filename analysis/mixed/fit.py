@@ -3,6 +3,8 @@
 Fixed effects are profiled out (generalised least squares for each θ);
 the variance parameters are optimised on an unconstrained scale with
 L-BFGS-B and the analytic gradient of :mod:`analysis.mixed.likelihood`.
+Structures without a serial process are evaluated from per-subject sums
+(no n×n matrices); the others from dense per-visit-count stacks.
 """
 from __future__ import annotations
 
@@ -11,7 +13,7 @@ from scipy import linalg as sla
 from scipy import optimize
 
 from ..errors import ModelError
-from .likelihood import NotPositiveDefinite, build_groups, evaluate
+from .likelihood import NotPositiveDefinite, build_groups, build_sums, evaluate, subject_scores
 from .results import FitInternals, MixedFit
 from .structures import (CORRELATIONS, METHODS, PARAMETER_ORDER, components, natural_from_theta,
                          spec_for, theta_from_natural)
@@ -19,6 +21,10 @@ from .structures import (CORRELATIONS, METHODS, PARAMETER_ORDER, components, nat
 #: Largest move (on the log scale) of a log-variance away from its start value.
 _LOG_BOUND = 18.0
 _Z95 = 1.959963984540054
+#: L-BFGS-B's projected-gradient tolerance on the per-observation objective −ℓ/N. Near the
+#: optimum ℓ is only resolved to rounding (~1e-15 relative), so the line search cannot make
+#: progress much below this; the Newton polish (analytic gradient) finishes the job.
+_GTOL = 1e-7
 
 
 # ----------------------------------------------------------------------------- validation
@@ -172,18 +178,22 @@ def _optimise(groups, spec, theta0, correlation, method, maxiter, n_obs):
         return -ev.loglik * scale, -ev.grad * scale
 
     # L-BFGS-B, restarted (fresh curvature memory) while the gradient is not yet small:
-    # a wild trial step into a near-singular region can end a run early.
+    # a wild trial step into a near-singular region can end a run early. A restart that
+    # leaves the best point where it was ends the loop: the next one would start from
+    # the same θ and repeat the same (deterministic) run.
     theta, nit, res = theta0, 0, None
     bounds = _bounds(spec, theta0)
     for _ in range(6):
         res = optimize.minimize(fun, theta, jac=True, method="L-BFGS-B", bounds=bounds,
                                 options={"maxiter": max(int(maxiter) - nit, 1), "ftol": 1e-15,
-                                         "gtol": 1e-10, "maxcor": 20})
+                                         "gtol": _GTOL, "maxcor": 20})
         nit += int(res.nit)
         moved = np.max(np.abs(res.x - theta)) if res.nit else 0.0
-        theta = state["best"][1] if state["best"] is not None else res.x
-        g = _projected_gradient(fun(theta)[1], theta, bounds) / scale
-        if np.max(np.abs(g)) < 1e-4 or nit >= maxiter or moved < 1e-10:
+        start, theta = theta, state["best"][1] if state["best"] is not None else res.x
+        if np.array_equal(theta, start):
+            break
+        g = np.max(np.abs(_projected_gradient(fun(theta)[1], theta, bounds)))
+        if g <= _GTOL or g / scale < 1e-4 or nit >= maxiter or moved < 1e-10:
             break
     res.x = theta
     theta, H = _polish(fun, res.x)
@@ -377,7 +387,10 @@ def fit_mixed(panel, X, *, names, structure: str = "intercept+slope",
     X, names = _check_inputs(panel, X, names, spec, method, correlation, maxiter)
     tmax = float(np.max(np.abs(panel.time))) if panel.n_obs else 1.0
     time_scale = tmax if tmax > 0 else 1.0
-    groups = build_groups(panel, X, spec, time_scale)
+    if spec.serial:
+        data = build_groups(panel, X, spec, time_scale)
+    else:
+        data = build_sums(panel, X, spec, time_scale)
     nat0 = _start_natural(panel, X, spec, time_scale)
     if start:
         unknown = set(start) - set(spec.parameters)
@@ -389,19 +402,17 @@ def fit_mixed(panel, X, *, names, structure: str = "intercept+slope",
                 raise ModelError(f"start value {k} == {v}, must be > 0")
         nat0.update({k: float(v) for k, v in start.items()})
     theta0 = theta_from_natural(spec, nat0, time_scale)
-    theta, converged, nit, message, gnorm, H = _optimise(groups, spec, theta0, correlation, method,
+    theta, converged, nit, message, gnorm, H = _optimise(data, spec, theta0, correlation, method,
                                                       maxiter, panel.n_obs)
-    ev = evaluate(groups, spec, theta, correlation=correlation, method=method, gradient=False)
+    ev = evaluate(data, spec, theta, correlation=correlation, method=method, gradient=False)
     natural = natural_from_theta(spec, theta, time_scale)
     variance = {k: natural[k] for k in PARAMETER_ORDER if k in natural}
     ci = _variance_intervals(spec, theta, H, time_scale)
     variance_ci = {k: ci[k] for k in variance}
     cov_beta = np.linalg.inv(ev.M)
     cov_beta = 0.5 * (cov_beta + cov_beta.T)
-    meat = np.zeros_like(ev.M)
-    for g, Vinv, r in zip(groups, ev.Vinv, ev.resid):
-        u = np.einsum("mip,mi->mp", Vinv @ g.X, r)
-        meat += u.T @ u
+    u = subject_scores(data, spec, theta, ev)
+    meat = u.T @ u
     robust = cov_beta @ meat @ cov_beta
     robust = 0.5 * (robust + robust.T)
     n_params = X.shape[1] + spec.n_theta
@@ -409,7 +420,7 @@ def fit_mixed(panel, X, *, names, structure: str = "intercept+slope",
     if not converged:
         message = f"did not converge: {message} (largest gradient entry {gnorm:.2g})"
     internals = FitInternals(panel=panel, X=X, spec=spec, theta=theta, time_scale=time_scale,
-                             groups=groups)
+                             data=data)
     return MixedFit(
         structure=structure,
         correlation=correlation if spec.serial else None,

@@ -2,6 +2,7 @@
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from functools import cached_property
 
 import numpy as np
 import pandas as pd
@@ -17,14 +18,27 @@ REFERENCE_TEXT = "Wald tests against the standard normal (large-sample)"
 
 @dataclass(frozen=True, eq=False)
 class FitInternals:
-    """What a fit keeps to compute derived quantities (not part of the public contract)."""
+    """What a fit keeps to compute derived quantities (not part of the public contract).
+
+    ``data`` is what the likelihood was evaluated on: dense per-visit-count
+    groups, or per-subject sums (structures without a serial process), in
+    which case :attr:`groups` builds the dense stacks on first use.
+    """
 
     panel: object
     X: np.ndarray
     spec: StructureSpec
     theta: np.ndarray
     time_scale: float
-    groups: list
+    data: object
+
+    @cached_property
+    def groups(self) -> list:
+        """Dense per-visit-count groups (for subject-level quantities)."""
+        if isinstance(self.data, list):
+            return self.data
+        from .likelihood import build_groups
+        return build_groups(self.panel, self.X, self.spec, self.time_scale)
 
 
 @dataclass(frozen=True, eq=False)

@@ -138,6 +138,8 @@ class Components:
         τ².
     dG : list of ndarray (q, q)
         dG/dθ_k for the first ``len(dG)`` entries of θ (the G block).
+    L : ndarray (q, q)
+        Lower Cholesky factor of G (G = LLᵀ) taken from θ.
     """
 
     G: np.ndarray
@@ -145,6 +147,7 @@ class Components:
     range: float
     error_var: float
     dG: list
+    L: np.ndarray
 
 
 def components(spec: StructureSpec, theta: np.ndarray) -> Components:
@@ -154,7 +157,7 @@ def components(spec: StructureSpec, theta: np.ndarray) -> Components:
     k = 0
     dG = []
     if q == 0:
-        G = np.zeros((0, 0))
+        L = G = np.zeros((0, 0))
     elif q == 1:
         L = np.array([[np.exp(theta[0])]])
         G = L @ L.T
@@ -175,7 +178,7 @@ def components(spec: StructureSpec, theta: np.ndarray) -> Components:
     else:
         sv, phi = 0.0, 1.0
     tau2 = float(np.exp(theta[k]))
-    return Components(G, sv, phi, tau2, dG)
+    return Components(G, sv, phi, tau2, dG, L)
 
 
 def natural_from_theta(spec: StructureSpec, theta: np.ndarray, time_scale: float) -> dict:
