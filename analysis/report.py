@@ -230,7 +230,7 @@ border-bottom:1px solid #e1e5eb;text-align:left;vertical-align:top}th{background
 td.num{text-align:right;font-variant-numeric:tabular-nums}.note{color:#4a5566;font-size:.9rem}
 .effect{font-size:1.35rem;font-weight:600;margin:1rem 0 .4rem;padding:.8rem 1rem;
 background:#eef4fb;border-radius:6px}.effect-alt{font-size:1.05rem;margin:.3rem 1rem}
-.warn{color:#8a3a00}figure{margin:1rem 0}
+.warn{color:#8a3a00}figure{margin:1rem 0}.scroll{overflow-x:auto;max-width:100%}
 @media print{body{margin:0}h2{break-after:avoid}table{break-inside:avoid}}
 """
 
@@ -250,7 +250,8 @@ def table_html(frame: pd.DataFrame, *, numeric=()) -> str:
             cells.append(f"<td{cls}>{_e(fmt(v) if isinstance(v, (float, np.floating)) else v)}"
                          "</td>")
         rows.append("<tr>" + "".join(cells) + "</tr>")
-    return f"<table><thead><tr>{head}</tr></thead><tbody>{''.join(rows)}</tbody></table>"
+    return (f'<div class="scroll"><table><thead><tr>{head}</tr></thead>'
+            f"<tbody>{''.join(rows)}</tbody></table></div>")
 
 
 def _dict_table(d: dict, key="setting", value="value") -> str:
@@ -283,6 +284,17 @@ def lag_matrix_frame(lag) -> pd.DataFrame:
 
 
 # --------------------------------------------------------------------------- the report
+def x_description(cohort) -> str:
+    """What the model term x means, e.g. 'x = log2(urine_protein_ratio) minus 4.347 (its median).'"""
+    if cohort.covariate is None or cohort.x is None:
+        return ""
+    centre = cohort.settings.center
+    if cohort.center_value is None or centre == "none":
+        return f"x = {cohort.covariate_label} (not centred)."
+    how = f"its {centre}" if isinstance(centre, str) else "the chosen value"
+    return f"x = {cohort.covariate_label} minus {cohort.center_value:.4g} ({how})."
+
+
 def build_report(cohort, exploration=None, models=None, *, data_name: str = "data",
                  data_key: str = "", choices=None, figures=(), chosen: str | None = None,
                  created: datetime | None = None) -> str:
@@ -350,7 +362,7 @@ def build_report(cohort, exploration=None, models=None, *, data_name: str = "dat
         parts.append(f"<figure>{snippet}<figcaption class=\"note\">{_e(caption)}</figcaption>"
                      "</figure>")
 
-    parts.append(_models_html(models, chosen=chosen, unit=unit))
+    parts.append(_models_html(models, chosen=chosen, unit=unit, x_note=x_description(cohort)))
     parts.append('<div class="caution">' + "".join(_p(c) for c in CAUTIONS) + "</div>")
     body = "\n".join(parts)
     return ("<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
@@ -363,7 +375,7 @@ def _exploration_html(ex, unit: str) -> str:
     out.append(table_html(ex.summaries.stratum_table))
     vg = ex.variogram
     out.append("<h2>Semivariogram of the residuals</h2>")
-    out.append(_p(f"Residuals after removing: {ex.residuals.description}. "
+    out.append(_p(f"{ex.residuals.description.rstrip('.')}. "
                   f"{vg.n_pairs:,} within-subject pairs up to a lag of {fmt(vg.max_lag, 3)} "
                   f"{unit}; total residual (process) variance {fmt(vg.process_variance)}."))
     bins = vg.bins.rename(columns={"lag_lo": f"lag from ({unit})", "lag_hi": f"lag to ({unit})",
@@ -391,7 +403,7 @@ def _exploration_html(ex, unit: str) -> str:
     return "\n".join(out)
 
 
-def _models_html(models, *, chosen, unit) -> str:
+def _models_html(models, *, chosen, unit, x_note="") -> str:
     out = ["<h2>Models</h2>"]
     if models is None:
         out.append(_p("No models were fitted for this report.", "note"))
@@ -424,8 +436,9 @@ def _models_html(models, *, chosen, unit) -> str:
     if t.chosen is not None:
         out.append(f"<h3>Fixed effects — {_e(t.chosen)}</h3>")
         out.append(table_html(t.fixed))
-        out.append(_p(f"95% intervals and p-values: {t.reference}. Robust SEs are the sandwich "
-                      "estimator clustered by subject.", "note"))
+        out.append(_p(f"{x_note} Time in {unit}. 95% intervals and p-values: {t.reference}. "
+                      "Robust SEs are the sandwich estimator clustered by subject.".strip(),
+                      "note"))
         out.append(f"<h3>Variance parameters — {_e(t.chosen)}</h3>")
         out.append(table_html(t.variance))
     if len(t.gee):

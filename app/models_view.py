@@ -19,10 +19,11 @@ import plotly.graph_objects as go
 from dash import Input, Output, State, dash_table, dcc, html, no_update
 
 from analysis.errors import ModelError
+from analysis.loading import fingerprint
 from analysis.modelstage import ModelChoices
 from analysis.pipeline import Workbench
 from analysis.report import (ASSOCIATION_NOTE, CAUTIONS, MIXTURE_NOTE, PREFERRED_RULE,
-                             build_report, model_tables, p_phrase)
+                             build_report, model_tables, p_phrase, x_description)
 
 from . import ids
 from .layout import GRAPH_CONFIG, message, section
@@ -204,15 +205,16 @@ def variogram_overlay(bins: pd.DataFrame, curves: pd.DataFrame, *, unit: str, re
                   "dash": "solid" if best else "dash"},
             hovertemplate=f"{name}<br>lag %{{x:.3g}} {unit}<br>fitted %{{y:.4g}}<extra></extra>"))
     fig.update_layout(
-        title={"text": "Fitted semivariograms against the empirical one", "x": 0.01},
+        title={"text": f"{response}: fitted semivariograms against the empirical one",
+               "x": 0.01},
         xaxis_title=f"time apart ({unit})",
-        yaxis_title=(f"semivariance of {response} (({response_unit})²)" if response_unit
+        yaxis_title=(f"semivariance ({response_unit})²" if response_unit
                      else f"semivariance ({response} units²)"),
-        template="plotly_white", font={"size": 15}, margin={"l": 70, "r": 20, "t": 60, "b": 60},
+        template="plotly_white", font={"size": 15}, margin={"l": 80, "r": 20, "t": 60, "b": 60},
         legend={"orientation": "h", "yanchor": "top", "y": -0.18, "x": 0},
         hovermode="closest")
     fig.update_xaxes(rangemode="tozero")
-    fig.update_yaxes(rangemode="tozero")
+    fig.update_yaxes(rangemode="tozero", automargin=True)
     return fig
 
 
@@ -289,17 +291,6 @@ def detail_children(models, chosen: str | None, *, unit: str, x_note: str = "") 
             html.H3(f"Variance parameters — {t.chosen}"), datatable(t.variance)]
 
 
-def x_description(cohort) -> str:
-    """What the term x means, e.g. 'x = log2(urine_protein_ratio) minus 4.32 (its median).'"""
-    if cohort.covariate is None or cohort.x is None:
-        return ""
-    centre = cohort.settings.center
-    if cohort.center_value is None or centre == "none":
-        return f"x = {cohort.covariate_label} (not centred)."
-    how = f"its {centre}" if isinstance(centre, str) else "the chosen value"
-    return f"x = {cohort.covariate_label} minus {cohort.center_value:.4g} ({how})."
-
-
 def report_figures(exploration, models, *, unit: str, response: str,
                    response_unit: str = "") -> list[tuple[str, str]]:
     """(caption, self-contained HTML) figures for the report: the semivariogram overlay."""
@@ -338,7 +329,8 @@ def report_text(context: AppContext, data, roles, settings, snapshot: dict | Non
     figures = report_figures(exploration, models, unit=s.unit, response=r.response,
                              response_unit=cohort.response_unit)
     text = build_report(cohort, exploration, models, data_name=dataset.name,
-                        data_key=dataset.key, choices=choices, figures=figures, chosen=chosen)
+                        data_key=fingerprint(dataset.frame), choices=choices, figures=figures,
+                        chosen=chosen)
     stem = re.sub(r"[^A-Za-z0-9_-]+", "-", dataset.name.rsplit(".", 1)[0]).strip("-") or "data"
     return f"cohortlens-report-{stem}.html", text
 

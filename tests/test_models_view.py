@@ -127,7 +127,8 @@ def test_overlay_figure_curves_and_labels(fitted):
     ctx, stores, out, models, cohort = fitted
     fig = out["fig"]
     assert fig.layout.title.text and fig.layout.xaxis.title.text == "time apart (months)"
-    assert fig.layout.yaxis.title.text == "semivariance of egfr ((mL/min/1.73m²)²)"
+    assert fig.layout.yaxis.title.text == "semivariance (mL/min/1.73m²)²"
+    assert fig.layout.title.text.startswith("egfr: ")
     names = [t.name for t in fig.data]
     assert names[0].startswith("empirical") and len(names) == 1 + len(models.fits)
     fit = models.fits["intercept+slope (REML)"]
