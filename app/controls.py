@@ -187,8 +187,13 @@ def role_values(roles: Roles | None) -> dict:
             "response": roles.response, "covariates": list(roles.covariates)}
 
 
-def roles_from_controls(values: dict) -> tuple[Roles | None, dict[str, str]]:
-    """Roles from dropdown values, or None and a message beside each missing role."""
+def roles_from_controls(values: dict, *, known: Roles | None = None
+                        ) -> tuple[Roles | None, dict[str, str]]:
+    """Roles from dropdown values, or None and a message beside each missing role.
+
+    The dropdowns name columns only; units come from ``known`` (the start-up roles)
+    for the response and primary covariate when the same columns are chosen.
+    """
     messages = {}
     for r, word in (("subject", "the subject identifier"), ("time", "time or visit date"),
                     ("response", "the measured response")):
@@ -200,8 +205,14 @@ def roles_from_controls(values: dict) -> tuple[Roles | None, dict[str, str]]:
     if len(set(picked)) < 3:
         return None, {"response": "Subject, time and response must be three different columns."}
     covs = tuple(c for c in (values.get("covariates") or []) if c not in picked)
+    units = {}
+    if known is not None:
+        if known.response == values["response"]:
+            units["response_unit"] = known.response_unit
+        if covs and known.covariates and known.covariates[0] == covs[0]:
+            units["covariate_unit"] = known.covariate_unit
     return Roles(subject=values["subject"], time=values["time"], response=values["response"],
-                 covariates=covs, event_date=values.get("event_date") or None), {}
+                 covariates=covs, event_date=values.get("event_date") or None, **units), {}
 
 
 def keep_roles_that_fit(roles: Roles | None, columns) -> Roles | None:

@@ -54,6 +54,9 @@ class DataStore:
             raise DataError(
                 f"{name} has {frame.shape[0]:,} rows x {frame.shape[1]} columns; this server "
                 f"accepts at most {self.max_cells:,} cells per table (drop unused columns first)")
+        # rows are numbered from 0 in file order (messages count spreadsheet rows from it,
+        # and the selection step expects it); a filtered frame keeps its old labels otherwise
+        frame = frame.reset_index(drop=True)
         dataset = Dataset.from_frame(frame, name=name)
         with self._lock:
             if dataset.key in self._uploads:

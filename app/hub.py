@@ -47,6 +47,8 @@ def register(app, context: AppContext) -> None:
         roles={r: Output(ids.ROLE_INPUT[r], "value") for r in ids.ROLE_FIELDS},
         settings={k: Output(_SETTING_IDS[k], "value") for k in _SETTING_KEYS},
         view={k: Output(i, "value") for k, i in _VIEW_IDS.items()},
+        covariate_options={f: Output(ids.SETTING_INPUT[f], "options")
+                           for f in ("covariate", "stratify_by")},
         stratum=Output(ids.LINK_STRATA, "value"),
         subject=Output(ids.STORE_SUBJECT, "data"),
     )
@@ -76,6 +78,11 @@ def register(app, context: AppContext) -> None:
         trig = ctx.triggered_id
         now = dict(data=data, roles=roles, settings=settings, view=view, stratum=stratum,
                    subject=subject)
+        if (trig == ids.PAGE_URL and data is not None
+                and _same_query(search, _encode(context, now))):
+            # Location echoes every query this callback writes back as a new input:
+            # nothing to restore (re-setting every control would undo the user's change)
+            return out
         if trig is None or trig == ids.PAGE_URL:
             _from_url(context, search, out)
             return out
@@ -92,10 +99,12 @@ def register(app, context: AppContext) -> None:
             now["settings"] = out["settings"]
         elif trig in ids.ROLE_INPUT.values():
             _fit_covariate_choices(roles, settings, out, now)
+            opts = _covariate_options(roles.get("covariates"))
+            out["covariate_options"] = {"covariate": opts, "stratify_by": opts}
         elif trig in _CLICK_GRAPHS:
             picked = clicked_subject(clicks.get(trig))
-            if picked is None:
-                return out
+            if picked is None or not _analysed_subject(context, data, roles, settings, picked):
+                return out   # a click on a mean curve, a smooth or a band names no subject
             now["subject"] = out["subject"] = picked
         elif trig == ids.RATE_STRATA_GRAPH:
             label = clicked_stratum(stratum_click)
@@ -151,7 +160,7 @@ def _from_upload(context: AppContext, contents, filename, now: dict, out: dict) 
         out["upload_msg"] = f"Could not use {name}: {message}"
         return False
     current = now["roles"]
-    roles, _ = ctl.roles_from_controls(current)
+    roles, _ = ctl.roles_from_controls(current, known=context.default_roles)
     keep = ctl.keep_roles_that_fit(roles, dataset.frame.columns)
     _show_dataset(context, dataset.key, keep, out)
     out["upload_msg"] = ""
@@ -174,6 +183,10 @@ def _show_dataset(context: AppContext, key: str, roles, out: dict) -> None:
                         f"{dataset.frame.shape[1]} columns, {n_subjects} subjects")
     out["role_options"] = {r: options for r in ids.ROLE_FIELDS}
     out["roles"] = ctl.role_values(roles)
+    # with their values in the same response, so the dropdowns never drop a choice
+    # that their options do not list yet
+    opts = _covariate_options(out["roles"]["covariates"])
+    out["covariate_options"] = {"covariate": opts, "stratify_by": opts}
     out["preview"], out["preview_cols"] = preview(dataset.frame, described)
     out["upload_msg"] = ""
 
@@ -194,7 +207,7 @@ def _encode(context: AppContext, now: dict):
     settings, problems = ctl.settings_from_controls(values, fallback=context.default_settings)
     if settings is None:
         return no_update
-    roles, _ = ctl.roles_from_controls(now["roles"])
+    roles, _ = ctl.roles_from_controls(now["roles"], known=context.default_roles)
     key = (now["data"] or {}).get("key")
     view = {k: v for k, v in (now["view"] or {}).items() if v not in (None, "")}
     return urlstate.encode(
@@ -205,6 +218,31 @@ def _encode(context: AppContext, now: dict):
 
 
 # ------------------------------------------------------------------ small pure helpers
+def _analysed_subject(context: AppContext, data, roles: dict, settings: dict, picked: str
+                      ) -> bool:
+    """Whether ``picked`` is a subject of the analysed cohort (from the cached selection)."""
+    r, _ = ctl.roles_from_controls(roles, known=context.default_roles)
+    s, _ = ctl.settings_from_controls(dict(settings), fallback=context.default_settings)
+    dataset = context.datasets.get((data or {}).get("key"))
+    if r is None or s is None or dataset is None:
+        return False
+    selection, _, _ = attempt(lambda: context.workbench.selection(dataset, r, s),
+                              what="checking the clicked subject")
+    return selection is not None and picked in set(map(str, selection.subject_ids))
+
+
+def _covariate_options(covariates) -> list[dict]:
+    """Choices of the covariate and grouping dropdowns: the columns chosen as covariates."""
+    return [{"label": c, "value": c} for c in (covariates or [])]
+
+
+def _same_query(a, b) -> bool:
+    """Whether two query strings say the same (no_update means "nothing to write")."""
+    if not isinstance(b, str):
+        return False
+    return (a or "").lstrip("?") == (b or "").lstrip("?")
+
+
 def decode_upload(contents: str, name: str) -> bytes:
     """Bytes of a dcc.Upload data URL ('data:...;base64,....')."""
     try:

@@ -109,6 +109,11 @@ def graph(id_: str, height: int = 460) -> html.Div:
     ])
 
 
+def busy(*children) -> dcc.Loading:
+    """A loading indicator (after 0.5 s) around output that a slow step fills."""
+    return dcc.Loading(type="dot", delay_show=500, children=list(children))
+
+
 def field(label: str, control, msg_id: str, hint: str | None = None) -> html.Div:
     return html.Div(className="cl-field", children=[
         html.Label(label, className="cl-label"),
@@ -160,12 +165,12 @@ def data_section() -> html.Section:
                    html.Div(id=ids.ROLES_STATUS, className="cl-status"),
                    html.Details(className="cl-preview", open=True, children=[
                        html.Summary("First rows of the table"),
-                       dash_table.DataTable(id=ids.DATA_PREVIEW, page_size=6,
-                                            style_table={"overflowX": "auto"},
-                                            style_cell={"fontFamily": "inherit",
-                                                        "fontSize": "15px",
-                                                        "padding": "4px 8px"},
-                                            style_header={"fontWeight": "600"}),
+                       busy(dash_table.DataTable(id=ids.DATA_PREVIEW, page_size=6,
+                                                 style_table={"overflowX": "auto"},
+                                                 style_cell={"fontFamily": "inherit",
+                                                             "fontSize": "15px",
+                                                             "padding": "4px 8px"},
+                                                 style_header={"fontWeight": "600"})),
                    ]))
 
 
@@ -258,12 +263,12 @@ def settings_panel(settings: Settings) -> html.Div:
 def kept_section():
     return section("section-kept", "Who is analysed",
                    "What each inclusion step removed, in order.",
-                   dash_table.DataTable(id=ids.KEPT_TABLE, style_as_list_view=True,
+                   busy(dash_table.DataTable(id=ids.KEPT_TABLE, style_as_list_view=True,
                                         style_cell={"fontFamily": "inherit", "fontSize": "16px",
                                                     "padding": "6px 10px", "textAlign": "right"},
                                         style_cell_conditional=[{"if": {"column_id": "step"},
                                                                  "textAlign": "left"}],
-                                        style_header={"fontWeight": "600"}),
+                                        style_header={"fontWeight": "600"})),
                    html.Ul(id=ids.KEPT_NOTES, className="cl-notes"))
 
 
@@ -275,9 +280,9 @@ def selection_bar():
                            inline=True),
             html.Button("Clear highlight", id=ids.LINK_CLEAR, className="cl-btn cl-btn-quiet"),
         ]),
-        html.Div(id=ids.LINK_CARD, className="cl-card",
-                 children=html.Span("Click a subject in any view to follow it everywhere.",
-                                    className="cl-hint")),
+        busy(html.Div(id=ids.LINK_CARD, className="cl-card",
+                      children=html.Span("Click a subject in any view to follow it everywhere.",
+                                         className="cl-hint"))),
     ])
 
 

@@ -179,7 +179,7 @@ def test_two_sessions_with_different_data_never_share_results(app_ctx, demo_fram
     # worst-followed half of the subjects removed, and other settings
     keep = demo_frame.groupby("recipient_id").size().sort_values().index[600:]
     other = demo_frame[demo_frame["recipient_id"].isin(keep)].assign(
-        egfr=lambda d: d["egfr"] * 1.5)
+        egfr=lambda d: d["egfr"] * 1.5).reset_index(drop=True)
     ds_b = app_ctx.datasets.add(other, name="other.csv")
     assert ds_b.key != DEMO_KEY
     s_a = demo_settings()
@@ -384,3 +384,67 @@ def test_a_bad_control_gets_its_message_beside_it(change, field, words):
     # the message speaks the panel's language, not the code's
     assert field not in problems[field]
     assert field in ids.SETTING_MSG
+
+
+# ------------------------------------------------------------------ page structure and clicks
+def _walk(component, inside_loading=False):
+    """(component, whether a dcc.Loading encloses it) for every component in a layout."""
+    from dash import dcc
+
+    yield component, inside_loading
+    here = inside_loading or isinstance(component, dcc.Loading)
+    children = getattr(component, "children", None)
+    if children is None or isinstance(children, (str, int, float)):
+        return
+    for child in children if isinstance(children, (list, tuple)) else [children]:
+        if hasattr(child, "to_plotly_json"):
+            yield from _walk(child, here)
+
+
+def test_everything_a_slow_step_fills_shows_a_loading_indicator():
+    from dash import dcc
+
+    from app.layout import build_layout
+
+    seen = {c.id: loading for c, loading in _walk(build_layout(Settings()))
+            if isinstance(getattr(c, "id", None), str)}
+    graphs = [c for c, _ in _walk(build_layout(Settings())) if isinstance(c, dcc.Graph)]
+    assert len(graphs) >= 8
+    # every graph, the attrition table, the subject card and the table preview
+    slow = [g.id for g in graphs] + [ids.KEPT_TABLE, ids.LINK_CARD, ids.DATA_PREVIEW]
+    assert [i for i in slow if not seen.get(i)] == []
+
+
+def test_a_click_that_names_no_analysed_subject_is_ignored(app_ctx):
+    from app import hub
+
+    data, roles, _ = stores()
+    controls = {**ctl.control_values(demo_settings())}
+    role_values = ctl.role_values(demo_roles())
+    cohort = views._stage_call(app_ctx, "cohort", data, roles, demo_settings().to_dict())
+    real = str(cohort.subject_ids[0])
+    # reference: the analysed cohort's subject ids (Workbench selection)
+    assert hub._analysed_subject(app_ctx, data, role_values, controls, real)
+    # a mean curve carries visit counts in customdata, not subject ids
+    assert not hub._analysed_subject(app_ctx, data, role_values, controls, "475")
+    assert hub.clicked_subject({"points": [{"customdata": [real, 1.5, 2]}]}) == real
+    assert hub.clicked_subject({"points": []}) is None
+
+
+def test_a_filtered_table_is_stored_with_rows_numbered_from_zero(app_ctx, demo_frame):
+    # a frame filtered in pandas keeps its old row labels; the store renumbers them so
+    # the analysis sees the same table as if it had been read from a file
+    keep = demo_frame["recipient_id"].drop_duplicates().iloc[::2]
+    filtered = demo_frame[demo_frame["recipient_id"].isin(keep)]
+    assert not filtered.index.equals(pd.RangeIndex(len(filtered)))
+    ds = app_ctx.datasets.add(filtered, name="filtered")
+    got = views._stage_call(app_ctx, "cohort", *stores(key=ds.key))
+    # reference: the same rows written to CSV and read back by pandas, analysed directly
+    import io
+
+    buf = io.StringIO()
+    filtered.to_csv(buf, index=False)
+    ref = Workbench().cohort(Dataset.from_frame(pd.read_csv(io.StringIO(buf.getvalue()))),
+                             demo_roles(), demo_settings())
+    assert (got.panel.n_subjects, got.panel.n_obs) == (ref.panel.n_subjects, ref.panel.n_obs)
+    assert got.panel.n_subjects > 0
