@@ -62,8 +62,11 @@ class Panel:
         codes = np.asarray(codes, dtype=np.int64)
         time = np.asarray(time, dtype=float)
         y = np.asarray(y, dtype=float)
-        order = np.lexsort((time, codes))
-        codes, time, y = codes[order], time[order], y[order]
+        dc = np.diff(codes)
+        presorted = bool(np.all((dc > 0) | ((dc == 0) & (np.diff(time) >= 0))))
+        if not presorted:
+            order = np.lexsort((time, codes))
+            codes, time, y = codes[order], time[order], y[order]
         counts = np.bincount(codes).astype(np.int64)
         if counts.size and counts.min() == 0:
             raise ValueError("subject codes must run 0..m-1 with every subject present")

@@ -259,6 +259,8 @@ def select_cohort(df: pd.DataFrame, roles: Roles, settings: Settings) -> CohortS
         tracker.record(f"Visits inside the time window [{_fmt(lo)}, {_fmt(hi)}] {settings.unit}",
                        work["subject"].to_numpy())
 
+    # one sort by (subject, time); every later step keeps this order
+    work = work.iloc[np.lexsort((work["time"].to_numpy(), work["subject"].to_numpy()))]
     work = _handle_duplicates(work, roles, settings, labels)
     if settings.duplicates == "average":
         tracker.record("Repeated visits at the same time averaged", work["subject"].to_numpy())
@@ -495,14 +497,14 @@ def _anchor(work: pd.DataFrame, settings: Settings, kind: str) -> np.ndarray:
 
 def _handle_duplicates(work: pd.DataFrame, roles: Roles, settings: Settings,
                        labels: np.ndarray) -> pd.DataFrame:
+    """``work`` is sorted by (subject, time), so repeats are neighbours."""
     sid, t = work["subject"].to_numpy(), work["time"].to_numpy(float)
-    order = np.lexsort((t, sid))
-    same = (np.diff(sid[order]) == 0) & (np.diff(t[order]) == 0)
+    same = (np.diff(sid) == 0) & (np.diff(t) == 0)
     if not same.any():
         return work
     flag = np.zeros(len(work), dtype=bool)
-    flag[order[1:][same]] = True
-    flag[order[:-1][same]] = True
+    flag[1:][same] = True
+    flag[:-1][same] = True
     dup = pd.Series(flag, index=work.index)
     if settings.duplicates == "reject":
         rows = work.loc[dup, "_row"].to_numpy()
@@ -519,8 +521,8 @@ def _handle_duplicates(work: pd.DataFrame, roles: Roles, settings: Settings,
 def _baseline_values(work: pd.DataFrame, covariates, kinds, warnings: list,
                      labels: np.ndarray) -> pd.DataFrame:
     """First non-missing value in time order per subject (indexed by subject code); warn when
-    a covariate varies."""
-    ordered = work.iloc[np.lexsort((work["time"].to_numpy(), work["subject"].to_numpy()))]
+    a covariate varies. ``work`` is sorted by (subject, time)."""
+    ordered = work
     out = pd.DataFrame(index=pd.Index(np.unique(ordered["subject"].to_numpy())))
     for c in covariates:
         col = f"cov:{c}"
