@@ -83,7 +83,10 @@ def register(app, context: AppContext) -> None:
             # Location echoes every query this callback writes back as a new input:
             # nothing to restore (re-setting every control would undo the user's change)
             return out
-        if trig is None or trig == ids.PAGE_URL:
+        if (trig is None or trig == ids.PAGE_URL
+                or (not data and trig not in (ids.DATA_UPLOAD, ids.DATA_USE_DEMO))):
+            # also when a control fires before the first load's response arrived: Dash
+            # drops that response as stale, so this call must load the page instead
             _from_url(context, search, out)
             return out
         if trig == ids.DATA_UPLOAD:
@@ -176,11 +179,11 @@ def _show_dataset(context: AppContext, key: str, roles, out: dict) -> None:
     roles = ctl.keep_roles_that_fit(roles, dataset.frame.columns)
     out["data"] = {"key": dataset.key, "name": dataset.name}
     out["title"] = dataset.name
-    n_subjects = "?"
+    subjects = ""
     if roles is not None:
-        n_subjects = f"{dataset.frame[roles.subject].nunique():,}"
+        subjects = f", {dataset.frame[roles.subject].nunique():,} subjects"
     out["data_name"] = (f"{dataset.name}: {len(dataset.frame):,} rows, "
-                        f"{dataset.frame.shape[1]} columns, {n_subjects} subjects")
+                        f"{dataset.frame.shape[1]} columns{subjects}")
     out["role_options"] = {r: options for r in ids.ROLE_FIELDS}
     out["roles"] = ctl.role_values(roles)
     # with their values in the same response, so the dropdowns never drop a choice

@@ -344,6 +344,7 @@ def rate_section():
                        graph(ids.RATE_COVARIATE_GRAPH, 440),
                    ]),
                    dash_table.DataTable(id=ids.RATE_TABLE, style_as_list_view=True,
+                                        merge_duplicate_headers=True,
                                         style_cell={"fontFamily": "inherit", "fontSize": "15px",
                                                     "padding": "4px 10px"},
                                         style_header={"fontWeight": "600"}))

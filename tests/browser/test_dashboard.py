@@ -95,10 +95,23 @@ def same_figure(a: dict, b: dict) -> bool:
     return json.dumps(a, sort_keys=True) == json.dumps(b, sort_keys=True)
 
 
+def page_state(page) -> str:
+    """What the page says about itself, for a failure message."""
+    parts = [f"url={page.url}"]
+    for i in (ids.DATA_NAME, ids.ROLES_STATUS, ids.SETTINGS_STATUS, ids.PAGE_ALERT,
+              ids.COURSE_MSG, ids.SPREAD_MSG, ids.LINES_MSG, ids.ROLE_MSG["subject"]):
+        parts.append(f"{i}={page.inner_text('#' + i)!r}")
+    parts.append("traces=" + str({g: page.evaluate(N_TRACES_JS, g) for g in VIEW_GRAPHS}))
+    return "; ".join(parts)
+
+
 def open_demo(page, url: str) -> None:
     page.goto(url)
     for gid in (ids.COURSE_GRAPH, ids.SPREAD_GRAPH, ids.LINES_GRAPH):
-        wait_drawn(page, gid)
+        try:
+            wait_drawn(page, gid)
+        except Exception as exc:  # noqa: BLE001 - re-raised with what the page shows
+            raise AssertionError(f"{gid} not drawn: {page_state(page)}") from exc
     wait_idle(page)
 
 
