@@ -217,6 +217,8 @@ def select_cohort(df: pd.DataFrame, roles: Roles, settings: Settings) -> CohortS
         A setting that does not fit the data (e.g. origin 'as-is' with a date column).
     """
     _check_columns(df, roles, settings)
+    # positions, not labels: a filtered or re-indexed table must line up row by row
+    df = df.reset_index(drop=True)
     primary = settings.covariate or (roles.covariates[0] if roles.covariates else None)
     covariates = tuple(dict.fromkeys((*roles.covariates, *([primary] if primary else []))))
     if settings.stratify_by and settings.stratify_by not in covariates:

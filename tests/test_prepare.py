@@ -229,3 +229,15 @@ def test_subject_labels_are_trimmed_and_numeric_ids_stay_whole_numbers():
     blank.loc[[0, 1], "pid"] = "  "
     d = select_cohort(blank, ROLES, settings())
     assert d.attrition.steps[1].observations == len(df) - 2
+
+
+def test_a_filtered_table_with_gaps_in_its_index_gives_the_same_cohort():
+    df = cohort_frame()
+    kept = df[df["pid"] != "P02"]
+    shuffled = kept.sample(frac=1.0, random_state=4)       # index labels out of order, with gaps
+    a = select_cohort(kept.reset_index(drop=True), ROLES, settings())
+    b = select_cohort(shuffled, ROLES, settings())
+    # reference: the same rows with a fresh 0..n-1 index
+    assert list(b.subject_ids) == list(a.subject_ids)
+    np.testing.assert_array_equal(b.panel.time, a.panel.time)
+    np.testing.assert_array_equal(b.panel.y, a.panel.y)
