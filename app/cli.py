@@ -59,25 +59,16 @@ def build_parser() -> argparse.ArgumentParser:
     serve.add_argument("--debug", action="store_true", help="Dash debug mode (development only)")
     _add_settings(serve)
 
-    summ = sub.add_parser("summarize", help="write every exploratory number as JSON")
-    summ.add_argument("data", help="CSV or Parquet file, or 'demo' for the bundled registry")
-    _add_roles(summ, required=False)
-    _add_settings(summ)
+    summ = _data_command(sub, "summarize", "write every exploratory number as JSON")
     summ.add_argument("--json", required=True, metavar="OUT", help="output file ('-' = stdout)")
 
-    fit = sub.add_parser("fit", help="fit and compare candidate covariance models, write JSON")
-    fit.add_argument("data", help="CSV or Parquet file, or 'demo' for the bundled registry")
-    _add_roles(fit, required=False)
-    _add_settings(fit)
-    _add_model_options(fit)
+    fit = _data_command(sub, "fit", "fit and compare candidate covariance models, write JSON",
+                        models=True)
     fit.add_argument("--no-gee", action="store_true", help="skip the GEE robustness rows")
     fit.add_argument("--json", required=True, metavar="OUT", help="output file ('-' = stdout)")
 
-    rep = sub.add_parser("report", help="write the exploration and the models as one HTML file")
-    rep.add_argument("data", help="CSV or Parquet file, or 'demo' for the bundled registry")
-    _add_roles(rep, required=False)
-    _add_settings(rep)
-    _add_model_options(rep)
+    rep = _data_command(sub, "report", "write the exploration and the models as one HTML file",
+                        models=True)
     rep.add_argument("--no-models", action="store_true", help="exploration only, fit no models")
     rep.add_argument("--out", required=True, metavar="FILE.html", help="report file to write")
     return parser
@@ -94,6 +85,17 @@ def _add_model_options(p: argparse.ArgumentParser) -> None:
                    help="comma-separated baseline covariates added to the mean model")
     p.add_argument("--time-spline-df", type=int, default=None,
                    help="natural spline in time with this many df instead of a straight line")
+
+
+def _data_command(sub, name: str, text: str, *, models: bool = False) -> argparse.ArgumentParser:
+    """A subcommand reading DATA with the role and setting flags (and the model flags)."""
+    p = sub.add_parser(name, help=text)
+    p.add_argument("data", help="CSV or Parquet file, or 'demo' for the bundled registry")
+    _add_roles(p, required=False)
+    _add_settings(p)
+    if models:
+        _add_model_options(p)
+    return p
 
 
 def _add_roles(p: argparse.ArgumentParser, *, required: bool) -> None:
