@@ -18,6 +18,7 @@ import pandas as pd
 import plotly.graph_objects as go
 from dash import Input, Output, State, dash_table, dcc, html, no_update
 
+from analysis.effects import format_number
 from analysis.errors import ModelError
 from analysis.loading import fingerprint
 from analysis.modelstage import ModelChoices
@@ -110,8 +111,9 @@ def models_section() -> html.Section:
             dcc.Dropdown(id=ids.MODELS_CHOSEN, options=[], value=None, clearable=False,
                          placeholder="fit models first", style={"minWidth": "24rem"}),
         ]),
-        html.Div(id=ids.MODELS_DETAIL),
     ]))
+    # its own spinner: choosing another model's details must not hide the results above
+    details = dcc.Loading(type="circle", children=html.Div(id=ids.MODELS_DETAIL))
     return section("section-models", "Models: does the covariate change the rate of change?",
                    "Fit mixed models with a time × covariate term under several working "
                    "covariance structures, compare them, and read the answer with model-based "
@@ -120,7 +122,7 @@ def models_section() -> html.Section:
                    html.Div(id=ids.MODELS_SECTION, children=[
                        controls, buttons,
                        html.Div(id=ids.MODELS_STATUS, className="cl-status"),
-                       results]))
+                       results, details]))
 
 
 # ------------------------------------------------------------------ pure helpers
@@ -238,15 +240,18 @@ def effect_block(models) -> html.Div:
         return html.Div(className="cl-effect", children=[html.P(
             "No time × covariate term was fitted (the primary covariate is not numeric), so "
             "there is no statement about the rate of change.", className="cl-effect-main")])
+    # the statement already says it is an association; the caution adds what it is adjusted for
+    caution = ("" if ASSOCIATION_NOTE in e.statement else ASSOCIATION_NOTE + " ") + (
+        "Adjusted only for what is in the mean model. " + " ".join(CAUTIONS))
     return html.Div(className="cl-effect", role="status", children=[
         html.P(e.statement, className="cl-effect-main",
                style={"fontSize": "1.45rem", "fontWeight": 600, "lineHeight": 1.35}),
-        html.P(e.robust_statement, className="cl-effect-alt", style={"fontSize": "1.1rem"}),
-        html.P([html.Strong("Caution: "), ASSOCIATION_NOTE.rstrip(".") +
-                " — adjusted only for what is in the mean model. " + " ".join(CAUTIONS)],
-               className="cl-caveat"),
-        html.P(f"From {e.model}: {p_phrase(e.p)} (model-based), {p_phrase(e.robust_p)} "
-               "(robust).", className="cl-hint"),
+        html.P(f"With robust (sandwich) SEs, which do not rely on the working covariance: "
+               f"95% CI {format_number(e.robust_lo, 3)} to {format_number(e.robust_hi, 3)}.",
+               className="cl-effect-alt", style={"fontSize": "1.1rem"}),
+        html.P([html.Strong("Caution: "), caution], className="cl-caveat"),
+        html.P(f"From {models.preferred or e.model}: {p_phrase(e.p)} (model-based), "
+               f"{p_phrase(e.robust_p)} (robust).", className="cl-hint"),
     ])
 
 
