@@ -48,7 +48,7 @@ class Nesting:
 
 
 _ONE_RE = ("the null puts one more random effect's variance on the boundary (0); "
-           "50:50 mixture of χ²_{k-1} and χ²_k (Self & Liang 1987; Stram & Lee 1994)")
+           "50:50 mixture of χ²(k−1) and χ²(k) (Self & Liang 1987; Stram & Lee 1994)")
 _SERIAL = ("the null sets the serial variance to 0 (boundary) and leaves the range "
            "unidentified, so no standard mixture applies; naive χ² is an approximation")
 _MULTI = ("several variance components on the boundary at once; the exact null distribution "
@@ -217,7 +217,7 @@ def likelihood_ratio(null_fit, alt_fit, *, null_label: str | None = None,
         df = len(extra)
         p = float(stats.chi2.sf(T, df))
         return LRTResult(nl, al, "mean", T, df, p, p, None, 0, method,
-                         f"χ²_{df} (ML fits; tests {sorted(extra)})")
+                         f"χ²({df}) (ML fits; tests {sorted(extra)})")
     if same_cov:
         raise ModelError(f"'{nl}' and '{al}' are the same model; nothing to test")
     nest = nesting(null_fit.structure, alt_fit.structure)
@@ -232,10 +232,10 @@ def likelihood_ratio(null_fit, alt_fit, *, null_label: str | None = None,
     p_naive = float(stats.chi2.sf(T, nest.df))
     if nest.mixture is not None:
         p = mixture_sf(T, nest.mixture)
-        ref = (" + ".join(f"{w:g}·χ²_{k}" for w, k in nest.mixture) + f"; {nest.note}")
+        ref = (" + ".join(f"{w:g}·χ²({k})" for w, k in nest.mixture) + f"; {nest.note}")
     else:
         p = p_naive
-        ref = f"χ²_{nest.df}; {nest.note}"
+        ref = f"χ²({nest.df}); {nest.note}"
     return LRTResult(nl, al, "covariance", T, nest.df, p, p_naive, nest.mixture,
                      nest.n_boundary, method, ref)
 

@@ -78,7 +78,7 @@ def p_phrase(p) -> str:
 
 
 def short_reference(reference: str) -> str:
-    """The distribution part of an LRT reference text, e.g. '0.5·χ²_1 + 0.5·χ²_2'."""
+    """The distribution part of an LRT reference text, e.g. '0.5·χ²(1) + 0.5·χ²(2)'."""
     head = reference.split(";")[0].strip()
     return head + (" (approximate)" if "approximation" in reference else "")
 

@@ -33,7 +33,7 @@ def test_intercept_vs_slope_uses_half_chi2_1_2_mixture():
     np.testing.assert_allclose(r.statistic, x, rtol=1e-12)
     np.testing.assert_allclose(r.p, ref, rtol=1e-12)
     np.testing.assert_allclose(r.p_naive, stats.chi2.sf(x, 2), rtol=1e-12)
-    assert r.df == 2 and "0.5·χ²_1 + 0.5·χ²_2" in r.reference
+    assert r.df == 2 and "0.5·χ²(1) + 0.5·χ²(2)" in r.reference
 
 
 def test_adding_random_intercept_uses_chi2_0_1_mixture():
