@@ -18,6 +18,7 @@ Conventions kept by every figure
 """
 from __future__ import annotations
 
+import textwrap
 from dataclasses import dataclass, field
 from typing import Mapping, Sequence
 
@@ -43,6 +44,8 @@ MAX_CELL_TEXT = 16
 FONT = {"family": "DejaVu Sans, Segoe UI, Roboto, Helvetica, Arial, sans-serif",
         "size": 15, "color": "#1b1f24"}
 TITLE_SIZE = 19
+#: small-multiple panel titles
+PANEL_TITLE_SIZE = 14
 FADED = 0.18
 
 _SINGULAR = {"days": "day", "weeks": "week", "months": "month", "years": "year"}
@@ -116,15 +119,34 @@ class CohortLook:
         return f"per {_SINGULAR.get(u, u[:-1] if u.endswith('s') else u)}"
 
     @property
+    def slope_unit(self) -> str:
+        """``"mL/min/1.73m² per month"`` (or ``"per month"`` without a response unit)."""
+        return f"{self.response_unit} {self.per_time}" if self.response_unit else self.per_time
+
+    @property
     def slope_label(self) -> str:
-        """Axis title of a per-subject slope, with units."""
-        unit = f"{self.response_unit} {self.per_time}" if self.response_unit else self.per_time
-        return f"slope of {self.response} ({unit})"
+        """Axis title of a per-subject slope, with units (one line, for a horizontal axis)."""
+        return f"slope of {self.response} ({self.slope_unit})"
+
+    @property
+    def slope_label_wrapped(self) -> str:
+        """The slope axis title on two lines, for a vertical axis beside a short plot."""
+        return f"slope of {self.response}<br>({self.slope_unit})"
+
+    @property
+    def stratifier_label(self) -> str:
+        """``"urine_protein_ratio (mg/mmol)"``: the covariate the groups were cut from."""
+        u = self.stratifier_unit.strip()
+        return f"{self.stratifier} ({u})" if u else self.stratifier
 
     def group_title(self, label: str) -> str:
-        """``"1.0 – 10.7 mg/mmol"``: a group label with the stratifier's unit."""
+        """``"1.0 – 10.7 mg/mmol"``: a group label with the stratifier's unit.
+
+        The labels for subjects without a value and for all subjects together
+        carry no unit.
+        """
         u = self.stratifier_unit.strip()
-        if label == pal.NO_VALUE_LABEL or not u or str(label).endswith(u):
+        if (label in (pal.NO_VALUE_LABEL, ALL_LABEL) or not u or str(label).endswith(u)):
             return str(label)
         return f"{label} {u}"
 
@@ -270,6 +292,26 @@ def group_means(full: pd.DataFrame, *, strata: Sequence[str], n_bins: int = MEAN
     }, columns=cols)
 
 
+def panel_title(label: str, n: int, *, ncol: int, bold: bool = False) -> str:
+    """``"1.0 – 10.7 · n = 265"``: a small-multiple title that fits its panel.
+
+    The budget of characters per line shrinks with the number of panel columns
+    (about 100 characters of :data:`PANEL_TITLE_SIZE` text across a ~1000 px
+    graph); a longer title puts the count on its own line and wraps the label.
+    """
+    budget = max(12, int(100 / max(ncol, 1)))
+    count = f"n = {n:,}"
+    label = str(label)
+    if len(label) + 3 + len(count) <= budget:
+        lines = [f"{label} · {count}"]
+    else:
+        lines = textwrap.wrap(label, width=budget, break_long_words=False) or [label]
+        lines.append(count)
+    if bold:
+        lines[0] = f"<b>{lines[0]}</b>"
+    return "<br>".join(lines)
+
+
 def courses_figure(shown: pd.DataFrame, *, full: pd.DataFrame, look: CohortLook,
                    highlight_subject=None, highlight_stratum=None,
                    n_bins: int = MEAN_BINS) -> go.Figure:
@@ -292,17 +334,16 @@ def courses_figure(shown: pd.DataFrame, *, full: pd.DataFrame, look: CohortLook,
     ncol = k if k <= 4 else (int(np.ceil(k / 2)) if k <= 8 else 4)
     nrow = int(np.ceil(k / ncol))
     subjects_per = full.groupby("stratum_label", sort=False)["subject"].nunique()
-    unit_name = f"{look.stratifier}" + (f" ({look.stratifier_unit})" if look.stratifier_unit else "")
-    titles = []
-    for lab in labels:
-        n = int(subjects_per.get(lab, 0))
-        head = f"<b>{look.group_title(lab)}</b>" if highlight_stratum == lab else look.group_title(lab)
-        titles.append(f"{look.stratifier}<br>{head} · {_plural(n, 'subject')}")
+    # the covariate and its unit are named once, in the figure title; each panel
+    # title is the group's range and its subject count, wrapped only when too wide
+    titles = [panel_title(lab, int(subjects_per.get(lab, 0)), ncol=ncol,
+                          bold=highlight_stratum == lab) for lab in labels]
+    title_lines = max(t.count("<br>") + 1 for t in titles) if titles else 1
     fig = make_subplots(rows=nrow, cols=ncol, shared_xaxes="all", shared_yaxes="all",
-                        subplot_titles=titles, horizontal_spacing=0.025,
-                        vertical_spacing=0.16 if nrow > 1 else 0.1)
+                        subplot_titles=titles, horizontal_spacing=0.045,
+                        vertical_spacing=(0.12 + 0.04 * title_lines) if nrow > 1 else 0.1)
     for ann in fig.layout.annotations:
-        ann.font = {"size": 14}
+        ann.font = {"size": PANEL_TITLE_SIZE}
 
     shown = shown.assign(subject=shown["subject"].astype(str),
                          stratum_label=shown["stratum_label"].astype(str))
@@ -359,11 +400,11 @@ def courses_figure(shown: pd.DataFrame, *, full: pd.DataFrame, look: CohortLook,
                   row=1, col=1)
     total = int(full["subject"].nunique())
     drawn = int(shown["subject"].nunique())
-    _finish(fig, f"{look.response} over time, by {unit_name}",
+    _finish(fig, f"{look.response} over time, by {look.stratifier_label}",
             subtitle=(f"thin lines: {drawn:,} of {total:,} subjects drawn · thick line: mean of "
                       f"every subject in the group, {len(set(means['bin'])) if len(means) else 0}"
                       f" time bins"),
-            top=140, bottom=105)
+            top=104 + 18 * title_lines, bottom=105)
     fig.update_xaxes(title_text="")
     fig.update_yaxes(title_text="")
     for c in range(1, ncol + 1):
@@ -511,7 +552,7 @@ def lag_heatmap_figure(lc, *, look: CohortLook) -> go.Figure:
     fig.update_xaxes(showgrid=False, row=1, col=1, ticks="")
     fig.update_xaxes(title_text=f"time window ({look.time_label})", row=2, col=1, type="category")
     fig.update_yaxes(title_text=f"variance<br>{look.squared_unit}", row=2, col=1,
-                     rangemode="tozero", title_font={"size": 13})
+                     rangemode="tozero", title_font={"size": 14})
     return fig
 
 
@@ -639,6 +680,34 @@ def intervals_figure(lines: pd.DataFrame, *, look: CohortLook, order: str = "slo
 
 
 # --------------------------------------------------------------------------- 5 rate of change
+#: the two rate-of-change plots sit side by side: room above for title + subtitle,
+#: and on the left for a two-line slope axis title
+RATE_TOP = 96
+RATE_LEFT = 96
+
+
+def category_ticks(labels: Sequence[str], *, width: int = 40) -> list[str]:
+    """Horizontal tick labels for ``labels`` side by side on an axis about ``width`` characters long.
+
+    When every label fits its share they stay on one line; otherwise each range
+    label ("10.7 – 20.4") breaks after its dash and any other label wraps at
+    spaces, so neighbouring labels never run into each other.
+    """
+    labels = [str(lab) for lab in labels]
+    budget = max(6, int(width / max(len(labels), 1)))
+    if all(len(lab) <= budget for lab in labels):
+        return labels
+    out = []
+    for lab in labels:
+        lo, dash, hi = lab.partition(" – ")
+        if dash and lo and hi:
+            out.append(f"{lo} –<br>{hi}")
+        else:
+            out.append("<br>".join(textwrap.wrap(lab, width=budget, break_long_words=False)
+                                   or [lab]))
+    return out
+
+
 def slopes_by_stratum_figure(lines: pd.DataFrame, *, look: CohortLook, highlight_subject=None,
                              highlight_stratum=None) -> go.Figure:
     """Box of per-subject slopes per group with every subject as a point.
@@ -653,7 +722,7 @@ def slopes_by_stratum_figure(lines: pd.DataFrame, *, look: CohortLook, highlight
         strength = _strength(look, lab, highlight_stratum)
         colour = look.colour(lab)
         fig.add_trace(go.Box(
-            y=g["slope"].to_numpy(), x=np.full(len(g), look.group_title(lab), dtype=object),
+            y=g["slope"].to_numpy(), x=np.full(len(g), lab, dtype=object),
             name=look.group_title(lab), boxpoints="all", jitter=0.45, pointpos=0,
             customdata=np.c_[g["subject"].astype(str).to_numpy(dtype=object),
                              np.full(len(g), lab, dtype=object)],
@@ -667,7 +736,7 @@ def slopes_by_stratum_figure(lines: pd.DataFrame, *, look: CohortLook, highlight
         if len(h):
             lab = str(h["stratum_label"].iloc[0])
             fig.add_trace(go.Scatter(
-                x=[look.group_title(lab)], y=h["slope"].to_numpy()[:1], mode="markers",
+                x=[lab], y=h["slope"].to_numpy()[:1], mode="markers",
                 name=f"subject {highlight_subject}",
                 customdata=[[str(highlight_subject), lab]],
                 marker={"size": 16, "color": pal.HIGHLIGHT_COLOR, "symbol": "diamond-open",
@@ -677,11 +746,15 @@ def slopes_by_stratum_figure(lines: pd.DataFrame, *, look: CohortLook, highlight
     _finish(fig, f"Subject slopes by {look.stratifier}",
             subtitle=(f"axis cut at the 1st–99th percentile; {outside} outside" if yr else
                       "box: quartiles and median · points: subjects"),
-            bottom=130)
+            top=RATE_TOP, bottom=130, left=RATE_LEFT)
     fig.add_hline(y=0, line={"color": pal.REFERENCE_COLOR, "width": 1.2, "dash": "dot"})
-    unit = f" ({look.stratifier_unit})" if look.stratifier_unit else ""
-    fig.update_xaxes(title_text=f"{look.stratifier}{unit}", type="category")
-    fig.update_yaxes(title_text=look.slope_label, range=yr)
+    # ticks: the bare group ranges, kept horizontal; the covariate and its unit are in
+    # the axis title
+    ticks = category_ticks(labels)
+    fig.update_xaxes(title_text=f"{look.stratifier} group{_parenthesis(look.stratifier_unit.strip())}",
+                     type="category",
+                     tickangle=0, tickvals=labels, ticktext=ticks)
+    fig.update_yaxes(title_text=look.slope_label_wrapped, range=yr)
     fig.update_layout(showlegend=True)
     return fig
 
@@ -738,11 +811,11 @@ def slope_vs_covariate_figure(lines: pd.DataFrame, smooth: pd.DataFrame | None, 
     _finish(fig, f"Subject slope against {name}",
             subtitle=(f"axis cut at the 1st–99th percentile; {outside} outside" if yr else
                       f"{_plural(len(df), 'subject')}; line: lowess smooth"),
-            bottom=150)
+            top=RATE_TOP, bottom=150, left=RATE_LEFT)
     fig.add_hline(y=0, line={"color": pal.REFERENCE_COLOR, "width": 1.2, "dash": "dot"})
     fig.update_xaxes(title_text=xt, type="log" if log_axis else "linear",
                      **(_log_ticks(df["covariate"].to_numpy(float)) if log_axis else {}))
-    fig.update_yaxes(title_text=look.slope_label, range=yr)
+    fig.update_yaxes(title_text=look.slope_label_wrapped, range=yr)
     return fig
 
 
@@ -848,7 +921,7 @@ def dropout_figure(dropout, *, look: CohortLook, highlight_stratum=None) -> go.F
     fig.add_vline(x=dropout.horizon, line={"color": pal.REFERENCE_COLOR, "dash": "dash",
                                            "width": 1.5}, row=1, col=1)
     fig.add_annotation(x=dropout.horizon, y=1.0, xref="x", yref="y", showarrow=False,
-                       xanchor="right", yanchor="bottom", text=f"horizon {dropout.horizon:.3g}",
+                       xanchor="right", yanchor="bottom", text=f"horizon {dropout.horizon:.3g} {look.time_unit}".rstrip(),
                        font={"size": 13, "color": pal.REFERENCE_COLOR})
     # right: mean response at the last visit ± 95% interval, two rows per group
     tab = dropout.by_stratum

@@ -140,8 +140,14 @@ def test_courses_one_panel_per_group_means_from_every_subject(res):
         want = ref[ref["stratum_label"] == lab].sort_values("time")
         np.testing.assert_allclose(np.asarray(tr.x, float), want["time"], rtol=1e-10)
         np.testing.assert_allclose(np.asarray(tr.y, float), want["response"], rtol=1e-10)
+    # the covariate is named once, in the figure title; each panel title is the group's
+    # range with its subject count (reference: pandas nunique of subjects per group)
+    assert c.strata.name in fig.layout.title.text
+    per = frame.groupby("stratum_label")["subject"].nunique()
     assert len(fig.layout.annotations) >= len(labels)
-    assert all(c.strata.name in a.text for a in fig.layout.annotations[:len(labels)])
+    for lab, ann in zip(labels, fig.layout.annotations):
+        assert c.strata.name not in ann.text
+        assert ann.text.replace("<br>", " ") == f"{lab} · n = {per[lab]:,}", ann.text
 
 
 def test_courses_highlights_subject_and_group(res):
@@ -418,3 +424,46 @@ def test_categorical_covariate_gives_a_message_not_a_traceback(res):
             sids = np.asarray(t.customdata, dtype=object)[:, 0][np.argsort(np.asarray(t.y))]
             keys = cat.set_index(cat["subject"].astype(str)).loc[sids, "covariate"]
             assert keys.reset_index(drop=True).is_monotonic_increasing
+
+
+# ----------------------------------------------------------------------- readable layout
+def test_panel_titles_fit_their_panels_and_wrap_long_labels():
+    # reference: the character budget documented in figures.panel_title (100 characters
+    # across the graph, shared by the panel columns) — checked on the produced text
+    for ncol in (1, 2, 3, 4):
+        budget = int(100 / ncol)
+        for label in ("1.0 – 10.7", "37.8 – 318.9", "deceased donor, extended criteria"):
+            text = figures.panel_title(label, 1265, ncol=ncol)
+            lines = text.split("<br>")
+            assert all(len(line) <= max(budget, len(max(label.split(), key=len))) for line in lines)
+            assert " ".join(lines).replace(" · ", " ").split() == (
+                f"{label} n = 1,265".split()), text
+    assert figures.panel_title("1.0 – 10.7", 5, ncol=4, bold=True).startswith("<b>1.0 – 10.7")
+
+
+def test_rate_and_dropout_labels_are_short_and_carry_units(res):
+    c, lines, summ = res["cohort"], res["lines"], res["summ"]
+    look = draw.look(c)
+    unit = res["roles"].response_unit
+    box = draw.slopes_by_stratum(lines, cohort=c)
+    # x ticks: the bare group ranges (the analysis layer's labels), horizontal; the unit
+    # is named once in the axis title
+    assert list(box.layout.xaxis.tickvals) == list(c.strata.labels)
+    assert [t.replace(" –<br>", " – ") for t in box.layout.xaxis.ticktext] == list(c.strata.labels)
+    assert box.layout.xaxis.tickangle == 0
+    assert look.stratifier_unit and look.stratifier_unit in box.layout.xaxis.title.text
+    # the slope axis title wraps onto two lines and keeps its units
+    scatter = draw.slope_vs_covariate(lines, summ.slope_smooth, cohort=c)
+    for fig in (box, scatter):
+        title = fig.layout.yaxis.title.text
+        assert title.count("<br>") == 1 and unit in title and "per month" in title
+        assert max(len(part) for part in title.split("<br>")) <= 30
+        assert fig.layout.margin.t >= figures.RATE_TOP
+    # dropout: "All subjects" without the covariate's unit; the horizon with the time unit
+    drop = draw.dropout(summ.dropout, cohort=c)
+    ticks = list(drop.layout.yaxis2.ticktext)
+    assert "All subjects" in ticks
+    assert all(t.endswith(look.stratifier_unit) for t in ticks if t != "All subjects")
+    horizon = [a.text for a in drop.layout.annotations if a.text.startswith("horizon")]
+    assert horizon == [f"horizon {summ.dropout.horizon:.3g} months"]
+    assert drop.layout.xaxis.title.text == c.time_label
