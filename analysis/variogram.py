@@ -291,8 +291,9 @@ def semivariogram(panel: Panel, *, n_bins: int = 10, max_lag: float | None = Non
         raise DataError(f"no within-subject pair has a lag <= max_lag ({max_lag:g}); "
                         f"the shortest lags are longer, so raise max_lag")
     if n_used < total_pairs:
-        notes.append(f"{total_pairs - n_used} of {total_pairs} within-subject pairs have a lag "
-                     f"beyond max_lag = {max_lag:g} and were left out.")
+        notes.append(f"{total_pairs - n_used:,} of {total_pairs:,} within-subject pairs are "
+                     f"further apart in time than the longest lag shown ({max_lag:g}) "
+                     "and were left out.")
     with np.errstate(invalid="ignore", divide="ignore"):
         gamma = np.where(counts > 0, sums / np.maximum(counts, 1), np.nan)
         lag_mean = np.where(counts > 0, lag_sums / np.maximum(counts, 1), np.nan)
@@ -304,8 +305,8 @@ def semivariogram(panel: Panel, *, n_bins: int = 10, max_lag: float | None = Non
     su = np.concatenate(smooth_u)
     sv = np.concatenate(smooth_v)
     if pick is not None:
-        notes.append(f"The smooth runs through a random subsample of {su.size} of "
-                     f"{n_used} pairs (seed {seed}).")
+        notes.append(f"The smooth runs through a random subsample of {su.size:,} of "
+                     f"{n_used:,} pairs (seed {seed}).")
     smooth = _smooth(su, sv, frac=smooth_frac, notes=notes)
 
     pv = process_variance(panel)

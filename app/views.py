@@ -83,7 +83,7 @@ def register(app, context: AppContext) -> None:
         def make():
             vg = wb_call("variogram", data, roles, settings)
             cohort = wb_call("cohort", data, roles, settings)
-            return draw.variogram(vg, cohort=cohort), readout(vg)
+            return draw.variogram(vg, cohort=cohort), readout(vg, time_unit=cohort.settings.unit)
 
         return _finish(make, "computing the semivariogram", key, ("fig", "text"))
 
@@ -202,8 +202,11 @@ def _finish(make, what: str, key: str, shape: tuple[str, ...]):
     return (*(blank[k] for k in shape), "" if waiting else message, key)
 
 
-def readout(vg) -> list:
-    """Plain-language variance split under the semivariogram, with its caveat."""
+def readout(vg, *, time_unit: str = "") -> list:
+    """Plain-language variance split under the semivariogram, with its caveat.
+
+    ``time_unit`` (e.g. "months") names the unit of the longest lag used.
+    """
     r = vg.readout
     share = r.shares or {}
 
@@ -220,8 +223,8 @@ def readout(vg) -> list:
                 f"{pct('nugget')} looks like measurement error (nugget {num(r.nugget)}), "
                 f"{pct('serial')} like serially correlated variation ({num(r.serial)}) and "
                 f"{pct('between')} like stable differences between subjects ({num(r.between)})."]),
-        html.P(f"{vg.n_pairs:,} within-subject pairs up to a lag of {vg.max_lag:g}.",
-               className="cl-caveat"),
+        html.P(f"{vg.n_pairs:,} within-subject pairs up to {vg.max_lag:g} "
+               f"{time_unit or 'time units'} apart are used.", className="cl-caveat"),
         *[html.P(n, className="cl-caveat") for n in vg.notes],
         html.P(vg.caveat, className="cl-caveat"),
     ]
