@@ -273,16 +273,21 @@ def kept_section():
 
 
 def selection_bar():
-    return html.Div(className="cl-selection", children=[
+    """The compact sticky groups bar: chips and clear button on one line, then the hint
+    (beside them when there is room) or the followed subject's card."""
+    hint = "Click a subject in any view to follow it everywhere."
+    return html.Div(className="cl-selection", title=hint, children=[
         html.Div(className="cl-selection-row", children=[
-            html.Span("Groups:", className="cl-label"),
+            html.Span("Groups:", className="cl-label",
+                      title="Choose a group to highlight it in every view"),
             dcc.RadioItems(id=ids.LINK_STRATA, options=[], value=None, className="cl-chips",
                            inline=True),
-            html.Button("Clear highlight", id=ids.LINK_CLEAR, className="cl-btn cl-btn-quiet"),
+            html.Button("Clear highlight", id=ids.LINK_CLEAR, className="cl-btn cl-btn-quiet",
+                        title="Clear the highlighted group and subject"),
+            html.Div(className="cl-card-slot", children=busy(
+                html.Div(id=ids.LINK_CARD, className="cl-card",
+                         children=html.Span(hint, className="cl-hint")))),
         ]),
-        busy(html.Div(id=ids.LINK_CARD, className="cl-card",
-                      children=html.Span("Click a subject in any view to follow it everywhere.",
-                                         className="cl-hint"))),
     ])
 
 

@@ -11,6 +11,7 @@ import logging
 from pathlib import Path
 
 import dash
+import numpy as np
 from dash import MATCH, Input, Output, State, dash_table, html, no_update
 from dash.dash_table.Format import Format
 
@@ -19,7 +20,7 @@ from analysis.pipeline import Workbench
 from analysis.settings import Roles, Settings
 
 from . import controls as ctl
-from . import draw, hub, ids, models_view, views
+from . import hub, ids, models_view, palette, views
 from .datastore import DEMO_KEY, DataStore, demo_dataset
 from .layout import build_layout
 from .session import AppContext, attempt, role_of_column
@@ -162,15 +163,20 @@ def _register_panels(app, context: AppContext) -> None:
 
 
 def stratum_chips(cohort) -> list[dict]:
-    """Group chips: coloured swatch, label and subject count (the value is the label)."""
+    """Group chips in stratum-code order ("No value" last): label with its subject count.
+
+    Labels stay plain text (components as option labels break the renderer on
+    update); each chip's colour swatch comes from the style sheet by position,
+    see :func:`app.palette.chip_css`. The value is the group label.
+    """
     labels = list(cohort.strata.labels)
-    codes = cohort.strata.codes
+    codes = np.asarray(cohort.strata.codes)
+    counts = np.bincount(codes[codes >= 0], minlength=len(labels))
+    out = [{"label": f"{lab} (n={int(n):,})", "value": lab} for lab, n in zip(labels, counts)]
     if (codes < 0).any():
-        labels.append("No value")
-    colours = draw.stratum_colours(labels)
-    counts = {lab: int((codes == (i if lab != "No value" else -1)).sum())
-              for i, lab in enumerate(labels)}
-    return [{"label": f"{lab} (n={counts[lab]})", "value": lab} for lab in labels]
+        out.append({"label": f"{palette.NO_VALUE_LABEL} (n={int((codes < 0).sum()):,})",
+                    "value": palette.NO_VALUE_LABEL})
+    return out
 
 
 def _card(context, data, roles, settings, subject):

@@ -250,7 +250,7 @@ def test_each_control_redraws_only_its_views(server_url, page, artifacts):
         "(want) => { const el = document.querySelector('#course-graph .js-plotly-plot');"
         " const t = (el.layout.annotations || []).map(a => a.text || '');"
         " return want.every(([lab, n]) => t.some(x => x.includes(lab)"
-        " && x.includes(n + ' subject'))); }",
+        " && x.includes('n = ' + n))); }",
         arg=[[lab, f"{n:,}"] for lab, n in reference_counts(ref.cohort).items()],
         timeout=TIMEOUT)
     wait_idle(page)
