@@ -22,6 +22,8 @@ from .mean_model import Design, MeanModel, complete_subjects, design, used_colum
 DEFAULT_CANDIDATES: tuple[str, ...] = (
     "intercept", "intercept+slope", "intercept+serial", "intercept+slope+serial",
 )
+#: ``correlation`` value that fits every serial structure with each correlation shape.
+BOTH = "both"
 #: Baseline column of the transformed, centred primary covariate (set by ``prepare``).
 COVARIATE_COLUMN = "x"
 
@@ -173,8 +175,10 @@ def fit_candidates(cohort, *, structures=DEFAULT_CANDIDATES, correlation: str = 
         (``response``) and ``response_unit`` for the wording.
     structures : sequence of str
         Covariance structures (see :data:`analysis.mixed.STRUCTURES`).
-    correlation : {"exponential", "gaussian"}
-        Serial correlation function for structures with a serial process.
+    correlation : {"exponential", "gaussian", "both"}
+        Serial correlation function for structures with a serial process; "both" fits
+        each such structure with each shape, so the two sit side by side in the
+        comparison (they are not nested: compare them by AIC/BIC, no LRT is formed).
     method : {"reml", "ml"}
     mean : MeanModel
     gee : sequence of str
@@ -207,8 +211,10 @@ def fit_candidates(cohort, *, structures=DEFAULT_CANDIDATES, correlation: str = 
     bad = [s for s in structures if s not in STRUCTURES]
     if bad:
         raise ModelError(f"unknown structure(s) {bad}; choose from {list(STRUCTURES)}")
-    if correlation not in CORRELATIONS:
-        raise ModelError(f"correlation == {correlation!r}, must be one of {list(CORRELATIONS)}")
+    if correlation not in (*CORRELATIONS, BOTH):
+        raise ModelError(f"correlation == {correlation!r}, must be one of "
+                         f"{[*CORRELATIONS, BOTH]}")
+    shapes = CORRELATIONS if correlation == BOTH else (correlation,)
     if method not in METHODS:
         raise ModelError(f"method == {method!r}, must be one of {list(METHODS)}")
     gee = tuple(dict.fromkeys(gee or ()))
@@ -238,11 +244,12 @@ def fit_candidates(cohort, *, structures=DEFAULT_CANDIDATES, correlation: str = 
     des = design(panel, baseline, mean, covariate_name=COVARIATE_COLUMN)
 
     candidates = []
-    for s in structures:
-        name = model_name(s, method, correlation)
+    runs = [(s, c) for s in structures for c in (shapes if "serial" in s else shapes[:1])]
+    for s, shape in runs:
+        name = model_name(s, method, shape)
         try:
             fit = fit_mixed(panel, des.X, names=des.names, structure=s,
-                            correlation=correlation, method=method)
+                            correlation=shape, method=method)
         except (CohortError, np.linalg.LinAlgError, FloatingPointError, ValueError) as exc:
             candidates.append(Candidate(name, s, None, str(exc)))
             continue

@@ -31,8 +31,8 @@ class ModelChoices:
     ----------
     structures : tuple of str
         Working covariance structures to fit (see :data:`analysis.mixed.STRUCTURES`).
-    correlation : {"exponential", "gaussian"}
-        Serial correlation shape for structures with a serial process.
+    correlation : {"exponential", "gaussian", "both"}
+        Serial correlation shape for structures with a serial process ("both": each shape).
     method : {"reml", "ml"}
     confounders : tuple of str
         Baseline covariates (other than the primary one) adjusted for.
@@ -78,9 +78,9 @@ class ModelChoices:
         bad = [s for s in self.structures if s not in STRUCTURES]
         if bad:
             raise ModelError(f"structures {bad} not known; choose from {list(STRUCTURES)}")
-        if self.correlation not in CORRELATIONS:
+        if self.correlation not in (*CORRELATIONS, "both"):
             raise ModelError(f"correlation == {self.correlation!r}, must be one of "
-                             f"{list(CORRELATIONS)}")
+                             f"{[*CORRELATIONS, 'both']}")
         if self.method not in METHODS:
             raise ModelError(f"method == {self.method!r}, must be one of {list(METHODS)}")
         df = self.time_spline_df

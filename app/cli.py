@@ -78,8 +78,10 @@ def _add_model_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--models", default=None,
                    help="comma-separated covariance structures to fit "
                         "[intercept,intercept+slope,intercept+serial,intercept+slope+serial]")
-    p.add_argument("--correlation", default="exponential", choices=("exponential", "gaussian"),
-                   help="serial correlation shape [exponential]")
+    p.add_argument("--correlation", default="exponential",
+                   choices=("exponential", "gaussian", "both"),
+                   help="serial correlation shape; 'both' fits each serial structure with each "
+                        "[exponential]")
     p.add_argument("--ml", action="store_true", help="maximum likelihood instead of REML")
     p.add_argument("--confounders", default="",
                    help="comma-separated baseline covariates added to the mean model")

@@ -100,3 +100,24 @@ def test_option_validation():
     with pytest.raises(ModelError, match="method == 'bayes'"):
         fit_candidates(c, method="bayes")
     assert model_name("intercept+serial", "reml", "gaussian") == "intercept+serial (gaussian, REML)"
+
+
+def test_both_correlation_shapes_side_by_side():
+    c = _cohort(m=50, seed=5, n_missing=0)
+    ms = fit_candidates(c, structures=("intercept", "intercept+serial"), correlation="both",
+                        gee=())
+    names = [cand.name for cand in ms.candidates]
+    assert names == ["intercept (REML)", "intercept+serial (exponential, REML)",
+                     "intercept+serial (gaussian, REML)"]
+    # reference: the engine called directly with each shape on the same data
+    d = design(c.panel, c.baseline, MeanModel())
+    for shape in ("exponential", "gaussian"):
+        direct = fit_mixed(c.panel, d.X, names=d.names, structure="intercept+serial",
+                           correlation=shape)
+        mine = ms.fits[f"intercept+serial ({shape}, REML)"]
+        np.testing.assert_allclose(mine.loglik, direct.loglik, rtol=1e-8)
+    # the two shapes are not nested: only random intercept → each serial model is tested
+    pairs = {(r.null, r.alt) for r in ms.lrts}
+    assert pairs == {("intercept (REML)", "intercept+serial (exponential, REML)"),
+                     ("intercept (REML)", "intercept+serial (gaussian, REML)")}
+    assert len(ms.comparison) == 3
