@@ -72,37 +72,25 @@ def register(app, context: AppContext) -> None:
 
         return _finish(make, "drawing courses over time", key, ("fig", "text"))
 
-    # -------------------------------------------------------------- semivariogram
-    @app.callback(Output(ids.SPREAD_GRAPH, "figure"), Output(ids.SPREAD_READOUT, "children"),
-                  Output(ids.SPREAD_MSG, "children"), Output(ids.VIEW_RENDERED["spread"], "data"),
-                  *STORES, State(ids.VIEW_RENDERED["spread"], "data"))
-    def spread(data, roles, settings, last):
-        key = render_key(context, "variogram", data, roles, settings)
-        _skip_if_same(key, last)
+    # -------------------------------------------------------- semivariogram, lag correlation
+    def semivariogram_view(data, roles, settings):
+        vg = wb_call("variogram", data, roles, settings)
+        cohort = wb_call("cohort", data, roles, settings)
+        return draw.variogram(vg, cohort=cohort), readout(vg, time_unit=cohort.settings.unit)
 
-        def make():
-            vg = wb_call("variogram", data, roles, settings)
-            cohort = wb_call("cohort", data, roles, settings)
-            return draw.variogram(vg, cohort=cohort), readout(vg, time_unit=cohort.settings.unit)
+    def lag_view(data, roles, settings):
+        lc = wb_call("lag_correlation", data, roles, settings)
+        cohort = wb_call("cohort", data, roles, settings)
+        note = (f"Windows {lc.width:g} {cohort.settings.unit} wide. Cells with too few "
+                "subjects seen in both windows are left blank.")
+        return draw.lag_heatmap(lc, cohort=cohort), note
 
-        return _finish(make, "computing the semivariogram", key, ("fig", "text"))
-
-    # -------------------------------------------------------------- lag correlation
-    @app.callback(Output(ids.PAIRS_GRAPH, "figure"), Output(ids.PAIRS_NOTE, "children"),
-                  Output(ids.PAIRS_MSG, "children"), Output(ids.VIEW_RENDERED["pairs"], "data"),
-                  *STORES, State(ids.VIEW_RENDERED["pairs"], "data"))
-    def pairs(data, roles, settings, last):
-        key = render_key(context, "lagcorr", data, roles, settings)
-        _skip_if_same(key, last)
-
-        def make():
-            lc = wb_call("lag_correlation", data, roles, settings)
-            cohort = wb_call("cohort", data, roles, settings)
-            note = (f"Windows {lc.width:g} {cohort.settings.unit} wide. Cells with too few "
-                    "subjects seen in both windows are left blank.")
-            return draw.lag_heatmap(lc, cohort=cohort), note
-
-        return _finish(make, "computing lag correlations", key, ("fig", "text"))
+    _figure_and_note_view(app, context, view="spread", stage="variogram",
+                          graph=ids.SPREAD_GRAPH, note=ids.SPREAD_READOUT, msg=ids.SPREAD_MSG,
+                          build=semivariogram_view, what="computing the semivariogram")
+    _figure_and_note_view(app, context, view="pairs", stage="lagcorr",
+                          graph=ids.PAIRS_GRAPH, note=ids.PAIRS_NOTE, msg=ids.PAIRS_MSG,
+                          build=lag_view, what="computing lag correlations")
 
     # -------------------------------------------------------------- subject lines
     @app.callback(Output(ids.LINES_GRAPH, "figure"), Output(ids.LINES_MSG, "children"),
@@ -123,6 +111,12 @@ def register(app, context: AppContext) -> None:
         return _finish(make, "drawing subject lines", key, ("fig",))
 
     # -------------------------------------------------------------- rate of change
+    def summary_inputs(data, roles, settings):
+        """Subject lines, stratum summaries and the cohort (all cached stages)."""
+        return (wb_call("subject_lines", data, roles, settings),
+                wb_call("summaries", data, roles, settings),
+                wb_call("cohort", data, roles, settings))
+
     @app.callback(Output(ids.RATE_STRATA_GRAPH, "figure"), Output(ids.RATE_COVARIATE_GRAPH, "figure"),
                   Output(ids.RATE_TABLE, "data"), Output(ids.RATE_TABLE, "columns"),
                   Output(ids.RATE_MSG, "children"), Output(ids.VIEW_RENDERED["rate"], "data"),
@@ -132,9 +126,7 @@ def register(app, context: AppContext) -> None:
         _skip_if_same(key, last)
 
         def make():
-            frame = wb_call("subject_lines", data, roles, settings)
-            summ = wb_call("summaries", data, roles, settings)
-            cohort = wb_call("cohort", data, roles, settings)
+            frame, summ, cohort = summary_inputs(data, roles, settings)
             table = summ.stratum_table.round(3)
             columns = rate_table_columns(table.columns, cohort)
             table = table[[c["id"] for c in columns]]
@@ -158,9 +150,7 @@ def register(app, context: AppContext) -> None:
         _skip_if_same(key, last)
 
         def make():
-            frame = wb_call("subject_lines", data, roles, settings)
-            summ = wb_call("summaries", data, roles, settings)
-            cohort = wb_call("cohort", data, roles, settings)
+            frame, summ, cohort = summary_inputs(data, roles, settings)
             return (draw.visits(frame, cohort=cohort, highlight_subject=subject,
                                 highlight_stratum=stratum),
                     draw.dropout(summ.dropout, cohort=cohort, highlight_stratum=stratum))
@@ -186,6 +176,22 @@ def rate_table_columns(present, cohort) -> list[dict]:
     ]
     have = set(present)
     return [{"name": list(name), "id": col} for col, name in spec if col in have]
+
+
+def _figure_and_note_view(app, context: AppContext, *, view: str, stage: str, graph: str,
+                          note: str, msg: str, build, what: str) -> None:
+    """Register a view drawn from the stores alone: one figure plus a note under it.
+
+    ``build(data, roles, settings)`` returns (figure, note); the view redraws only when
+    the settings of ``stage`` (or the data/roles) change.
+    """
+    @app.callback(Output(graph, "figure"), Output(note, "children"), Output(msg, "children"),
+                  Output(ids.VIEW_RENDERED[view], "data"),
+                  *STORES, State(ids.VIEW_RENDERED[view], "data"))
+    def _view(data, roles, settings, last):
+        key = render_key(context, stage, data, roles, settings)
+        _skip_if_same(key, last)
+        return _finish(lambda: build(data, roles, settings), what, key, ("fig", "text"))
 
 
 def _finish(make, what: str, key: str, shape: tuple[str, ...]):
