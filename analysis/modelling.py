@@ -12,6 +12,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
+from .jsonsafe import json_safe
 from .compare import LRTResult, comparison_table, likelihood_ratio, nested_pairs
 from .effects import InteractionSummary, interaction_summary
 from .errors import CohortError, ModelError
@@ -136,7 +137,7 @@ class ModelSet:
             j["error"] = None
             models.append(j)
         comp = self.comparison.to_dict("records")
-        return _json_safe({
+        return json_safe({
             "models": models,
             "comparison": comp,
             "comparison_warning": self.comparison.attrs.get("warning"),
@@ -325,24 +326,3 @@ def _display(col: str, cohort) -> str:
     if col == COVARIATE_COLUMN:
         return f"'{getattr(cohort, 'covariate', None) or col}'"
     return f"'{col}'"
-
-
-def _json_safe(obj):
-    if isinstance(obj, dict):
-        return {str(k): _json_safe(v) for k, v in obj.items()}
-    if isinstance(obj, (list, tuple)):
-        return [_json_safe(v) for v in obj]
-    if isinstance(obj, np.ndarray):
-        return [_json_safe(v) for v in obj.tolist()]
-    if isinstance(obj, (bool, np.bool_)):
-        return bool(obj)
-    if isinstance(obj, (int, np.integer)):
-        return int(obj)
-    if isinstance(obj, (float, np.floating)):
-        v = float(obj)
-        return v if np.isfinite(v) else None
-    if obj is None or isinstance(obj, str):
-        return obj
-    if obj is pd.NA or obj is pd.NaT:
-        return None
-    return str(obj)

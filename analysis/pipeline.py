@@ -29,6 +29,7 @@ from typing import Any, Callable
 import numpy as np
 import pandas as pd
 
+from .jsonsafe import json_safe
 from .loading import Dataset
 from .prepare import CohortSelection, PreparedCohort, select_cohort, stratify
 from .settings import STAGE_FIELDS, Roles, Settings
@@ -94,7 +95,7 @@ class Exploration:
         """Plain JSON-ready dict (the ``cohortlens summarize`` output; schema in README)."""
         c = self.cohort
         lines = self.subject_lines
-        return _json_safe({
+        return json_safe({
             "settings": c.settings.to_dict(),
             "roles": c.roles.to_dict(),
             "cohort": {
@@ -287,30 +288,3 @@ class Workbench:
 def explore(df: pd.DataFrame, roles: Roles, settings: Settings) -> Exploration:
     """One-off exploratory analysis of a DataFrame (no cache kept)."""
     return Workbench(max_entries=32).explore(Dataset.from_frame(df), roles, settings)
-
-
-def _json_safe(obj):
-    """Recursively turn numpy scalars/arrays into Python types and NaN/inf into None."""
-    if isinstance(obj, dict):
-        return {str(k): _json_safe(v) for k, v in obj.items()}
-    if isinstance(obj, (list, tuple)):
-        return [_json_safe(v) for v in obj]
-    if isinstance(obj, np.ndarray):
-        return [_json_safe(v) for v in obj.tolist()]
-    if isinstance(obj, (np.bool_, bool)):
-        return bool(obj)
-    if isinstance(obj, (np.integer,)):
-        return int(obj)
-    if isinstance(obj, (float, np.floating)):
-        f = float(obj)
-        return f if np.isfinite(f) else None
-    if obj is None or isinstance(obj, (str, int)):
-        return obj
-    if obj is pd.NA or obj is pd.NaT:
-        return None
-    if isinstance(obj, pd.Timestamp):
-        return obj.isoformat()
-    return str(obj)
-
-
-json_safe = _json_safe

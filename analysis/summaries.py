@@ -63,10 +63,7 @@ def stratum_table(panel: Panel, strata: Strata, covariate_raw, slopes) -> pd.Dat
     slope = _per_subject(slopes, m, "slopes")
     codes = _check_codes(strata, m)
     visits = panel.counts.astype(float)
-    groups = [(j, lab, codes == j) for j, lab in enumerate(strata.labels)]
-    if np.any(codes == -1):
-        groups.append((-1, MISSING_LABEL, codes == -1))
-    groups.append((ALL_CODE, ALL_LABEL, np.ones(m, dtype=bool)))
+    groups = _groups(strata, codes)
     rows = []
     for code, label, sel in groups:
         c, v, s = cov[sel], visits[sel], slope[sel]
@@ -230,10 +227,7 @@ def dropout_summary(panel: Panel, strata: Strata, *, horizon: float | None = Non
     subjects = pd.DataFrame({"subject": ids, "stratum": codes, "last_time": last_time,
                              "last_response": last_y, "left_early": left})
 
-    groups = [(j, lab, codes == j) for j, lab in enumerate(strata.labels)]
-    if np.any(codes == -1):
-        groups.append((-1, MISSING_LABEL, codes == -1))
-    groups.append((ALL_CODE, ALL_LABEL, np.ones(m, dtype=bool)))
+    groups = _groups(strata, codes)
     rows = []
     for code, label, sel in groups:
         for name, which in ((LEFT_EARLY, left), (FOLLOWED, ~left)):
@@ -277,6 +271,15 @@ def _per_subject(values, m: int, what: str) -> np.ndarray:
     if v.shape != (m,):
         raise DataError(f"{what} has {v.size} values, expected one per subject ({m})")
     return v
+
+
+def _groups(strata, codes: np.ndarray) -> list[tuple[int, str, np.ndarray]]:
+    """(code, label, subject mask) per stratum, then "No value" if any, then all subjects."""
+    groups = [(j, lab, codes == j) for j, lab in enumerate(strata.labels)]
+    if np.any(codes == -1):
+        groups.append((-1, MISSING_LABEL, codes == -1))
+    groups.append((ALL_CODE, ALL_LABEL, np.ones(codes.size, dtype=bool)))
+    return groups
 
 
 def _check_codes(strata: Strata, m: int) -> np.ndarray:

@@ -235,7 +235,7 @@ def cmd_summarize(args) -> int:
 def cmd_fit(args) -> int:
     from analysis.mean_model import MeanModel
     from analysis.modelling import DEFAULT_CANDIDATES, fit_candidates
-    from analysis.pipeline import json_safe
+    from analysis.jsonsafe import json_safe
     from analysis.prepare import prepare
 
     data, roles, settings = resolve(args)
