@@ -13,7 +13,7 @@ import numpy as np
 import pandas as pd
 
 from .jsonsafe import json_safe
-from .compare import LRTResult, comparison_table, likelihood_ratio, nested_pairs
+from .compare import comparison_table, likelihood_ratio, nested_pairs
 from .effects import InteractionSummary, interaction_summary
 from .errors import CohortError, ModelError
 from .gee import WORKING, GEEFit, gee_fit

@@ -8,7 +8,6 @@ from __future__ import annotations
 
 from dataclasses import fields
 
-from analysis import options as opt
 from analysis.errors import CohortError
 from analysis.settings import Roles, Settings
 

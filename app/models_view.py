@@ -263,7 +263,7 @@ def summary_children(models, *, unit: str) -> list:
                       "backgroundColor": "#eef4fb"}]
     out = [effect_block(models),
            html.H3("Comparing working covariance structures"),
-           html.P(models.mean.describe(f"the primary covariate (x)") +
+           html.P(models.mean.describe("the primary covariate (x)") +
                   f" {models.n_subjects:,} subjects, {models.n_obs:,} visits.", className="cl-note"),
            datatable(t.comparison, style_data_conditional=preferred_row),
            *[html.P("At the boundary — " + n, className="cl-caveat") for n in t.boundary_notes],

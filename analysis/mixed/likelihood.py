@@ -210,7 +210,6 @@ def _gradient(groups, spec, comp, correlation, reml, M, Vinvs, avecs, Bs):
     the full stacks σ²R and σ²∂R/∂log φ.
     """
     q = spec.n_random
-    p = M.shape[0]
     Minv = np.linalg.inv(M) if reml else None
     W = np.zeros((q, q))
     err = 0.0
