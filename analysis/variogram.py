@@ -375,7 +375,12 @@ class _LagTally:
     def add(self, u: np.ndarray, v: np.ndarray) -> bool:
         near, matched = self._nearest(u)
         if not matched.all():
-            new, _ = merge_close(u[~matched], scale=self.scale)
+            fresh = u[~matched]
+            # cheap early exit for irregular visits: a short head already has too many lags
+            head, _ = merge_close(fresh[:4 * self.limit + 4], scale=self.scale)
+            if self.lags.size + head.size > self.limit:
+                return False
+            new, _ = merge_close(fresh, scale=self.scale)
             if self.lags.size + new.size > self.limit:
                 return False
             lags = np.concatenate((self.lags, new))
