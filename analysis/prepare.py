@@ -303,8 +303,11 @@ def stratify(selection: CohortSelection, settings: Settings) -> PreparedCohort:
 
     Reads transform, center, stratify_by, strata_method, n_strata and breaks.
     A categorical stratifier's levels are the strata; a numeric one is cut by
-    ``strata_method`` on its original (untransformed) scale so that labels read
-    in the covariate's own units.
+    ``strata_method``. Equal-width groups of the primary covariate are cut on
+    the transformed scale (equal widths in log2 for ``transform="log2"``);
+    quantile groups are the same on any monotone scale, and custom breaks are
+    in the covariate's own units. Labels always read in the covariate's own
+    units. A stratifier other than the primary covariate is not transformed.
     """
     base = selection.baseline.copy()
     warnings = list(selection.warnings)
@@ -326,7 +329,8 @@ def stratify(selection: CohortSelection, settings: Settings) -> PreparedCohort:
         strata = categorical_strata(np.array(["All subjects"] * m, dtype=object), name="all subjects")
     elif selection.covariate_kinds[by] == "numeric":
         strata = cut_strata(base[by].to_numpy(float), method=settings.strata_method,
-                            n=settings.n_strata, breaks=settings.breaks, name=by)
+                            n=settings.n_strata, breaks=settings.breaks, name=by,
+                            transform=settings.transform if by == primary else "none")
     else:
         strata = categorical_strata(base[by].to_numpy(object), name=by)
     labels = np.asarray(tuple(strata.labels) + ("No value",), dtype=object)

@@ -185,7 +185,7 @@ def center_values(x, center, *, name: str = "covariate") -> tuple[np.ndarray, fl
 
 
 def cut_strata(values, *, method: str, n: int = 4, breaks=(), name: str = "covariate",
-               unit_label: str = "") -> Strata:
+               unit_label: str = "", transform: str = "none") -> Strata:
     """Cut a numeric per-subject covariate into ordered strata.
 
     Parameters
@@ -193,12 +193,15 @@ def cut_strata(values, *, method: str, n: int = 4, breaks=(), name: str = "covar
     values : array_like of float (n_subjects,)
         Covariate value per subject; NaN = missing (stratum -1).
     method : {"equal-width", "quantile", "custom"}, keyword-only
-        ``"equal-width"``: edges ``linspace(min, max, n+1)``.
+        ``"equal-width"``: edges ``linspace(min, max, n+1)`` on the scale of
+        ``transform`` (equal widths in log2 for ``"log2"``), reported back in
+        the covariate's own units.
         ``"quantile"``: edges ``quantile(values, linspace(0, 1, n+1))``
         (linear interpolation, as ``np.quantile``); duplicate edges are merged
         and a note says so.
         ``"custom"``: edges ``(min, *breaks, max)``; every break must lie
-        strictly between the smallest and largest observed value.
+        strictly between the smallest and largest observed value. Breaks are
+        given in the covariate's own units whatever the transform.
     n : int
         Number of strata for equal-width and quantile cuts (>= 1).
     breaks : sequence of float
@@ -207,6 +210,10 @@ def cut_strata(values, *, method: str, n: int = 4, breaks=(), name: str = "covar
         Covariate name (used in labels' notes and error messages).
     unit_label : str
         Appended to each label, e.g. ``"mg/g"``.
+    transform : {"none", "log", "log2", "log10"}
+        Scale on which equal-width strata are cut. Quantile strata are the
+        same on any monotone scale and custom breaks are in the own units, so
+        it changes only ``"equal-width"``.
 
     Returns
     -------
@@ -222,6 +229,8 @@ def cut_strata(values, *, method: str, n: int = 4, breaks=(), name: str = "covar
         raise SettingsError(f"strata_method == {method!r}, must be one of {list(opt.STRATA_METHODS)}")
     if isinstance(n, bool) or not isinstance(n, (int, np.integer)) or n < 1:
         raise SettingsError(f"n_strata == {n!r}, must be an integer >= 1")
+    if transform not in opt.TRANSFORMS:
+        raise SettingsError(f"transform == {transform!r}, must be one of {list(opt.TRANSFORMS)}")
     v = np.asarray(values, dtype=float)
     if v.ndim != 1:
         raise DataError(f"'{name}': expected one value per subject (1-D), got shape {v.shape}",
@@ -233,7 +242,15 @@ def cut_strata(values, *, method: str, n: int = 4, breaks=(), name: str = "covar
         raise DataError(f"'{name}' has infinite values; expected finite numbers", column=name)
     lo, hi = float(v[ok].min()), float(v[ok].max())
     notes: list[str] = []
-    if method == "equal-width":
+    # membership is decided on the scale the edges were cut on (cut_v vs cut_edges);
+    # ``edges`` are the same cut points in the covariate's own units, for labels
+    cut_v = v
+    if method == "equal-width" and transform != "none":
+        cut_v = transform_values(v, transform, name=name)
+        cut_edges = np.linspace(float(cut_v[ok].min()), float(cut_v[ok].max()), int(n) + 1)
+        edges = _untransform(cut_edges, transform)
+        edges[0], edges[-1] = lo, hi
+    elif method == "equal-width":
         edges = np.linspace(lo, hi, int(n) + 1)
     elif method == "quantile":
         edges = np.quantile(v[ok], np.linspace(0.0, 1.0, int(n) + 1))
@@ -252,21 +269,24 @@ def cut_strata(values, *, method: str, n: int = 4, breaks=(), name: str = "covar
                 )
         edges = np.concatenate(([lo], b, [hi]))
     edges = edges.astype(float)
+    if cut_v is v:
+        cut_edges = edges
     if lo == hi:
-        edges = np.array([lo, hi])
+        edges = cut_edges = np.array([lo, hi])
+        cut_v = v
         notes.append(f"'{name}' has a single value ({_compact(lo, 6)}), so there is one stratum")
     else:
-        unique = np.unique(edges)
+        unique, first = np.unique(cut_edges, return_index=True)
         if unique.size < edges.size:
             k = unique.size - 1
             notes.append(
                 f"asked for {edges.size - 1} strata of '{name}' but tied values leave only "
                 f"{k} distinct cut ranges; using {k} strata"
             )
-        edges = unique
+        edges, cut_edges = edges[first], unique
     k = edges.size - 1
     codes = np.full(v.shape, -1, dtype=np.int64)
-    codes[ok] = np.clip(np.searchsorted(edges, v[ok], side="right") - 1, 0, k - 1)
+    codes[ok] = np.clip(np.searchsorted(cut_edges, cut_v[ok], side="right") - 1, 0, k - 1)
     labels = _range_labels(edges, unit_label)
     counts = np.bincount(codes[ok], minlength=k)
     for j in np.flatnonzero(counts == 0):
@@ -313,6 +333,11 @@ def categorical_strata(values, *, name: str) -> Strata:
                   if c == 0)
     return Strata(codes=codes, labels=labels, edges=None, kind="categorical", name=name,
                   notes=notes)
+
+
+def _untransform(t: np.ndarray, transform: str) -> np.ndarray:
+    """Inverse of :func:`transform_values` for a log transform."""
+    return {"log": np.exp, "log2": np.exp2, "log10": lambda a: np.power(10.0, a)}[transform](t)
 
 
 # --------------------------------------------------------------------------- labels

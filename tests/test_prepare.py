@@ -190,6 +190,20 @@ def test_prepare_strata_and_transform():
     assert len(long) == c.panel.n_obs
 
 
+def test_equal_width_strata_of_the_primary_covariate_use_its_transform():
+    df = cohort_frame()
+    c = prepare(df, ROLES, settings(covariate="marker", transform="log2", n_strata=3,
+                                    strata_method="equal-width"))
+    raw = c.baseline["marker"].to_numpy(float)
+    ok = raw[~np.isnan(raw)]
+    # reference: numpy linspace on np.log2 of the baseline values, membership by np.digitize
+    edges = np.linspace(np.log2(ok).min(), np.log2(ok).max(), 4)
+    want = np.where(np.isnan(raw), -1,
+                    np.clip(np.digitize(np.log2(np.where(np.isnan(raw), 1, raw)), edges) - 1, 0, 2))
+    np.testing.assert_array_equal(c.baseline["stratum"].to_numpy(), want)
+    np.testing.assert_allclose(np.log2(c.strata.edges), edges, rtol=1e-12, atol=1e-12)
+
+
 def test_categorical_stratifier_uses_levels():
     c = prepare(cohort_frame(), ROLES, settings(stratify_by="centre"))
     assert tuple(c.strata.labels) == ("A", "B")

@@ -57,6 +57,50 @@ def test_equal_width_edges_match_linspace():
     assert all(lab.endswith(" mg/g") for lab in s.labels)
 
 
+@pytest.mark.parametrize("transform,fn,inv", [("log2", np.log2, np.exp2),
+                                               ("log", np.log, np.exp),
+                                               ("log10", np.log10, lambda a: 10.0 ** a)])
+def test_equal_width_on_a_log_scale_has_equal_log_widths(transform, fn, inv):
+    rng = np.random.default_rng(5)
+    v = rng.lognormal(2.0, 1.0, 400)
+    v[[3, 9]] = np.nan
+    s = cut_strata(v, method="equal-width", n=4, name="acr", unit_label="mg/g",
+                   transform=transform)
+    ok = v[~np.isnan(v)]
+    # reference: numpy linspace on np.log2 (etc.) of the values, computed here independently
+    ref = np.linspace(fn(ok).min(), fn(ok).max(), 5)
+    np.testing.assert_allclose(fn(s.edges), ref, rtol=1e-12, atol=1e-12)
+    np.testing.assert_allclose(np.diff(fn(s.edges)), np.diff(ref)[0], rtol=1e-9)
+    # edges in the covariate's own units: the ends are the observed extremes
+    assert s.edges[0] == ok.min() and s.edges[-1] == ok.max()
+    np.testing.assert_allclose(s.edges, inv(ref), rtol=1e-12)
+    # reference: brute-force membership of the log values in the log-scale intervals
+    np.testing.assert_array_equal(s.codes, brute_codes(fn(v), ref))
+    # labels print the range in mg/g (the raw extremes), not in log units
+    lo_text = s.labels[0].split(" – ")[0]
+    assert float(lo_text) == pytest.approx(ok.min(), rel=0.05)
+    assert s.labels[-1].endswith(" mg/g")
+    # raw-scale cut differs (reference: numpy linspace on the raw values)
+    raw = cut_strata(v, method="equal-width", n=4, name="acr")
+    np.testing.assert_allclose(raw.edges, np.linspace(ok.min(), ok.max(), 5), rtol=1e-12)
+    assert not np.array_equal(raw.codes, s.codes)
+
+
+def test_transform_leaves_quantile_and_custom_strata_unchanged():
+    # reference: the untransformed cut of the same values (a monotone transform keeps the
+    # order, and custom breaks are given in the covariate's own units)
+    rng = np.random.default_rng(6)
+    v = rng.lognormal(1.0, 0.7, 200)
+    for method, kw in (("quantile", {"n": 4}), ("custom", {"breaks": (2.0, 4.0)})):
+        a = cut_strata(v, method=method, name="x", **kw)
+        b = cut_strata(v, method=method, name="x", transform="log2", **kw)
+        np.testing.assert_array_equal(a.codes, b.codes)
+        np.testing.assert_array_equal(a.edges, b.edges)
+        assert a.labels == b.labels
+    with pytest.raises(SettingsError, match="transform == 'sqrt'"):
+        cut_strata(v, method="quantile", transform="sqrt")
+
+
 def test_quantile_edges_and_codes_match_numpy_and_qcut():
     rng = np.random.default_rng(5)
     v = rng.lognormal(2.0, 0.7, 102)  # (102-1)*j/4 not an integer: no edge equals a data value
