@@ -28,6 +28,11 @@ RANGE_SEP = " – "
 MINUS = "−"
 #: label of the stratum of subjects without a covariate value (code -1)
 MISSING_LABEL = "No value"
+#: a group with fewer subjects than this is flagged as small (common practice, not a
+#: statistical rule: means, spreads and curves of under ~10 subjects are unstable)
+SMALL_GROUP_SUBJECTS = 10
+#: a group holding a smaller share of the subjects than this is flagged too (common practice)
+SMALL_GROUP_SHARE = 0.05
 
 
 @dataclass(frozen=True, eq=False)
@@ -49,7 +54,7 @@ class Strata:
         Name of the covariate that was cut.
     notes : tuple of str
         Plain-language remarks for the user (collapsed quantile edges,
-        empty strata, a covariate with a single value).
+        empty strata, a covariate with a single value, small groups).
     """
 
     codes: np.ndarray
@@ -291,6 +296,7 @@ def cut_strata(values, *, method: str, n: int = 4, breaks=(), name: str = "covar
     counts = np.bincount(codes[ok], minlength=k)
     for j in np.flatnonzero(counts == 0):
         notes.append(f"stratum {labels[j]} of '{name}' has no subjects")
+    notes.extend(small_group_notes(counts, labels, name=name, n_subjects=v.size))
     return Strata(codes=codes, labels=labels, edges=edges, kind="numeric", name=name,
                   notes=tuple(notes))
 
@@ -328,9 +334,10 @@ def categorical_strata(values, *, name: str) -> Strata:
     for i in np.flatnonzero(~miss):  # dictionary lookup per subject; no estimator here
         codes[i] = index[raw[i]]
     labels = tuple(str(lev) for lev in levels)
+    counts = np.bincount(codes[codes >= 0], minlength=len(labels))
     notes = tuple(f"level '{lab}' of '{name}' has no subjects"
-                  for lab, c in zip(labels, np.bincount(codes[codes >= 0], minlength=len(labels)))
-                  if c == 0)
+                  for lab, c in zip(labels, counts) if c == 0)
+    notes += small_group_notes(counts, labels, name=name, n_subjects=len(s))
     return Strata(codes=codes, labels=labels, edges=None, kind="categorical", name=name,
                   notes=notes)
 
@@ -338,6 +345,50 @@ def categorical_strata(values, *, name: str) -> Strata:
 def _untransform(t: np.ndarray, transform: str) -> np.ndarray:
     """Inverse of :func:`transform_values` for a log transform."""
     return {"log": np.exp, "log2": np.exp2, "log10": lambda a: np.power(10.0, a)}[transform](t)
+
+
+def small_groups(counts, n_subjects: int) -> np.ndarray:
+    """Indices of groups that are small: 1 or more subjects but fewer than
+    :data:`SMALL_GROUP_SUBJECTS`, or under :data:`SMALL_GROUP_SHARE` of ``n_subjects``.
+
+    Both thresholds are common practice, not statistical rules. A single group
+    (no split) is never flagged, and empty groups have their own note.
+    """
+    c = np.asarray(counts, dtype=np.int64)
+    if c.size < 2 or n_subjects <= 0:
+        return np.empty(0, dtype=np.int64)
+    small = (c < SMALL_GROUP_SUBJECTS) | (c < SMALL_GROUP_SHARE * n_subjects)
+    return np.flatnonzero(small & (c > 0))
+
+
+def small_group_notes(counts, labels, *, name: str, n_subjects: int) -> tuple[str, ...]:
+    """One warning per small group (see :func:`small_groups`), in plain words.
+
+    Parameters
+    ----------
+    counts : int array (k,)
+        Subjects per group.
+    labels : sequence of str (k,)
+    name : str, keyword-only
+        Stratifier name.
+    n_subjects : int
+        Subjects in the cohort (with or without a value), the base of the share.
+    """
+    out = []
+    for j in small_groups(counts, n_subjects):
+        n = int(counts[j])
+        share = 100.0 * n / n_subjects
+        out.append(f"group {labels[j]} of '{name}' has only {n} subject{'s' if n != 1 else ''} "
+                   f"({share:.3g}% of {n_subjects:,}); its summaries and mean curve rest on few "
+                   f"subjects (small: under {SMALL_GROUP_SUBJECTS} subjects or under "
+                   f"{SMALL_GROUP_SHARE:.0%} of the cohort); consider fewer groups")
+    return tuple(out)
+
+
+def small_strata_notes(strata: Strata) -> tuple[str, ...]:
+    """:func:`small_group_notes` of a :class:`Strata` (for showing beside the group controls)."""
+    return small_group_notes(strata.counts, strata.labels, name=strata.name,
+                             n_subjects=int(strata.codes.size))
 
 
 # --------------------------------------------------------------------------- labels

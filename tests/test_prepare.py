@@ -255,3 +255,17 @@ def test_a_filtered_table_with_gaps_in_its_index_gives_the_same_cohort():
     assert list(b.subject_ids) == list(a.subject_ids)
     np.testing.assert_array_equal(b.panel.time, a.panel.time)
     np.testing.assert_array_equal(b.panel.y, a.panel.y)
+
+
+def test_small_groups_reach_the_cohort_warnings_and_the_report():
+    from analysis.report import build_report
+
+    c = prepare(cohort_frame(), ROLES, settings(stratify_by="centre"))
+    # reference: an independent pandas count of subjects per centre (12 subjects, 6 per centre,
+    # each under 10 -- the common-practice threshold)
+    per = cohort_frame().groupby("centre")["pid"].nunique()
+    small = [w for w in c.warnings if "has only" in w]
+    assert [w.split(" has only ")[1].split(" ")[0] for w in small] == [str(n) for n in per]
+    text = build_report(c)
+    for w in small:
+        assert w.replace("'", "&#x27;") in text

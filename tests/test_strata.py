@@ -232,3 +232,40 @@ def test_centring_matches_pandas():
         center_values(x, "mode")
     with pytest.raises(DataError, match="no values"):
         center_values(np.array([np.nan]), "median", name="acr")
+
+
+# -- small groups (thresholds are common practice: under 10 subjects or under 5% of the cohort)
+def test_small_categorical_levels_are_flagged():
+    v = np.array(["A"] * 230 + ["B"] * 7 + ["C"] * 12 + [None] * 1, dtype=object)
+    s = categorical_strata(v, name="centre")
+    # reference: pandas value_counts of the same levels; B has 7 < 10, C has 12 of 250 = 4.8% < 5%
+    counts = pd.Series(v).value_counts()
+    assert counts["B"] < 10 and counts["C"] / len(v) < 0.05 and counts["A"] >= 10
+    small = [n for n in s.notes if "has only" in n]
+    assert len(small) == 2
+    assert small[0].startswith(f"group B of 'centre' has only {counts['B']} subjects")
+    assert small[1].startswith(f"group C of 'centre' has only {counts['C']} subjects")
+    assert f"{100 * counts['C'] / len(v):.3g}% of {len(v)}" in small[1]
+
+
+def test_groups_at_the_thresholds_are_not_flagged():
+    # 10 subjects of 200 is exactly 5%: neither under 10 nor under 5% (hand count)
+    v = np.array(["A"] * 190 + ["B"] * 10, dtype=object)
+    assert categorical_strata(v, name="g").notes == ()
+    # a single group (no split) is never flagged, however small
+    assert cut_strata(np.array([1.0, 1.0, 1.0]), method="quantile", n=2).notes[-1].endswith(
+        "one stratum")
+    assert not any("has only" in n for n in
+                   categorical_strata(np.array(["A"] * 3, dtype=object), name="g").notes)
+
+
+def test_small_numeric_group_is_flagged_and_empty_group_keeps_its_own_note():
+    rng = np.random.default_rng(8)
+    v = np.r_[rng.uniform(0, 10, 60), 40.0]          # one outlier alone in the top group
+    s = cut_strata(v, method="equal-width", n=4, name="acr")
+    # reference: numpy histogram over the reported edges (brute count per group)
+    counts = np.histogram(v, bins=s.edges)[0]
+    assert counts[-1] == 1 and counts[1] == counts[2] == 0
+    small = [n for n in s.notes if "has only" in n]
+    assert len(small) == 1 and small[0].startswith(f"group {s.labels[-1]} of 'acr' has only 1 subject ")
+    assert sum("has no subjects" in n for n in s.notes) == 2
