@@ -385,12 +385,6 @@ def small_group_notes(counts, labels, *, name: str, n_subjects: int) -> tuple[st
     return tuple(out)
 
 
-def small_strata_notes(strata: Strata) -> tuple[str, ...]:
-    """:func:`small_group_notes` of a :class:`Strata` (for showing beside the group controls)."""
-    return small_group_notes(strata.counts, strata.labels, name=strata.name,
-                             n_subjects=int(strata.codes.size))
-
-
 # --------------------------------------------------------------------------- labels
 def _compact(x: float, sig: int = 3) -> str:
     """Short number: up to ``sig`` significant digits, no trailing zeros, true minus sign."""

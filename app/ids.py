@@ -44,6 +44,7 @@ SETTINGS_RESET = "settings-reset"
 # -- attrition -----------------------------------------------------------------
 KEPT_TABLE = "kept-table"
 KEPT_NOTES = "kept-notes"
+STRATA_SIZE_NOTE = "strata-size-note"   # small-group warning beside the group controls
 
 # -- stratum chips and the selected-subject card ---------------------------------
 LINK_STRATA = "link-strata"

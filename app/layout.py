@@ -229,6 +229,7 @@ def settings_panel(settings: Settings) -> html.Div:
                   value=v["strata_method"], className="cl-radio"), M["strata_method"]),
               field(lab["n_strata"], number(S["n_strata"], v["n_strata"], step=1, min_=1),
                     M["n_strata"]),
+              html.Div(id=ids.STRATA_SIZE_NOTE, className="cl-warn-note", role="status"),
               field(lab["breaks"], dcc.Input(id=S["breaks"], type="text", value=v["breaks"],
                                              debounce=True, placeholder="e.g. 10, 20, 40",
                                              className="cl-input"),

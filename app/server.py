@@ -18,6 +18,7 @@ from dash.dash_table.Format import Format
 from analysis.loading import Dataset, read_table
 from analysis.pipeline import Workbench
 from analysis.settings import Roles, Settings
+from analysis.strata import SMALL_GROUP_SHARE, SMALL_GROUP_SUBJECTS, small_groups
 
 from . import controls as ctl
 from . import hub, ids, models_view, palette, views
@@ -93,12 +94,13 @@ def _register_panels(app, context: AppContext) -> None:
                     role_msgs={r: Output(ids.ROLE_MSG[r], "children") for r in ids.ROLE_FIELDS},
                     settings_msg=Output(ids.SETTINGS_DATA_MSG, "children"),
                     status=Output(ids.ROLES_STATUS, "children"),
-                    chips=Output(ids.LINK_STRATA, "options")),
+                    chips=Output(ids.LINK_STRATA, "options"),
+                    size_note=Output(ids.STRATA_SIZE_NOTE, "children")),
         inputs=dict(data=Input(ids.STORE_DATA, "data"), roles=Input(ids.STORE_ROLES, "data"),
                     settings=Input(ids.STORE_SETTINGS, "data")))
     def cohort_panel(data, roles, settings):
         out = dict(table=[], cols=[], notes=[], settings_msg="", status="", chips=[],
-                   role_msgs={r: "" for r in ids.ROLE_FIELDS})
+                   size_note="", role_msgs={r: "" for r in ids.ROLE_FIELDS})
         problems = (roles or {}).get("problems") or {}
         if problems:
             out["role_msgs"].update(problems)
@@ -126,6 +128,7 @@ def _register_panels(app, context: AppContext) -> None:
             ("observations_removed", "Visits removed"))]
         out["notes"] = [html.Li(w) for w in cohort.warnings]
         out["chips"] = stratum_chips(cohort)
+        out["size_note"] = small_group_note(cohort)
         out["status"] = (f"{cohort.panel.n_subjects:,} subjects and {cohort.panel.n_obs:,} visits "
                          f"are analysed. Time: {cohort.time_label}.")
         return out
@@ -177,6 +180,18 @@ def stratum_chips(cohort) -> list[dict]:
         out.append({"label": f"{palette.NO_VALUE_LABEL} (n={int((codes < 0).sum()):,})",
                     "value": palette.NO_VALUE_LABEL})
     return out
+
+
+def small_group_note(cohort) -> str:
+    """One short line naming the small groups (see :func:`analysis.strata.small_groups`), or ""."""
+    s = cohort.strata
+    counts = s.counts
+    small = small_groups(counts, int(s.codes.size))
+    if small.size == 0:
+        return ""
+    names = ", ".join(f"{s.labels[j]} (n={int(counts[j]):,})" for j in small)
+    return (f"Small group{'s' if small.size > 1 else ''}: {names}. Under {SMALL_GROUP_SUBJECTS} "
+            f"subjects or {SMALL_GROUP_SHARE:.0%} of the cohort; consider fewer groups.")
 
 
 def _card(context, data, roles, settings, subject):
