@@ -245,6 +245,17 @@ def test_each_control_redraws_only_its_views(server_url, page, artifacts):
     wait_chips(page, reference_counts(ref.cohort))
     chips1 = chip_counts(page)
     assert chips1 == reference_counts(ref.cohort) and chips1 != chips0
+    # equal log2 widths leave a small group: the note beside the group controls names it
+    # (reference: the analysis layer's cohort counted independently above)
+    note = page.locator(f"#{ids.STRATA_SIZE_NOTE}")
+    small = {lab: n for lab, n in reference_counts(ref.cohort).items()
+             if lab != "No value" and (n < 10 or n < 0.05 * ref.cohort.panel.n_subjects)}
+    assert small
+    page.wait_for_function("(id) => document.getElementById(id).innerText.trim() !== ''",
+                           arg=ids.STRATA_SIZE_NOTE, timeout=TIMEOUT)
+    for lab, n in small.items():
+        assert f"{lab} (n={n:,})" in note.inner_text()
+    shot(page, artifacts, "control-small-group-note", f"#{ids.STRATA_SIZE_NOTE}")
     # the course panels are titled by group with its subject count
     page.wait_for_function(
         "(want) => { const el = document.querySelector('#course-graph .js-plotly-plot');"
