@@ -291,7 +291,7 @@ def test_everything_changed_at_once_survives_the_link():
     base = demo_settings()
     settings = Settings(**ALTERNATES)
     roles = Roles(subject="Pt #", time="Visit dt", response="eGFR value (mL/min)",
-                  covariates=("a&b", "c=d"), event_date="tx day")
+                  covariates=("a&b", "c=d"), event_date="tx day", followup_end="fu end")
     view = {"draw": 12, "seed": 7, "order": "intercept"}
     query = urlstate.encode(data_key="abc123", roles=roles, settings=settings, base=base,
                             view=view, subject="R-0042 / x", stratum="(1.5, 3] mg")
