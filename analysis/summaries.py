@@ -129,8 +129,8 @@ LAST_VISIT = "last visit"
 OVERDUE_GAPS = 2.0
 #: two-sided level of the retention band
 BAND_LEVEL = 0.95
-BAND_METHOD = ("95% pointwise band: Greenwood variance on the log(−log) scale "
-               "(Kalbfleisch & Prentice)")
+BAND_METHOD = ("95% pointwise band from Greenwood's variance on the log(−log) scale, "
+               "after Kalbfleisch & Prentice")
 RETENTION_COLUMNS = ("stratum", "label", "time", "retained", "lo", "hi", "at_risk", "left")
 
 

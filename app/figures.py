@@ -891,8 +891,8 @@ def dropout_figure(dropout, *, look: CohortLook, highlight_stratum=None) -> go.F
     unit = look.time_unit
     h_text = f"{dropout.horizon:.3g} {unit}".strip()
     left_title = ("Not yet left (Kaplan–Meier)" if dropout.classified
-                  else "Last visit at or after")
-    fig = make_subplots(rows=1, cols=2, column_widths=[0.6, 0.4], horizontal_spacing=0.17,
+                  else "Seen at or after each time")
+    fig = make_subplots(rows=1, cols=2, column_widths=[0.62, 0.38], horizontal_spacing=0.22,
                         subplot_titles=(left_title, f"{look.response} at the last visit"))
     for ann in fig.layout.annotations:
         ann.font = {"size": 15}
@@ -927,11 +927,12 @@ def dropout_figure(dropout, *, look: CohortLook, highlight_stratum=None) -> go.F
                            + ("not yet left" if dropout.classified else "seen at or after")
                            + " (95% band %{customdata[0]:.1%} to %{customdata[1]:.1%})"
                            "<br>%{customdata[2]} at risk<extra></extra>")), row=1, col=1)
-    fig.add_vline(x=dropout.horizon, line={"color": pal.REFERENCE_COLOR, "dash": "dot",
-                                           "width": 1.5}, row=1, col=1)
-    fig.add_annotation(x=dropout.horizon, y=1.0, xref="x", yref="y", showarrow=False,
-                       xanchor="right", yanchor="bottom", text=f"horizon {h_text}",
-                       font={"size": 13, "color": pal.REFERENCE_COLOR})
+    if dropout.classified:  # without statuses the horizon judges nothing
+        fig.add_vline(x=dropout.horizon, line={"color": pal.REFERENCE_COLOR, "dash": "dot",
+                                               "width": 1.5}, row=1, col=1)
+        fig.add_annotation(x=dropout.horizon, y=1.0, xref="x", yref="y", showarrow=False,
+                           xanchor="right", yanchor="bottom", text=f"horizon {h_text}",
+                           font={"size": 13, "color": pal.REFERENCE_COLOR})
     # right: mean response at the last visit ± 95% interval, one row per group
     tab = dropout.by_stratum
     groups = list(dict.fromkeys(tab["label"].astype(str)))
@@ -969,7 +970,8 @@ def dropout_figure(dropout, *, look: CohortLook, highlight_stratum=None) -> go.F
         subtitle = (f"{c['left_early']:,} left before {h_text} · {c['censored']:,} had not "
                     f"reached it when the data end · {c['complete']:,} followed to {h_text}")
     else:
-        subtitle = "Leaving early cannot be told apart from the end of the data (no dates)"
+        subtitle = ("Leaving early cannot be told apart from the end of the data "
+                    "(no calendar dates or follow-up end column)")
     _finish(fig, "Loss to follow-up, by group", subtitle=subtitle, bottom=130, top=100)
     lo_min = float(np.nanmin(ret["lo"])) if len(ret) else 0.0
     fig.update_xaxes(title_text=look.time_label, row=1, col=1, rangemode="tozero")

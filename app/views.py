@@ -166,8 +166,9 @@ def dropout_note(dropout, *, time_unit: str = "") -> list:
     out = [html.P([html.Strong("Follow-up: "), dropout.sentence(time_unit)])]
     if dropout.classified:
         out.append(html.P(f"Rule: {dropout.status_rule}. Curves: Kaplan–Meier share not yet "
-                          f"left ({BAND_METHOD}); subjects who did not leave count to their "
-                          "potential follow-up or the horizon.", className="cl-caveat"))
+                          f"left, with a {BAND_METHOD}; leaving counts at the last visit, and "
+                          "subjects who did not leave count to their potential follow-up or "
+                          "the horizon.", className="cl-caveat"))
     out += [html.P(n, className="cl-caveat") for n in dropout.notes]
     return out
 

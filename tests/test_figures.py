@@ -392,6 +392,22 @@ def test_dropout_retention_curves_and_last_visit_means(res):
                 assert m == pytest.approx(ref[(lab, early)])
 
 
+def test_dropout_without_potential_followup_shows_last_visits_only(res):
+    from analysis.summaries import dropout_summary
+
+    c, frame = res["cohort"], res["frame"]
+    d = dropout_summary(c.panel, c.strata, subject_ids=c.subject_ids)
+    fig = draw.dropout(d, cohort=c)
+    assert "cannot be told apart" in fig.layout.title.subtitle.text
+    assert fig.layout.yaxis.title.text == "share seen at or after"
+    assert not [a for a in fig.layout.annotations if a.text.startswith("horizon")]
+    tr = next(t for t in fig.data if t.name == "All subjects")
+    last = frame.groupby("subject")["time"].max().to_numpy()
+    # reference: brute force — share of subjects whose last visit is after x
+    for xv, yv in zip(np.asarray(tr.x)[1:], np.asarray(tr.y)[1:]):
+        assert yv == pytest.approx(np.mean(last > xv))
+
+
 # ----------------------------------------------------------------------- colours
 def test_group_colours_are_the_same_in_every_view_and_no_value_is_grey(loose):
     c = loose["cohort"]
