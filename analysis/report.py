@@ -408,7 +408,7 @@ def _dropout_html(d, unit: str) -> str:
     """Loss to follow-up: the counts per status in the page's words, the rule, the table."""
     from .summaries import BAND_METHOD, STATUSES
 
-    h = f"{d.horizon:.3g} {unit}"
+    h = d.horizon_text(unit)
     out = ["<h2>Visits and loss to follow-up</h2>", _p(d.sentence(unit))]
     if d.classified:
         names = {"left_early": f"left before {h}", "censored": f"had not reached {h}",

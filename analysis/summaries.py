@@ -194,9 +194,15 @@ class Dropout:
     def n_left_early(self) -> int:
         return int(self.subjects["left_early"].sum())
 
+    def horizon_text(self, time_unit: str = "") -> str:
+        """The horizon as the page and the report write it, e.g. '54 months'."""
+        h = self.horizon
+        num = f"{h:.3g}" if 1e-3 <= abs(h) < 1000 else f"{h:,.0f}"
+        return f"{num} {time_unit}".strip()
+
     def sentence(self, time_unit: str = "") -> str:
         """The counts per status in plain words (the page note and the report say the same)."""
-        h = f"{self.horizon:.3g} {time_unit}".strip()
+        h = self.horizon_text(time_unit)
         if not self.classified:
             return (f"Leaving early cannot be told apart from the end of the data: the time "
                     "column holds numbers and no follow-up end column is given, so the curve "

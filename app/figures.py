@@ -889,7 +889,7 @@ def dropout_figure(dropout, *, look: CohortLook, highlight_stratum=None) -> go.F
         each time and says that leaving cannot be told from the end of the data.
     """
     unit = look.time_unit
-    h_text = f"{dropout.horizon:.3g} {unit}".strip()
+    h_text = dropout.horizon_text(unit)
     left_title = ("Not yet left (Kaplan–Meier)" if dropout.classified
                   else "Seen at or after each time")
     fig = make_subplots(rows=1, cols=2, column_widths=[0.62, 0.38], horizontal_spacing=0.22,

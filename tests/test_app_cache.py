@@ -371,6 +371,7 @@ BAD_CONTROLS = [
     ({"strata_method": "custom", "breaks": "5, 2"}, "breaks", "increasing"),
     ({"breaks": "1, two"}, "breaks", "'two' is not a number"),
     ({"center": "value", "center_value": None}, "center", "value to centre"),
+    ({"data_cut": "30/06/2024"}, "data_cut", "YYYY-MM-DD"),
 ]
 
 

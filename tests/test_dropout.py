@@ -194,7 +194,7 @@ def test_followup_end_role_with_numbers():
 
 
 BAD = [
-    ({"end": [30] * 3 + [10, 11, 10] + [30] * 3}, "must be the same on every row"),
+    ({"end": [30] * 3 + [10, 11, 10] + [30] * 3}, "must be the same on every row.*rows 5, 6, 7"),
     ({"end": [30] * 3 + [None] * 3 + [30] * 3}, "empty for 1 subject"),
     ({"end": ["x"] + [30] * 8}, "must hold numbers"),
 ]
