@@ -13,7 +13,7 @@ Stages and the settings they read (see :data:`analysis.settings.STAGE_FIELDS`)::
     residuals     selection + detrending (+ strata when detrending within strata)
     variogram     residuals + bins, maximum lag
     lagcorr       residuals + window width
-    summaries     cohort
+    summaries     cohort + data cut (dropout view)
     models        cohort + the model choices (structures, correlation, REML/ML,
                   confounders, spline in time, GEE rows; see analysis.modelstage)
 """
@@ -152,7 +152,7 @@ class Workbench:
             "selection": sel,
             "subject_fits": sel,
             "cohort": sel + strata,
-            "summaries": sel + strata,
+            "summaries": sel + strata + STAGE_FIELDS["summaries"],
             "residuals": sel + res,
             "variogram": sel + res + STAGE_FIELDS["variogram"],
             "lagcorr": sel + res + STAGE_FIELDS["lagcorr"],
@@ -245,7 +245,7 @@ class Workbench:
         return self._memo("lagcorr", dataset, roles, settings, compute)
 
     def summaries(self, dataset: Dataset, roles: Roles, settings: Settings) -> Summaries:
-        from .summaries import dropout_summary, slope_covariate_smooth, stratum_table
+        from .summaries import cohort_dropout, slope_covariate_smooth, stratum_table
 
         def compute():
             cohort = self.cohort(dataset, roles, settings)
@@ -258,7 +258,7 @@ class Workbench:
             table = stratum_table(cohort.panel, cohort.strata, raw, slopes)
             smooth = (slope_covariate_smooth(raw, slopes) if numeric
                       else pd.DataFrame({"covariate": [], "slope_smooth": []}))
-            return Summaries(table, smooth, dropout_summary(cohort.panel, cohort.strata))
+            return Summaries(table, smooth, cohort_dropout(cohort, data_cut=settings.data_cut))
 
         return self._memo("summaries", dataset, roles, settings, compute)
 

@@ -57,6 +57,74 @@ class Attrition:
 
 
 @dataclass(frozen=True, eq=False)
+class FollowupBasis:
+    """Each subject's time origin and end of follow-up, in the time column's own scale.
+
+    The dropout view needs each subject's potential follow-up (origin to the end of the data)
+    to tell leaving early from not having reached a time yet; :meth:`potential` computes it.
+
+    Attributes
+    ----------
+    kind : str
+        'date' (scale: days since 1970-01-01) or 'number' (the time column's numbers).
+    origin : ndarray (n_subjects,)
+        Each subject's time origin on that scale (panel code order).
+    end : ndarray or None
+        Each subject's end of follow-up from the ``followup_end`` role (NaN where empty);
+        None without that role.
+    latest : float
+        The latest visit date in the file (dates only; NaN for numbers).
+    unit_days : float
+        Days per analysis time unit (dates only; 1.0 for numbers).
+    end_column : str or None
+        The ``followup_end`` column.
+    """
+
+    kind: str
+    origin: np.ndarray
+    end: np.ndarray | None
+    latest: float
+    unit_days: float
+    end_column: str | None = None
+
+    def potential(self, *, data_cut: str | None = None, time_max: float | None = None
+                  ) -> tuple[np.ndarray | None, str, tuple[str, ...]]:
+        """(potential follow-up per subject in the analysis unit or None, its source, notes).
+
+        Dates: from the origin to the data cut (``data_cut``, default the latest visit date
+        in the file), or to the subject's follow-up end when that is earlier. Numbers: to the
+        follow-up end; without that column it cannot be known (None). Capped at ``time_max``
+        (visits after it are not analysed).
+        """
+        notes: list[str] = []
+        if self.kind == "date":
+            chosen = data_cut is not None
+            cut = (_days(pd.Series(pd.to_datetime([data_cut])))[0] if chosen else self.latest)
+            cut_text = _day_text(cut) + (", as chosen" if chosen else
+                                         ", the latest visit date in the file")
+            if self.end is None:
+                end, source = np.full(self.origin.size, cut), f"data cut {cut_text}"
+            else:
+                end = np.fmin(self.end, cut)
+                source = (f"each subject's '{self.end_column}', or the data cut {cut_text}, "
+                          "if earlier")
+            pot = (end - self.origin) / self.unit_days
+        elif self.end is not None:
+            if data_cut is not None:
+                notes.append("The data cut applies to calendar dates only; the time column holds "
+                             f"numbers, so each subject's '{self.end_column}' is used.")
+            pot, source = self.end - self.origin, f"each subject's '{self.end_column}'"
+        else:
+            if data_cut is not None:
+                notes.append("The data cut applies to calendar dates only; the time column holds "
+                             "numbers.")
+            return None, "", tuple(notes)
+        if time_max is not None:
+            pot = np.minimum(pot, time_max)
+        return pot, source, tuple(notes)
+
+
+@dataclass(frozen=True, eq=False)
 class CohortSelection:
     """The included subjects and visits, before any covariate transform or stratification.
 
@@ -78,6 +146,8 @@ class CohortSelection:
         Problems that did not stop the analysis (e.g. a baseline covariate varying within subject).
     time_label : str
         Axis label for time, with its unit.
+    followup : FollowupBasis or None
+        Origin and end of follow-up per subject, for the dropout view.
     """
 
     panel: Panel
@@ -90,6 +160,7 @@ class CohortSelection:
     roles: Roles
     settings: Settings
     time_label: str
+    followup: FollowupBasis | None = None
 
 
 @dataclass(frozen=True, eq=False)
@@ -237,6 +308,10 @@ def select_cohort(df: pd.DataFrame, roles: Roles, settings: Settings) -> CohortS
         )
     if settings.origin == "event-date":
         work["event"] = _time_values(df[roles.event_date], roles.event_date, "event date", time_kind)
+    if roles.followup_end:
+        work["fu_end"] = _time_values(df[roles.followup_end], roles.followup_end,
+                                      "follow-up end", time_kind)
+    latest = float(_days(work["time_raw"]).max()) if time_kind == "date" else np.nan
     for c in covariates:
         work[f"cov:{c}"] = df[c].to_numpy()
 
@@ -249,6 +324,8 @@ def select_cohort(df: pd.DataFrame, roles: Roles, settings: Settings) -> CohortS
         _check_constant_within_subject(work, "event", roles.event_date, "event date", labels)
         work = work[work["event"].notna().to_numpy()]
         tracker.record(f"Event date ({roles.event_date}) present", work["subject"].to_numpy())
+    if roles.followup_end:
+        _check_constant_within_subject(work, "fu_end", roles.followup_end, "follow-up end", labels)
 
     work = work.assign(time=_anchor(work, settings, time_kind))
     work = work[(work["time"] >= 0).to_numpy()]
@@ -295,6 +372,7 @@ def select_cohort(df: pd.DataFrame, roles: Roles, settings: Settings) -> CohortS
         panel=panel, subject_ids=ids, baseline=baseline, covariate_kinds=kinds,
         covariate=primary, attrition=tracker.result(), warnings=tuple(warnings),
         roles=roles, settings=settings, time_label=_time_label(roles, settings),
+        followup=_followup_basis(work, codes, roles, settings, time_kind, latest, labels),
     )
 
 
@@ -375,6 +453,8 @@ def _check_columns(df: pd.DataFrame, roles: Roles, settings: Settings) -> None:
         if not roles.event_date:
             raise SettingsError("origin == 'event-date' needs an event-date column role")
         named.append(("event date", roles.event_date))
+    if roles.followup_end:
+        named.append(("follow-up end", roles.followup_end))
     if settings.covariate:
         named.append(("covariate", settings.covariate))
     if settings.stratify_by:
@@ -499,6 +579,43 @@ def _anchor(work: pd.DataFrame, settings: Settings, kind: str) -> np.ndarray:
     if kind == "date":
         return (delta.dt.total_seconds() / 86400.0 / opt.DAYS_PER_UNIT[settings.unit]).to_numpy(float)
     return delta.to_numpy(float)
+
+
+def _days(s: pd.Series) -> np.ndarray:
+    """Dates as float days since 1970-01-01 (NaT → NaN)."""
+    v = pd.to_datetime(s).to_numpy("datetime64[ns]")
+    out = v.astype("int64").astype(float) / 86_400e9
+    out[np.isnat(v)] = np.nan
+    return out
+
+
+def _day_text(day: float) -> str:
+    return str(np.datetime64(int(np.floor(day)), "D"))
+
+
+def _followup_basis(work: pd.DataFrame, codes: np.ndarray, roles: Roles, settings: Settings,
+                    kind: str, latest: float, labels: np.ndarray) -> FollowupBasis:
+    """Per-subject origin (time column's scale) = raw time minus anchored time, first row of each
+    subject; the follow-up end likewise. ``work`` and ``codes`` are in panel row order."""
+    first = np.unique(codes, return_index=True)[1]
+    scale = opt.DAYS_PER_UNIT[settings.unit] if kind == "date" else 1.0
+    raw = _days(work["time_raw"]) if kind == "date" else work["time_raw"].to_numpy(float)
+    origin = (raw - work["time"].to_numpy(float) * scale)[first]
+    end = None
+    if roles.followup_end:
+        fu = work["fu_end"]
+        end = (_days(fu) if kind == "date" else fu.to_numpy(float))[first]
+        if kind == "number" and np.isnan(end).any():
+            miss = np.flatnonzero(np.isnan(end))
+            rows = work["_row"].to_numpy()[first[miss]]
+            raise DataError(
+                f"column '{roles.followup_end}' (follow-up end) is empty for {miss.size} "
+                f"subject(s), e.g. {', '.join(map(str, labels[np.unique(work['subject'].to_numpy())[miss[:3]]]))} "
+                f"({row_list(rows)}); with numeric times every subject needs its end of "
+                "follow-up (or leave the role empty)", column=roles.followup_end,
+                positions=rows[:20])
+    return FollowupBasis(kind=kind, origin=origin, end=end, latest=latest,
+                         unit_days=scale, end_column=roles.followup_end)
 
 
 def _handle_duplicates(work: pd.DataFrame, roles: Roles, settings: Settings,

@@ -400,6 +400,27 @@ def _exploration_html(ex, unit: str) -> str:
                   "each cell gives the correlation and the number of subjects seen in both "
                   "windows. Blank (—) where too few subjects.", "note"))
     out.append(table_html(lag_matrix_frame(lc)))
+    out.append(_dropout_html(ex.summaries.dropout, unit))
+    return "\n".join(out)
+
+
+def _dropout_html(d, unit: str) -> str:
+    """Loss to follow-up: the counts per status in the page's words, the rule, the table."""
+    from .summaries import BAND_METHOD, STATUSES
+
+    h = d.horizon_text(unit)
+    out = ["<h2>Visits and loss to follow-up</h2>", _p(d.sentence(unit))]
+    if d.classified:
+        names = {"left_early": f"left before {h}", "censored": f"had not reached {h}",
+                 "complete": f"followed to {h}"}
+        tab = d.count_table.drop(columns="stratum").rename(
+            columns={"label": "group", **{s: names[s] for s in STATUSES}})
+        out.append(table_html(tab, numeric=tuple(tab.columns[1:])))
+        out.append(_p(f"Rule: {d.status_rule}. {d.horizon_rule}.", "note"))
+        out.append(_p(f"Share not yet left: Kaplan–Meier, leaving at the last visit, others "
+                      f"counted to their potential follow-up or the horizon; {BAND_METHOD}.",
+                      "note"))
+    out += [_p(n, "note") for n in d.notes]
     return "\n".join(out)
 
 

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import hashlib
 import json
+from datetime import date
 from dataclasses import asdict, dataclass, fields, replace
 from typing import Any
 
@@ -20,7 +21,9 @@ class Roles:
     """Which input column plays which part.
 
     ``time`` holds numbers (already time since some origin, in ``Settings.unit``)
-    or calendar dates. ``event_date`` is a per-subject anchoring date (or number)
+    or calendar dates. ``followup_end`` (optional, dates or numbers like ``time``, the same
+    on every row of a subject) is when each subject's follow-up was due to end; the
+    dropout view uses it to tell leaving early from reaching the end of the data. ``event_date`` is a per-subject anchoring date (or number)
     used when ``Settings.origin == "event-date"``. ``covariates`` are baseline
     covariates (numeric or categorical), the first being the primary one unless
     ``Settings.covariate`` names another. ``response_unit`` and ``covariate_unit``
@@ -34,6 +37,7 @@ class Roles:
     event_date: str | None = None
     response_unit: str = ""
     covariate_unit: str = ""
+    followup_end: str | None = None
 
     def __post_init__(self):
         object.__setattr__(self, "covariates", tuple(self.covariates))
@@ -55,6 +59,8 @@ class Roles:
         cols = [self.subject, self.time, self.response, *self.covariates]
         if self.event_date:
             cols.append(self.event_date)
+        if self.followup_end:
+            cols.append(self.followup_end)
         return tuple(dict.fromkeys(cols))
 
 
@@ -67,6 +73,7 @@ STAGE_FIELDS: dict[str, tuple[str, ...]] = {
     "residuals": ("detrend", "spline_df", "lowess_frac", "detrend_within_strata"),
     "variogram": ("variogram_bins", "variogram_max_lag"),
     "lagcorr": ("lag_width",),
+    "summaries": ("data_cut",),
 }
 STAGE_DEPENDS: dict[str, tuple[str, ...]] = {
     "cohort": (),
@@ -75,6 +82,7 @@ STAGE_DEPENDS: dict[str, tuple[str, ...]] = {
     "residuals": ("cohort", "strata"),
     "variogram": ("cohort", "strata", "residuals"),
     "lagcorr": ("cohort", "strata", "residuals"),
+    "summaries": ("cohort", "strata"),
 }
 
 
@@ -103,6 +111,7 @@ class Settings:
     variogram_bins: int = 10
     variogram_max_lag: float | None = None
     lag_width: float | None = None
+    data_cut: str | None = None
 
     def __post_init__(self):
         object.__setattr__(self, "breaks", tuple(float(b) for b in self.breaks))
@@ -137,6 +146,8 @@ class Settings:
             raise SettingsError(
                 f"time window [{self.time_min}, {self.time_max}] is empty: time_min must be < time_max"
             )
+        if self.data_cut is not None:
+            _date_text("data_cut", self.data_cut)
         if self.strata_method == "custom":
             if not self.breaks:
                 raise SettingsError("strata_method == 'custom' needs breaks, e.g. breaks=(1.5, 3.0)")
@@ -192,6 +203,14 @@ class Settings:
 def _choice(name: str, value, allowed) -> None:
     if value not in allowed:
         raise SettingsError(f"{name} == {value!r}, must be one of {list(allowed)}")
+
+
+def _date_text(name: str, value) -> None:
+    try:
+        date.fromisoformat(value)
+    except (TypeError, ValueError):
+        raise SettingsError(f"{name} == {value!r}, must be a date written YYYY-MM-DD, "
+                            "e.g. 2024-06-30") from None
 
 
 def _int_at_least(name: str, value, lo: int) -> None:

@@ -41,6 +41,8 @@ SETTING_FLAGS: tuple[tuple[str, str, object, tuple | None, str], ...] = (
     ("--variogram-bins", "variogram_bins", int, None, "semivariogram lag bins [10]"),
     ("--variogram-max-lag", "variogram_max_lag", float, None, "largest lag binned [all]"),
     ("--lag-width", "lag_width", float, None, "window width for lag correlations [automatic]"),
+    ("--data-cut", "data_cut", str, None,
+     "date the data end, YYYY-MM-DD, for the dropout view [latest visit date]"),
 )
 
 
@@ -108,6 +110,8 @@ def _add_roles(p: argparse.ArgumentParser, *, required: bool) -> None:
     g.add_argument("--covariate", action="append", default=None,
                    help="baseline covariate column (repeat or comma-separate; first is primary)")
     g.add_argument("--event-date", help="per-subject event date (for --origin event-date)")
+    g.add_argument("--followup-end", help="per-subject end of follow-up (date or time), to tell "
+                                          "leaving early from the end of the data")
     g.add_argument("--response-unit", help="unit of the response, for labels (e.g. 'mg/dL')")
     g.add_argument("--covariate-unit", help="unit of the primary covariate, for labels")
 
@@ -153,7 +157,7 @@ def resolve(args: argparse.Namespace) -> tuple[object, Roles | None, Settings]:
     for item in args.covariate or []:
         covariates.extend(c.strip() for c in item.split(",") if c.strip())
     given = {"subject": args.subject, "time": args.time, "response": args.response,
-             "event_date": args.event_date}
+             "event_date": args.event_date, "followup_end": args.followup_end}
     units = {"response_unit": getattr(args, "response_unit", None),
              "covariate_unit": getattr(args, "covariate_unit", None)}
     roles = None

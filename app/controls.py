@@ -125,6 +125,8 @@ def _field_value(f: str, v, values: dict, fallback: Settings):
         return v or "none"
     if f in ("covariate", "stratify_by"):
         return v or None
+    if f == "data_cut":
+        return (v or "").strip() or None
     return v if v is not None else getattr(fallback, f)
 
 
@@ -170,6 +172,7 @@ FIELD_LABELS = {
     "variogram_bins": "Time-apart bins",
     "variogram_max_lag": "Largest time apart",
     "lag_width": "Lag window width",
+    "data_cut": "Data cut (date)",
 }
 
 
@@ -183,7 +186,8 @@ def role_values(roles: Roles | None) -> dict:
     if roles is None:
         return {r: ([] if r == "covariates" else None) for r in ids.ROLE_FIELDS}
     return {"subject": roles.subject, "time": roles.time, "event_date": roles.event_date,
-            "response": roles.response, "covariates": list(roles.covariates)}
+            "response": roles.response, "covariates": list(roles.covariates),
+            "followup_end": roles.followup_end}
 
 
 def roles_from_controls(values: dict, *, known: Roles | None = None
@@ -211,7 +215,8 @@ def roles_from_controls(values: dict, *, known: Roles | None = None
         if covs and known.covariates and known.covariates[0] == covs[0]:
             units["covariate_unit"] = known.covariate_unit
     return Roles(subject=values["subject"], time=values["time"], response=values["response"],
-                 covariates=covs, event_date=values.get("event_date") or None, **units), {}
+                 covariates=covs, event_date=values.get("event_date") or None,
+                 followup_end=values.get("followup_end") or None, **units), {}
 
 
 def keep_roles_that_fit(roles: Roles | None, columns) -> Roles | None:

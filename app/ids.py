@@ -24,7 +24,7 @@ DATA_USE_DEMO = "data-use-demo"
 DATA_PREVIEW = "data-preview"
 
 # role mapping: one dropdown + message per role
-ROLE_FIELDS = ("subject", "time", "event_date", "response", "covariates")
+ROLE_FIELDS = ("subject", "time", "event_date", "response", "covariates", "followup_end")
 ROLE_INPUT = {r: f"roles-{r.replace('_', '-')}" for r in ROLE_FIELDS}
 ROLE_MSG = {r: f"roles-{r.replace('_', '-')}-msg" for r in ROLE_FIELDS}
 ROLES_STATUS = "roles-status"
@@ -34,7 +34,7 @@ SETTING_FIELDS = (
     "origin", "unit", "time_min", "time_max", "min_visits", "require_covariate",
     "covariate", "duplicates", "transform", "center", "stratify_by", "strata_method",
     "n_strata", "breaks", "detrend", "spline_df", "lowess_frac", "detrend_within_strata",
-    "variogram_bins", "variogram_max_lag", "lag_width",
+    "variogram_bins", "variogram_max_lag", "lag_width", "data_cut",
 )
 SETTING_INPUT = {f: f"settings-{f.replace('_', '-')}" for f in SETTING_FIELDS}
 SETTING_MSG = {f: f"settings-{f.replace('_', '-')}-msg" for f in SETTING_FIELDS}
@@ -79,6 +79,7 @@ RATE_MSG = "rate-msg"
 FOLLOW_VISITS_GRAPH = "follow-visits-graph"
 FOLLOW_DROPOUT_GRAPH = "follow-dropout-graph"
 FOLLOW_MSG = "follow-msg"
+FOLLOW_NOTE = "follow-note"
 
 MODELS_SECTION = "models-section"
 

@@ -139,6 +139,9 @@ def data_section() -> html.Section:
         ("response", "Response (measured repeatedly)", False, None),
         ("covariates", "Baseline covariates", True,
          "The first is the primary one unless chosen otherwise under Analysis choices."),
+        ("followup_end", "End of follow-up (optional)", False,
+         "Per subject: when its follow-up was due to end (date or time), so that leaving early "
+         "is told apart from the end of the data."),
     ]
     return section("section-data", "Data & column roles",
                    "Upload a CSV or Parquet table with one row per visit. It is read in memory "
@@ -205,7 +208,11 @@ def settings_panel(settings: Settings) -> html.Div:
                                                 placeholder="end"), M["time_max"]),
               ]),
               field(lab["duplicates"], dd("duplicates", ctl.choice_options(ctl.DUPLICATE_LABELS)),
-                    M["duplicates"])),
+                    M["duplicates"]),
+              field(lab["data_cut"], dcc.Input(id=S["data_cut"], type="text", value=v["data_cut"],
+                                               debounce=True, placeholder="latest visit date",
+                                               className="cl-input"),
+                    M["data_cut"], "YYYY-MM-DD: when the data end, for loss to follow-up.")),
         group("Inclusion",
               field(lab["min_visits"], number(S["min_visits"], v["min_visits"], step=1, min_=1),
                     M["min_visits"]),
@@ -360,10 +367,9 @@ def follow_section():
     return section("section-follow", "Visits and loss to follow-up",
                    "How many visits each subject has, and when subjects leave the data, by group.",
                    message(ids.FOLLOW_MSG),
-                   html.Div(className="cl-two", children=[
-                       graph(ids.FOLLOW_VISITS_GRAPH, 400),
-                       graph(ids.FOLLOW_DROPOUT_GRAPH, 400),
-                   ]))
+                   graph(ids.FOLLOW_VISITS_GRAPH, 380),
+                   graph(ids.FOLLOW_DROPOUT_GRAPH, 500),
+                   html.Div(id=ids.FOLLOW_NOTE, className="cl-readout"))
 
 
 def models_section():

@@ -67,7 +67,7 @@ def role_of_column(roles: Roles | None, err: CohortError | None) -> str | None:
     """Which role's control a DataError concerns (by its column), if any."""
     if roles is None or not isinstance(err, DataError) or not err.column:
         return None
-    for role in ("subject", "time", "response", "event_date"):
+    for role in ("subject", "time", "response", "event_date", "followup_end"):
         if getattr(roles, role) == err.column:
             return role
     if err.column in roles.covariates:

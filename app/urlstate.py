@@ -20,14 +20,14 @@ LINE_ORDERS: tuple[str, ...] = ("slope", "intercept", "covariate", "subject")
 MAX_DRAW = 500
 
 _ROLE_PARAMS = {"subject": "col-subject", "time": "col-time", "response": "col-response",
-                "event_date": "col-event", "covariates": "col-cov"}
+                "event_date": "col-event", "covariates": "col-cov", "followup_end": "col-fu-end"}
 _FLOAT_OR_NONE = {"time_min", "time_max", "variogram_max_lag", "lag_width"}
 _INTS = {"min_visits": 1, "n_strata": 1, "spline_df": 1, "variogram_bins": 1}
 _BOOLS = {"require_covariate", "detrend_within_strata"}
 _CHOICES = {"origin": opt.ORIGINS, "unit": opt.UNITS, "duplicates": opt.DUPLICATE_POLICIES,
             "transform": opt.TRANSFORMS, "strata_method": opt.STRATA_METHODS,
             "detrend": opt.DETRENDS}
-_NAMES_OR_NONE = {"covariate", "stratify_by"}
+_NAMES_OR_NONE = {"covariate", "stratify_by", "data_cut"}  # data_cut: a date, checked by Settings
 
 
 def param_name(field_name: str) -> str:
@@ -161,7 +161,8 @@ def _decode_roles(params: dict, base_roles: Roles | None, problems: list) -> Rol
                         + "; choose them under Data")
         return None
     return Roles(subject=d["subject"], time=d["time"], response=d["response"],
-                 covariates=d["covariates"], event_date=d.get("event_date") or None)
+                 covariates=d["covariates"], event_date=d.get("event_date") or None,
+                 followup_end=d.get("followup_end") or None)
 
 
 def _parse_setting(name: str, text: str):

@@ -142,7 +142,7 @@ def register(app, context: AppContext) -> None:
 
     # -------------------------------------------------------------- follow-up
     @app.callback(Output(ids.FOLLOW_VISITS_GRAPH, "figure"),
-                  Output(ids.FOLLOW_DROPOUT_GRAPH, "figure"),
+                  Output(ids.FOLLOW_DROPOUT_GRAPH, "figure"), Output(ids.FOLLOW_NOTE, "children"),
                   Output(ids.FOLLOW_MSG, "children"), Output(ids.VIEW_RENDERED["follow"], "data"),
                   *STORES, *HIGHLIGHT, State(ids.VIEW_RENDERED["follow"], "data"))
     def follow(data, roles, settings, subject, stratum, last):
@@ -153,9 +153,24 @@ def register(app, context: AppContext) -> None:
             frame, summ, cohort = summary_inputs(data, roles, settings)
             return (draw.visits(frame, cohort=cohort, highlight_subject=subject,
                                 highlight_stratum=stratum),
-                    draw.dropout(summ.dropout, cohort=cohort, highlight_stratum=stratum))
+                    draw.dropout(summ.dropout, cohort=cohort, highlight_stratum=stratum),
+                    dropout_note(summ.dropout, time_unit=cohort.settings.unit))
 
-        return _finish(make, "summarising follow-up", key, ("fig", "fig"))
+        return _finish(make, "summarising follow-up", key, ("fig", "fig", "list"))
+
+
+def dropout_note(dropout, *, time_unit: str = "") -> list:
+    """The follow-up counts in plain words, the rule behind them and the band's method."""
+    from analysis.summaries import BAND_METHOD
+
+    out = [html.P([html.Strong("Follow-up: "), dropout.sentence(time_unit)])]
+    if dropout.classified:
+        out.append(html.P(f"Rule: {dropout.status_rule}. Curves: Kaplan–Meier share not yet "
+                          f"left, with a {BAND_METHOD}; leaving counts at the last visit, and "
+                          "subjects who did not leave count to their potential follow-up or "
+                          "the horizon.", className="cl-caveat"))
+    out += [html.P(n, className="cl-caveat") for n in dropout.notes]
+    return out
 
 
 def rate_table_columns(present, cohort) -> list[dict]:

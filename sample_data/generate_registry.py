@@ -2,7 +2,10 @@
 
 Run ``python sample_data/generate_registry.py`` to rewrite
 ``sample_data/kidney_registry.csv`` byte-identically (fixed seed), or pass
-``--out PATH`` to write elsewhere. All parameters come from
+``--out PATH`` to write elsewhere. Beside it goes ``kidney_registry_truth.csv``
+(``--truth-out PATH``): why each recipient's visits end, which the file alone
+cannot say (the truth is read off the simulation without drawing any extra
+random numbers, so the registry file is unchanged by it). All parameters come from
 ``analysis.demo.TRUE_PARAMETERS``; see ``sample_data/README.md``.
 
 Model (t in months since transplant, x = log2(marker / marker_ref))::
@@ -170,9 +173,7 @@ def apply_attrition(rng: np.random.Generator, p: dict, egfr: np.ndarray, valid: 
     observed history). A random ``p_lost_early`` share of recipients keep only
     their first 1 or 2 visits (equal chance).
     """
-    below = valid & (egfr < p["dropout_threshold"])
-    after_first_below = (np.cumsum(below, axis=1) - below) > 0
-    valid = valid & ~after_first_below
+    valid = valid & ~_after_first_below(p, egfr, valid)
     n = valid.shape[0]
     lost = rng.random(n) < p["p_lost_early"]
     keep_n = rng.integers(1, 3, n)
@@ -181,8 +182,57 @@ def apply_attrition(rng: np.random.Generator, p: dict, egfr: np.ndarray, valid: 
     return valid, lost
 
 
+def _after_first_below(p: dict, egfr: np.ndarray, valid: np.ndarray) -> np.ndarray:
+    """Visit cells after the first valid visit with eGFR below the dropout threshold."""
+    below = valid & (egfr < p["dropout_threshold"])
+    return (np.cumsum(below, axis=1) - below) > 0
+
+
+#: why a recipient's visits end (truth file)
+END_REASONS = ("function fell", "lost early", "end of follow-up")
+
+
+def end_of_followup(p: dict, egfr: np.ndarray, planned: np.ndarray, kept: np.ndarray):
+    """Why each recipient's visits end: the truth the registry file cannot show.
+
+    Parameters
+    ----------
+    egfr : (n, k) recorded eGFR on the padded visit matrix
+    planned : bool (n, k)
+        Visits the schedule produced (before dropout and loss).
+    kept : bool (n, k)
+        Visits in the file.
+
+    Returns
+    -------
+    left : bool (n,)
+        True when dropout or loss removed at least one planned visit (the recipient left
+        before the end of its follow-up); False when its follow-up ran to 60 months or the
+        data cut.
+    reason : str (n,)
+        ``"function fell"`` (eGFR below the threshold removed later visits), ``"lost early"``
+        or ``"end of follow-up"``.
+    """
+    removed = planned & ~kept
+    fell = (removed & _after_first_below(p, egfr, planned)).any(axis=1)
+    left = removed.any(axis=1)
+    reason = np.where(fell, END_REASONS[0], np.where(left, END_REASONS[1], END_REASONS[2]))
+    return left, reason
+
+
 def generate(params: dict | None = None) -> pd.DataFrame:
     """Simulate the whole registry; returns the CSV table (strings / numbers in file form)."""
+    return generate_with_truth(params)[0]
+
+
+def generate_with_truth(params: dict | None = None) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """The registry table and its truth table (one row per recipient in the file).
+
+    The truth table has recipient_id, left (1 = left before the end of its follow-up, 0 = its
+    follow-up ran to 60 months or the data cut), reason (see :data:`END_REASONS`),
+    followup_end (date its follow-up was due to end: min(transplant + 60 months, data cut)),
+    planned_months (that end in months since transplant).
+    """
     p = dict(TRUE_PARAMETERS if params is None else params)
     rng = np.random.default_rng(p["seed"])
     base = simulate_baseline(rng, p)
@@ -191,10 +241,11 @@ def generate(params: dict | None = None) -> pd.DataFrame:
     tx_date = first + base["tx_day"].to_numpy().astype("timedelta64[D]")
     to_cut = (cut - tx_date).astype(int)
     followup_days = np.minimum(np.floor(p["max_followup_months"] * DAYS_PER_MONTH), to_cut)
-    days, valid = simulate_visit_days(rng, p, followup_days.astype(float))
+    days, planned = simulate_visit_days(rng, p, followup_days.astype(float))
     t = days / DAYS_PER_MONTH
     egfr = np.round(simulate_egfr(rng, p, base, t), 1)
-    valid, _ = apply_attrition(rng, p, egfr, valid)
+    valid, _ = apply_attrition(rng, p, egfr, planned)
+    left, reason = end_of_followup(p, egfr, planned, valid)
 
     rows, cols = np.nonzero(valid)  # row-major: recipient, then visit order
     n = len(base)
@@ -214,7 +265,16 @@ def generate(params: dict | None = None) -> pd.DataFrame:
         "months_since_tx": np.char.mod("%.2f", d / DAYS_PER_MONTH),
         "egfr": np.char.mod("%.1f", egfr[rows, cols]),
     })
-    return out[list(DEMO_COLUMNS)]
+    in_file = valid.any(axis=1)
+    end_date = tx_date + followup_days.astype(int).astype("timedelta64[D]")
+    truth = pd.DataFrame({
+        "recipient_id": ids,
+        "left": left.astype(int),
+        "reason": reason,
+        "followup_end": np.datetime_as_string(end_date, unit="D"),
+        "planned_months": np.char.mod("%.2f", followup_days / DAYS_PER_MONTH),
+    })[in_file].reset_index(drop=True)
+    return out[list(DEMO_COLUMNS)], truth
 
 
 def summarise(df: pd.DataFrame, params: dict | None = None) -> dict:
@@ -240,15 +300,19 @@ def summarise(df: pd.DataFrame, params: dict | None = None) -> dict:
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description="Write the invented kidney-transplant demo registry CSV.")
     ap.add_argument("--out", type=Path, default=DEMO_CSV, help="output CSV path (default: %(default)s)")
+    ap.add_argument("--truth-out", type=Path, default=None,
+                    help="truth CSV path (default: beside --out, named *_truth.csv)")
     ap.add_argument("--quiet", action="store_true", help="do not print the summary counts")
     args = ap.parse_args(argv)
-    df = generate()
+    df, truth = generate_with_truth()
+    truth_out = args.truth_out or args.out.with_name(args.out.stem + "_truth.csv")
     args.out.parent.mkdir(parents=True, exist_ok=True)
     df.to_csv(args.out, index=False, lineterminator="\n")
+    truth.to_csv(truth_out, index=False, lineterminator="\n")
     if not args.quiet:
         for k, v in summarise(df).items():
             print(f"{k}: {v:.3f}" if isinstance(v, float) else f"{k}: {v}")
-        print(f"wrote {args.out}")
+        print(f"wrote {args.out} and {truth_out}")
     return 0
 
 

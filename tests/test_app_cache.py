@@ -215,7 +215,7 @@ def _views_reading(field: str, settings: Settings) -> set[str]:
     """Reference: the views whose stage reads ``field`` according to STAGE_FIELDS."""
     sel, strata = STAGE_FIELDS["cohort"], STAGE_FIELDS["strata"]
     res = STAGE_FIELDS["residuals"] + (strata if settings.detrend_within_strata else ())
-    reads = {"cohort": sel + strata, "summaries": sel + strata,
+    reads = {"cohort": sel + strata, "summaries": sel + strata + STAGE_FIELDS["summaries"],
              "variogram": sel + res + STAGE_FIELDS["variogram"],
              "lagcorr": sel + res + STAGE_FIELDS["lagcorr"]}
     return {v for v, st in VIEW_KEY_STAGE.items() if field in reads[st]}
@@ -225,6 +225,7 @@ CHANGES = [
     ("variogram_bins", 13), ("variogram_max_lag", 30.0), ("lag_width", 3.0),
     ("strata_method", "equal-width"), ("n_strata", 3), ("transform", "log10"),
     ("detrend", "linear"), ("spline_df", 6), ("min_visits", 5), ("time_max", 36.0),
+    ("data_cut", "2022-12-31"),
 ]
 
 
@@ -261,7 +262,7 @@ ALTERNATES = {
     "duplicates": "average", "transform": "log10", "center": 2.5, "stratify_by": "centre",
     "strata_method": "custom", "n_strata": 3, "breaks": (1.0, 2.5, 7.125),
     "detrend": "lowess", "spline_df": 6, "lowess_frac": 0.45, "detrend_within_strata": True,
-    "variogram_bins": 17, "variogram_max_lag": 30.0, "lag_width": 4.5,
+    "variogram_bins": 17, "variogram_max_lag": 30.0, "lag_width": 4.5, "data_cut": "2022-12-31",
 }
 
 
@@ -290,7 +291,7 @@ def test_everything_changed_at_once_survives_the_link():
     base = demo_settings()
     settings = Settings(**ALTERNATES)
     roles = Roles(subject="Pt #", time="Visit dt", response="eGFR value (mL/min)",
-                  covariates=("a&b", "c=d"), event_date="tx day")
+                  covariates=("a&b", "c=d"), event_date="tx day", followup_end="fu end")
     view = {"draw": 12, "seed": 7, "order": "intercept"}
     query = urlstate.encode(data_key="abc123", roles=roles, settings=settings, base=base,
                             view=view, subject="R-0042 / x", stratum="(1.5, 3] mg")
@@ -370,6 +371,7 @@ BAD_CONTROLS = [
     ({"strata_method": "custom", "breaks": "5, 2"}, "breaks", "increasing"),
     ({"breaks": "1, two"}, "breaks", "'two' is not a number"),
     ({"center": "value", "center_value": None}, "center", "value to centre"),
+    ({"data_cut": "30/06/2024"}, "data_cut", "YYYY-MM-DD"),
 ]
 
 

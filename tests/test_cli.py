@@ -105,3 +105,34 @@ def test_analysis_layer_never_imports_the_front_end():
             "bad=[m for m in ('dash','plotly','flask') if m in sys.modules]; print(bad)")
     proc = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120)
     assert proc.stdout.strip() == "[]", proc.stdout + proc.stderr
+
+
+def test_data_cut_and_followup_end_flags(tmp_path, capsys):
+    p, df = _small_csv(tmp_path)
+    # a follow-up end column: transplant date + 3 years (pandas date arithmetic)
+    df = df.assign(**{"Fu end": (pd.to_datetime(df["Tx dt"]) + pd.DateOffset(years=3))
+                      .dt.strftime("%Y-%m-%d")})
+    df.to_csv(p, sep=";", index=False)
+    base = ["summarize", str(p), "--subject", "Pt #", "--time", "Visit dt",
+            "--response", "eGFR value", "--covariate", "UPR", "--event-date", "Tx dt",
+            "--origin", "event-date"]
+    out = tmp_path / "s.json"
+    assert main([*base, "--data-cut", "2022-12-31", "--followup-end", "Fu end",
+                 "--json", str(out)]) == 0
+    doc = json.loads(out.read_text())
+    drop = doc["dropout"]
+    assert doc["settings"]["data_cut"] == "2022-12-31" and doc["roles"]["followup_end"] == "Fu end"
+    assert "'Fu end'" in drop["followup_source"] and "2022-12-31" in drop["followup_source"]
+    # reference: pandas — months from transplant to the earlier of (tx + 3 years, the cut)
+    tx = pd.to_datetime(df.groupby("Pt #")["Tx dt"].first())
+    end = np.minimum(tx + pd.DateOffset(years=3), pd.Timestamp("2022-12-31"))
+    want = ((end - tx).dt.days / 30.4375)
+    got = pd.Series({s["subject"]: s["potential_followup"] for s in drop["subjects"]})
+    # ids as in the data; visits after the end count to the last visit (documented rule)
+    last = pd.Series({s["subject"]: s["last_time"] for s in drop["subjects"]})
+    np.testing.assert_allclose(got, np.maximum(want.loc[got.index], last), rtol=1e-12)
+    assert set(drop["counts"]) == {"left_early", "censored", "complete"}
+    assert {"stratum", "time", "retained", "lo", "hi"} <= set(drop["retention"][0])
+    # a data cut that is not a date: exit 2 with the setting named
+    assert main([*base, "--data-cut", "30/06/2024", "--json", "-"]) == 2
+    assert "data_cut" in capsys.readouterr().err

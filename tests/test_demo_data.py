@@ -37,6 +37,8 @@ def test_regeneration_is_byte_identical(tmp_path):
     subprocess.run([sys.executable, str(SCRIPT), "--out", str(out), "--quiet"],
                    check=True, cwd=tmp_path, timeout=120)
     assert out.read_bytes() == DEMO_CSV.read_bytes()
+    truth = tmp_path / "registry_truth.csv"
+    assert truth.read_bytes() == DEMO_CSV.with_name("kidney_registry_truth.csv").read_bytes()
 
 
 def test_columns_roles_and_settings_fit_the_file(demo):

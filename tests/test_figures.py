@@ -362,26 +362,50 @@ def test_visits_histogram_matches_pandas_counts(res):
         assert got[got > 0].to_dict() == want.to_dict()
 
 
-def test_dropout_step_curve_and_last_visit_means(res):
+def test_dropout_retention_curves_and_last_visit_means(res):
     c, frame, summ = res["cohort"], res["frame"], res["summ"]
-    fig = draw.dropout(summ.dropout, cohort=c)
-    horizon = summ.dropout.horizon
-    last = frame.sort_values("time").groupby("subject").agg(
-        lab=("stratum_label", "first"), t=("time", "last"), y=("response", "last"))
+    d = summ.dropout
+    fig = draw.dropout(d, cohort=c)
+    subj = d.subjects.assign(subject=d.subjects["subject"].astype(str))
     for lab in c.strata.labels:
-        tr = next(t for t in fig.data if t.legendgroup == lab and t.line.shape == "hv")
+        tr = next(t for t in fig.data if t.legendgroup == lab and t.name and t.line.width)
         x, y = np.asarray(tr.x, float), np.asarray(tr.y, float)
-        grp = last[last["lab"] == lab]["t"].to_numpy()
-        # reference: 1 - empirical CDF by brute force — share of subjects last seen after x
-        for xv in np.unique(x[1:]):
-            assert y[x == xv].min() == pytest.approx(np.mean(grp > xv))
-    # right panel: pandas groupby mean of the last response by (group, left before horizon)
-    ref = last.assign(early=last["t"] < horizon).groupby(["lab", "early"])["y"].mean()
-    for name, early in (("left before horizon", True), ("followed to horizon", False)):
+        grp = subj[subj["subject"].isin(set(frame.loc[frame["stratum_label"] == lab,
+                                                       "subject"]))]
+        left = grp["status"].to_numpy() == "left_early"
+        time = np.where(left, grp["last_time"], np.minimum(grp["potential_followup"], d.horizon))
+        # reference: Kaplan–Meier by brute force — product over leaving times of (1 − d/n)
+        for xv, yv in zip(x[1:], y[1:]):
+            s = 1.0
+            for u in np.unique(time[left & (time <= xv)]):
+                s *= 1 - np.sum(left & (time == u)) / np.sum(time >= u)
+            assert yv == pytest.approx(s, abs=1e-12)
+    # right panel: pandas groupby mean of the last response by (group, left early or not)
+    last = frame.sort_values("time").groupby("subject").agg(
+        lab=("stratum_label", "first"), y=("response", "last"))
+    last["early"] = subj.set_index("subject").loc[last.index, "left_early"].to_numpy()
+    ref = last.groupby(["lab", "early"])["y"].mean()
+    for name, early in (("left early", True), ("did not leave", False)):
         tr = next(t for t in fig.data if t.name == name and t.customdata is not None)
         for lab, m in zip(np.asarray(tr.customdata, dtype=object)[:, 0], tr.x):
             if lab in c.strata.labels:
                 assert m == pytest.approx(ref[(lab, early)])
+
+
+def test_dropout_without_potential_followup_shows_last_visits_only(res):
+    from analysis.summaries import dropout_summary
+
+    c, frame = res["cohort"], res["frame"]
+    d = dropout_summary(c.panel, c.strata, subject_ids=c.subject_ids)
+    fig = draw.dropout(d, cohort=c)
+    assert "cannot be told apart" in fig.layout.title.subtitle.text
+    assert fig.layout.yaxis.title.text == "share seen at or after"
+    assert not [a for a in fig.layout.annotations if a.text.startswith("horizon")]
+    tr = next(t for t in fig.data if t.name == "All subjects")
+    last = frame.groupby("subject")["time"].max().to_numpy()
+    # reference: brute force — share of subjects whose last visit is after x
+    for xv, yv in zip(np.asarray(tr.x)[1:], np.asarray(tr.y)[1:]):
+        assert yv == pytest.approx(np.mean(last > xv))
 
 
 # ----------------------------------------------------------------------- colours
@@ -467,3 +491,9 @@ def test_rate_and_dropout_labels_are_short_and_carry_units(res):
     horizon = [a.text for a in drop.layout.annotations if a.text.startswith("horizon")]
     assert horizon == [f"horizon {summ.dropout.horizon:.3g} months"]
     assert drop.layout.xaxis.title.text == c.time_label
+    assert drop.layout.yaxis.title.text == "share not yet left"
+    # the subtitle gives the counts per status in words (from the analysis result)
+    sub = drop.layout.title.subtitle.text
+    h = f"{summ.dropout.horizon:.3g} months"
+    assert f"{summ.dropout.counts['left_early']:,} left before {h}" in sub
+    assert f"{summ.dropout.counts['complete']:,} followed to {h}" in sub

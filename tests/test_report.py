@@ -172,3 +172,23 @@ def test_cli_report_missing_roles_exits_2(tmp_path, demo_slice, capsys):
     demo_slice.to_csv(csv, index=False)
     code = main(["report", str(csv), "--out", str(tmp_path / "r.html")])
     assert code == 2 and "--subject" in capsys.readouterr().err
+
+
+def test_report_dropout_part_says_what_the_page_says(demo_slice):
+    from app.views import dropout_note
+
+    wb = Workbench()
+    ds = Dataset.from_frame(demo_slice, name="slice.csv")
+    ex = wb.explore(ds, demo_roles(), demo_settings())
+    d = ex.summaries.dropout
+    visible = " ".join(parse(build_report(ex.cohort, ex, None, data_name="slice.csv")).text)
+    # the same sentence as the page's note under the follow-up view
+    page = dropout_note(d, time_unit="months")[0].children[1]
+    assert page == d.sentence("months") and page in visible
+    assert "Visits and loss to follow-up" in visible and d.status_rule in visible
+    # reference: pandas crosstab of the per-subject statuses gives the counts the report lists
+    tab = pd.crosstab(d.subjects["status"], "n")["n"]
+    h = f"{d.horizon:.3g} months"
+    assert f"{tab.get('left_early', 0):,} left before {h}" in visible
+    assert f"{tab.get('complete', 0):,} followed to {h}" in visible
+    assert f"{tab.get('censored', 0):,} had not reached {h} when the data end" in visible

@@ -226,6 +226,19 @@ def test_follow_up_view_draws(server_url, page, artifacts):
     for gid in FOLLOW_GRAPHS:
         fig = wait_drawn(page, gid, timeout=10_000)
         assert any(len(t.get("x") or t.get("y") or []) for t in fig["data"]), gid
+    # the note under the view gives the analysis layer's counts per status in words
+    page.wait_for_function(f"document.getElementById('{ids.FOLLOW_NOTE}').innerText.length > 20")
+    assert ref.summaries.dropout.sentence("months") in page.inner_text(f"#{ids.FOLLOW_NOTE}")
+    # a data cut typed into the settings panel re-judges the statuses (reference: the analysis
+    # layer run with that data cut)
+    box = f"#{ids.SETTING_INPUT['data_cut']}"
+    page.fill(box, "2022-12-31")
+    page.press(box, "Enter")
+    page.wait_for_function(
+        f"document.getElementById('{ids.FOLLOW_NOTE}').innerText.includes('2022-12-31')")
+    cut = demo_ref(demo_settings().replace(data_cut="2022-12-31")).summaries.dropout
+    assert cut.sentence("months") in page.inner_text(f"#{ids.FOLLOW_NOTE}")
+    shot(page, artifacts, "section-follow-data-cut", "#section-follow")
 
 
 # ------------------------------------------------------------------ (b) controls
