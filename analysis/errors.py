@@ -59,5 +59,7 @@ def clip(value, limit: int = ECHO_LIMIT) -> str:
 
 def quoted(value, limit: int = ECHO_LIMIT) -> str:
     """``repr`` of a cell value (a string is quoted), cut like :func:`clip`."""
+    if hasattr(value, "item") and not isinstance(value, str):  # numpy scalar: as plain Python
+        value = value.item()
     text = repr(value) if not isinstance(value, str) else repr(clip(value, limit))
     return clip(text, limit + 2)
