@@ -122,6 +122,9 @@ NA_CELLS = ("", "NA", "N/A", "n/a", "#N/A", "NULL", "null", "None", "<NA>")
 #: a number written with a decimal comma (or a plain whole number), as in a semicolon CSV
 _DECIMAL_COMMA = r"[-+]?(?:\d+,\d*|,\d+|\d+)(?:[eE][-+]?\d+)?"
 _FLOAT_EXACT = 2.0 ** 53
+#: cells that a number parser reads as not-a-number or infinite
+NON_FINITE_TEXT = frozenset({"nan", "+nan", "-nan", "inf", "+inf", "-inf", "infinity",
+                             "+infinity", "-infinity"})
 
 
 def _read_parquet(raw: bytes, label: str) -> pd.DataFrame:
@@ -253,8 +256,7 @@ def column_kind(s: pd.Series) -> str:
         return "text"
     # a spread-out sample rules a kind out cheaply before the whole column is converted
     sample = values.iloc[:: max(1, len(values) // 500)]
-    if (pd.to_numeric(sample, errors="coerce").notna().all()
-            and pd.to_numeric(values, errors="coerce").notna().all()):
+    if _numbers(sample).all() and _numbers(values).all():
         return "number"
     if decimal_comma_numbers(values) is not None:
         return "number"
@@ -262,6 +264,16 @@ def column_kind(s: pd.Series) -> str:
             and _best_dates(_text(values), "auto").n_bad == 0):
         return "date"
     return "text"
+
+
+def _numbers(values: pd.Series) -> np.ndarray:
+    """Which cells a number parser reads (written 'nan' or 'inf' counts: the analysis
+    names such cells where it needs finite numbers)."""
+    ok = pd.to_numeric(values, errors="coerce").notna().to_numpy().copy()
+    if not ok.all():
+        text = values[~ok].astype("string").str.strip().str.lower()
+        ok[~ok] = text.isin(NON_FINITE_TEXT).fillna(False).to_numpy(dtype=bool)
+    return ok
 
 
 # --------------------------------------------------------------------------- dates
@@ -394,6 +406,13 @@ def read_dates(s: pd.Series, *, order: str = "auto", column: str = "", role: str
     if best.n_bad:
         rows = np.flatnonzero(best.bad)
         examples = _text(s)[best.bad].unique()[:3]
+        if best.n_bad == int(_text(s).notna().sum()):
+            raise DataError(
+                f"{name} must hold dates such as 2021-03-15, 15.03.2021 or 03/15/2021; "
+                f"{rows_hold(rows, examples)}"
+                + (f" (with the date order '{order}' they are read as {best.label})"
+                   if order != "auto" and best.label != "yyyy-mm-dd" else ""),
+                column=column, positions=rows[:20])
         raise DataError(
             f"{name} must hold dates in one format; most cells are written {best.label}, but "
             f"{rows_hold(rows, examples)}; write every date of the column the same way "

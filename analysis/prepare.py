@@ -20,8 +20,8 @@ import pandas as pd
 
 from . import options as opt
 from .errors import DataError, SettingsError, clip, row_list, rows_hold
-from .loading import (column_kind, date_fraction, decimal_comma_numbers, nested_cells,
-                      read_dates)
+from .loading import (NON_FINITE_TEXT, column_kind, date_fraction, decimal_comma_numbers,
+                      nested_cells, read_dates)
 from .panel import Panel
 from .settings import Roles, Settings
 from .strata import Strata, categorical_strata, center_values, cut_strata, transform_values
@@ -436,10 +436,6 @@ def _subject_codes(s: pd.Series) -> tuple[np.ndarray, np.ndarray]:
     return rows, labels
 
 
-_NON_FINITE_TEXT = {"nan", "+nan", "-nan", "inf", "+inf", "-inf", "infinity", "+infinity",
-                    "-infinity"}
-
-
 def _numeric(s: pd.Series, column: str, role: str, *, finite: bool = False) -> pd.Series:
     """Numbers as float; empty cells → NaN; a decimal comma is read as a decimal point;
     anything else non-numeric → DataError. With ``finite``, also 'inf', '-inf', 'nan' written
@@ -453,7 +449,7 @@ def _numeric(s: pd.Series, column: str, role: str, *, finite: bool = False) -> p
         out = pd.to_numeric(text, errors="coerce")
         bad = out.isna() & text.notna()
         if bad.any():
-            nonfinite = text[bad].str.lower().isin(_NON_FINITE_TEXT)
+            nonfinite = text[bad].str.lower().isin(NON_FINITE_TEXT)
             fixable = (decimal_comma_numbers(text[bad][~nonfinite]) is not None
                        if (~nonfinite).any() else True)
             if fixable:
@@ -472,7 +468,7 @@ def _numeric(s: pd.Series, column: str, role: str, *, finite: bool = False) -> p
     if finite:
         flag = np.isinf(out.to_numpy(dtype=float, na_value=np.nan))
         if text is not None:
-            flag |= text.str.lower().isin(_NON_FINITE_TEXT).fillna(False).to_numpy(dtype=bool)
+            flag |= text.str.lower().isin(NON_FINITE_TEXT).fillna(False).to_numpy(dtype=bool)
         if flag.any():
             rows = np.flatnonzero(flag)
             shown = (text[flag] if text is not None else out[flag]).unique()[:3]
@@ -492,11 +488,12 @@ def _time_column(s: pd.Series, column: str, role: str, order: str) -> tuple[str,
         return "date", read_dates(s, order=order, column=column, role=role)
     if pd.api.types.is_numeric_dtype(s) and not pd.api.types.is_bool_dtype(s):
         return "number", _numeric(s, column, role, finite=True)
-    text = s.astype("string").str.strip()
-    values = text[text.notna() & (text != "")]
-    numeric = pd.to_numeric(values, errors="coerce").notna().mean() if len(values) else 0.0
-    if numeric < 1.0 and decimal_comma_numbers(values) is None:
-        sample = values.iloc[:: max(1, len(values) // 500)]
+    # the kind is told from a spread-out sample; the whole column is converted once, below
+    values = s.dropna()
+    sample = values.iloc[:: max(1, len(values) // 500)].astype("string").str.strip()
+    sample = sample[sample != ""]
+    numeric = pd.to_numeric(sample, errors="coerce").notna().mean() if len(sample) else 0.0
+    if numeric < 1.0 and decimal_comma_numbers(sample) is None:
         if date_fraction(sample, order) > max(numeric, 0.5):
             return "date", read_dates(s, order=order, column=column, role=role)
     return "number", _numeric(s, column, role, finite=True)

@@ -136,6 +136,11 @@ def test_an_order_that_fits_no_cell_is_reported_not_guessed():
         read_dates(text, order="month-first", column="visit")
 
 
+def test_no_date_format_at_all_is_named():
+    with pytest.raises(DataError, match=r"must hold dates such as .* rows 2, 3 hold '1.2.21'"):
+        read_dates(pd.Series(["1.2.21", "3.4.21"]), column="visit")
+
+
 def test_iso_and_day_first_in_one_column_is_an_error():
     text = pd.Series(["2021-01-25", "2021-02-13", "20.01.2021"])
     with pytest.raises(DataError, match=r"yyyy-mm-dd.*row 4 holds '20.01.2021'"):
@@ -150,6 +155,7 @@ def test_iso_and_day_first_in_one_column_is_an_error():
     (["01/02/2021", "03/04/2021"], "date"),      # ambiguous order, but dates all the same
     (["2021-03-05", "05.03.2021"], "text"),      # two formats: not one date column
     (["5,5 mg", "3"], "text"),
+    (["1.5", "nan", "2"], "number"),             # 'nan' written out is still a number column
 ])
 def test_column_kind_decimal_commas_are_numbers_never_dates(values, kind):
     assert column_kind(pd.Series(values, dtype=object)) == kind
