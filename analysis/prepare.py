@@ -246,7 +246,7 @@ def select_cohort(df: pd.DataFrame, roles: Roles, settings: Settings) -> CohortS
     if settings.origin == "event-date":
         _check_constant_within_subject(work, "event", roles.event_date, "event date", labels)
         work = work[work["event"].notna().to_numpy()]
-        tracker.record(f"Event date ({roles.event_date}) present", work["subject"].to_numpy())
+        tracker.record(f"Event date ({clip(roles.event_date)}) present", work["subject"].to_numpy())
 
     work = work.assign(time=_anchor(work, settings, time_kind))
     work = work[(work["time"] >= 0).to_numpy()]
@@ -272,7 +272,7 @@ def select_cohort(df: pd.DataFrame, roles: Roles, settings: Settings) -> CohortS
     if primary and settings.require_covariate:
         has = base.index[base[primary].notna()].to_numpy()
         work = work[np.isin(work["subject"].to_numpy(), has)]
-        tracker.record(f"Baseline {primary} present", work["subject"].to_numpy())
+        tracker.record(f"Baseline {clip(primary)} present", work["subject"].to_numpy())
 
     n_visits = np.bincount(work["subject"].to_numpy(), minlength=len(labels))
     work = work[n_visits[work["subject"].to_numpy()] >= settings.min_visits]
@@ -316,7 +316,7 @@ def stratify(selection: CohortSelection, settings: Settings) -> PreparedCohort:
     elif primary is not None and settings.transform != "none":
         raise SettingsError(
             f"transform == {settings.transform!r} needs a numeric covariate, "
-            f"but '{primary}' is categorical; choose transform 'none'"
+            f"but '{clip(primary)}' is categorical; choose transform 'none'"
         )
     by = settings.stratify_by or primary
     m = len(base)
@@ -515,8 +515,8 @@ def _check_constant_within_subject(work: pd.DataFrame, col: str, column: str, ro
     if len(varying):
         first = work[work["subject"].isin(varying[:1])]
         raise DataError(
-            f"column '{column}' ({role}) must be the same on every row of a subject; it varies for "
-            f"{len(varying)} subject(s), e.g. {', '.join(map(clip, labels[varying[:3]]))} "
+            f"column '{clip(column)}' ({role}) must be the same on every row of a subject; it "
+            f"varies for {len(varying)} subject(s), e.g. {', '.join(map(clip, labels[varying[:3]]))} "
             f"({row_list(first['_row'].to_numpy())})",
             column=column, positions=first["_row"].to_numpy()[:20])
 
@@ -576,7 +576,7 @@ def _baseline_values(work: pd.DataFrame, covariates, kinds, warnings: list,
         varying = n.index[n > 1]
         if len(varying):
             warnings.append(
-                f"baseline covariate '{c}' changes within {len(varying)} subject(s) "
+                f"baseline covariate '{clip(c)}' changes within {len(varying)} subject(s) "
                 f"(e.g. {', '.join(map(clip, labels[varying[:3]]))}); the first visit's value is used")
     return out
 

@@ -302,6 +302,13 @@ def test_semicolon_registry_upload_bytes_read_like_the_path(semicolon_registry):
         assert pd.api.types.is_numeric_dtype(frame[c]), c
         # reference: the original file's numbers read by pandas
         np.testing.assert_allclose(frame[c].to_numpy(float), ref[c].to_numpy(float), rtol=1e-12)
+    import base64
+
+    from app.hub import decode_upload
+
+    url = "data:text/csv;base64," + base64.b64encode(semicolon_registry.read_bytes()).decode()
+    uploaded = read_table(decode_upload(url, "registry_semicolon.csv"), name="registry.csv")
+    pd.testing.assert_frame_equal(uploaded, frame)
     assert describe_columns(frame[["egfr", "visit_date"]])[0]["kind"] == "number"
     assert describe_columns(frame[["egfr", "visit_date"]])[1]["kind"] == "date"
 
