@@ -158,8 +158,10 @@ def _read_csv(raw: bytes, label: str) -> pd.DataFrame:
     long_ints = [i for i, c in enumerate(frame.columns) if _lost_digits(frame.iloc[:, i])]
     if long_ints:
         exact = pd.read_csv(io.StringIO(text), usecols=long_ints, dtype=str, **options)
-        for i in long_ints:
-            frame[frame.columns[i]] = exact.iloc[:, long_ints.index(i)].str.strip()
+        for k, i in enumerate(long_ints):
+            cells = exact.iloc[:, k].str.strip()
+            if cells.dropna().str.fullmatch(r"[-+]?\d+").all():  # whole numbers written out
+                frame[frame.columns[i]] = cells
     if delimiter != ",":
         for i in range(frame.shape[1]):
             converted = decimal_comma_numbers(frame.iloc[:, i])
@@ -174,8 +176,8 @@ def _lost_digits(s: pd.Series) -> bool:
     if not pd.api.types.is_float_dtype(s):
         return False
     v = s.to_numpy(dtype=float, na_value=np.nan)
-    big = np.isfinite(v) & (np.abs(v) >= _FLOAT_EXACT)
-    return bool(big.any())
+    finite = v[np.isfinite(v)]
+    return bool((np.abs(finite) >= _FLOAT_EXACT).any() and (finite == np.round(finite)).all())
 
 
 def decimal_comma_numbers(s: pd.Series) -> pd.Series | None:

@@ -1,5 +1,6 @@
 """Reading tables: delimiter sniffing, encodings, Parquet, content hash."""
 import io
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -188,6 +189,13 @@ def test_long_integer_ids_with_empty_cells_keep_their_exact_text():
     assert [int(v) for v in got["id"].dropna()] == ids
 
 
+def test_large_measurements_written_in_exponent_form_stay_numbers():
+    got = read_table(b"id,y\na,1e17\nb,\nc,2.5e16\n", name="v.csv")
+    # reference: pandas read_csv on the same text
+    expected = pd.read_csv(io.StringIO("id,y\na,1e17\nb,\nc,2.5e16\n"))
+    np.testing.assert_array_equal(got["y"].to_numpy(float), expected["y"].to_numpy(float))
+
+
 def test_nan_and_inf_cells_are_kept_for_the_checks_and_na_is_missing():
     got = read_table(b"id,y,z\na,nan,NA\nb,2,\nc,inf,3\n", name="v.csv")
     assert got["y"].tolist()[0] == "nan"
@@ -328,3 +336,36 @@ def test_twenty_sixteen_digit_ids_stay_twenty_through_the_cli(tmp_path, with_gap
     # reference: the 20 Python integers written to the file
     assert got["cohort"]["subjects"] == 20
     assert sorted(int(s["subject"]) for s in got["subjects"]) == ids
+
+
+@pytest.mark.parametrize("order, fmt", [("day-first", "%d/%m/%Y"), ("month-first", "%m/%d/%Y")])
+def test_cli_date_order_flag_settles_an_unclear_column(tmp_path, order, fmt):
+    src = Path(__file__).resolve().parent / "data" / "bad" / "dates_order_unclear.csv"
+    out = tmp_path / "out.json"
+    assert main(["summarize", str(src), "--subject", "id", "--time", "t", "--response", "y",
+                 "--origin", "first-visit", "--unit", "days", "--date-order", order,
+                 "--json", str(out)]) == 0
+    got = json.loads(out.read_text())
+    assert got["settings"]["date_order"] == order
+    # reference: pandas to_datetime with the explicit format (days since each first visit),
+    # then numpy least-squares slopes per subject
+    raw = pd.read_csv(src)
+    t = pd.to_datetime(raw["t"], format=fmt)
+    raw["days"] = (t - t.groupby(raw["id"]).transform("min")).dt.days.astype(float)
+    expected = {k: np.polyfit(g["days"], g["y"], 1)[0] for k, g in raw.groupby("id")}
+    assert {s["subject"]: s["slope"] for s in got["subjects"]} == pytest.approx(expected)
+
+
+def test_cli_runs_with_an_unused_nested_parquet_column(tmp_path):
+    frame = pd.DataFrame({"id": list("aaabbbccc"), "t": [0.0, 1.0, 2.0] * 3,
+                          "y": [1.0, 2.0, 4.0, 1.0, 3.0, 5.0, 2.0, 2.0, 2.0],
+                          "extra": [{"k": i, "v": [i]} for i in range(9)]})
+    p = tmp_path / "n.parquet"
+    frame.to_parquet(p)
+    out = tmp_path / "out.json"
+    assert main(["summarize", str(p), "--subject", "id", "--time", "t", "--response", "y",
+                 "--json", str(out)]) == 0
+    # reference: numpy least-squares slope of subject a's three points
+    slope = np.polyfit([0.0, 1.0, 2.0], [1.0, 2.0, 4.0], 1)[0]
+    got = {s["subject"]: s["slope"] for s in json.loads(out.read_text())["subjects"]}
+    assert got["a"] == pytest.approx(slope)
