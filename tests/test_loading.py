@@ -1,5 +1,6 @@
 """Reading tables: delimiter sniffing, encodings, Parquet, content hash."""
 import io
+import os
 from pathlib import Path
 
 import numpy as np
@@ -218,6 +219,10 @@ def test_folder_missing_broken_link_and_unreadable(tmp_path, monkeypatch):
     (tmp_path / "link.csv").symlink_to(tmp_path / "gone.csv")
     with pytest.raises(DataError, match="does not exist"):
         read_table(tmp_path / "link.csv")
+    fifo = tmp_path / "pipe.csv"
+    os.mkfifo(fifo)  # opening it would wait for a writer: refused before any read
+    with pytest.raises(DataError, match="not a regular file"):
+        read_table(fifo)
     p = tmp_path / "x.csv"
     p.write_text("a,b\n1,2\n")
 
