@@ -516,7 +516,8 @@ def _check_constant_within_subject(work: pd.DataFrame, col: str, column: str, ro
         first = work[work["subject"].isin(varying[:1])]
         raise DataError(
             f"column '{clip(column)}' ({role}) must be the same on every row of a subject; it "
-            f"varies for {len(varying)} subject(s), e.g. {', '.join(map(clip, labels[varying[:3]]))} "
+            f"varies for {len(varying)} subject(s), e.g. "
+            f"{', '.join(map(clip, labels[varying[:3]]))} "
             f"({row_list(first['_row'].to_numpy())})",
             column=column, positions=first["_row"].to_numpy()[:20])
 
@@ -577,7 +578,8 @@ def _baseline_values(work: pd.DataFrame, covariates, kinds, warnings: list,
         if len(varying):
             warnings.append(
                 f"baseline covariate '{clip(c)}' changes within {len(varying)} subject(s) "
-                f"(e.g. {', '.join(map(clip, labels[varying[:3]]))}); the first visit's value is used")
+                f"(e.g. {', '.join(map(clip, labels[varying[:3]]))}); "
+                "the first visit's value is used")
     return out
 
 
