@@ -44,4 +44,22 @@ def row_list(rows, limit: int = 5) -> str:
 def rows_hold(rows, examples, limit: int = 5) -> str:
     """'rows 2, 5 hold 'x', 'y'' / 'row 4 holds 'x'' from 0-based positions and example values."""
     verb = "holds" if len(rows) == 1 else "hold"
-    return f"{row_list(rows, limit)} {verb} " + ", ".join(repr(v) for v in examples)
+    return f"{row_list(rows, limit)} {verb} " + ", ".join(quoted(v) for v in examples)
+
+
+#: longest cell value or column name echoed in a message
+ECHO_LIMIT = 200
+
+
+def clip(value, limit: int = ECHO_LIMIT) -> str:
+    """``str(value)`` cut to ``limit`` characters with an ellipsis, for echoing input in messages."""
+    text = str(value)
+    return text if len(text) <= limit else text[: limit - 1] + "…"
+
+
+def quoted(value, limit: int = ECHO_LIMIT) -> str:
+    """``repr`` of a cell value (a string is quoted), cut like :func:`clip`."""
+    if hasattr(value, "item") and not isinstance(value, str):  # numpy scalar: as plain Python
+        value = value.item()
+    text = repr(value) if not isinstance(value, str) else repr(clip(value, limit))
+    return clip(text, limit + 2)

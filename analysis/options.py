@@ -9,6 +9,7 @@ Transform = Literal["none", "log", "log2", "log10"]
 StrataMethod = Literal["equal-width", "quantile", "custom"]
 Detrend = Literal["none", "linear", "spline", "lowess"]
 DuplicatePolicy = Literal["reject", "average"]
+DateOrder = Literal["auto", "day-first", "month-first"]
 
 ORIGINS: tuple[str, ...] = get_args(Origin)
 UNITS: tuple[str, ...] = get_args(Unit)
@@ -16,6 +17,7 @@ TRANSFORMS: tuple[str, ...] = get_args(Transform)
 STRATA_METHODS: tuple[str, ...] = get_args(StrataMethod)
 DETRENDS: tuple[str, ...] = get_args(Detrend)
 DUPLICATE_POLICIES: tuple[str, ...] = get_args(DuplicatePolicy)
+DATE_ORDERS: tuple[str, ...] = get_args(DateOrder)
 CENTER_WORDS: tuple[str, ...] = ("none", "mean", "median")
 
 #: length of one unit in days (a month is an average Gregorian month)

@@ -7,7 +7,8 @@ not refit the per-subject lines or re-read the table.
 
 Stages and the settings they read (see :data:`analysis.settings.STAGE_FIELDS`)::
 
-    selection     origin, unit, window, min visits, require covariate, covariate, duplicates
+    selection     origin, unit, window, min visits, require covariate, covariate, duplicates,
+                  date order
     cohort        selection + transform, centring, stratifier and its cut
     subject_fits  selection
     residuals     selection + detrending (+ strata when detrending within strata)

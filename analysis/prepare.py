@@ -13,21 +13,18 @@ Two steps, cached separately by the pipeline:
 """
 from __future__ import annotations
 
-import re
 from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
 
 from . import options as opt
-from .errors import DataError, SettingsError, row_list, rows_hold
-from .loading import column_kind, parse_dates
+from .errors import DataError, SettingsError, clip, row_list, rows_hold
+from .loading import (NON_FINITE_TEXT, column_kind, date_fraction, decimal_comma_numbers,
+                      nested_cells, read_dates)
 from .panel import Panel
 from .settings import Roles, Settings
 from .strata import Strata, categorical_strata, center_values, cut_strata, transform_values
-
-_DECIMAL_COMMA = re.compile(r"^\s*[-+]?\d+,\d+\s*$")
-
 
 # --------------------------------------------------------------------------- results
 @dataclass(frozen=True)
@@ -298,19 +295,20 @@ def select_cohort(df: pd.DataFrame, roles: Roles, settings: Settings) -> CohortS
     work = pd.DataFrame({"_row": np.arange(len(df), dtype=np.int64)})
     sid, labels = _subject_codes(df[roles.subject])
     work["subject"] = sid                       # rank of the subject's label; -1 = missing
-    work["response"] = _numeric(df[roles.response], roles.response, "response")
-    time_kind = _time_kind(df[roles.time])
-    work["time_raw"] = _time_values(df[roles.time], roles.time, "time", time_kind)
+    work["response"] = _numeric(df[roles.response], roles.response, "response", finite=True)
+    time_kind, work["time_raw"] = _time_column(df[roles.time], roles.time, "time",
+                                               settings.date_order)
     if settings.origin == "as-is" and time_kind == "date":
         raise SettingsError(
-            f"column '{roles.time}' holds dates, so time since an origin must be computed: "
+            f"column '{clip(roles.time)}' holds dates, so time since an origin must be computed: "
             "choose origin 'event-date' (with an event-date column) or 'first-visit'"
         )
     if settings.origin == "event-date":
-        work["event"] = _time_values(df[roles.event_date], roles.event_date, "event date", time_kind)
+        work["event"] = _time_values(df[roles.event_date], roles.event_date, "event date",
+                                     time_kind, settings.date_order)
     if roles.followup_end:
         work["fu_end"] = _time_values(df[roles.followup_end], roles.followup_end,
-                                      "follow-up end", time_kind)
+                                      "follow-up end", time_kind, settings.date_order)
     latest = float(_days(work["time_raw"]).max()) if time_kind == "date" else np.nan
     for c in covariates:
         work[f"cov:{c}"] = df[c].to_numpy()
@@ -323,7 +321,7 @@ def select_cohort(df: pd.DataFrame, roles: Roles, settings: Settings) -> CohortS
     if settings.origin == "event-date":
         _check_constant_within_subject(work, "event", roles.event_date, "event date", labels)
         work = work[work["event"].notna().to_numpy()]
-        tracker.record(f"Event date ({roles.event_date}) present", work["subject"].to_numpy())
+        tracker.record(f"Event date ({clip(roles.event_date)}) present", work["subject"].to_numpy())
     if roles.followup_end:
         _check_constant_within_subject(work, "fu_end", roles.followup_end, "follow-up end", labels)
 
@@ -351,7 +349,7 @@ def select_cohort(df: pd.DataFrame, roles: Roles, settings: Settings) -> CohortS
     if primary and settings.require_covariate:
         has = base.index[base[primary].notna()].to_numpy()
         work = work[np.isin(work["subject"].to_numpy(), has)]
-        tracker.record(f"Baseline {primary} present", work["subject"].to_numpy())
+        tracker.record(f"Baseline {clip(primary)} present", work["subject"].to_numpy())
 
     n_visits = np.bincount(work["subject"].to_numpy(), minlength=len(labels))
     work = work[n_visits[work["subject"].to_numpy()] >= settings.min_visits]
@@ -399,7 +397,7 @@ def stratify(selection: CohortSelection, settings: Settings) -> PreparedCohort:
     elif primary is not None and settings.transform != "none":
         raise SettingsError(
             f"transform == {settings.transform!r} needs a numeric covariate, "
-            f"but '{primary}' is categorical; choose transform 'none'"
+            f"but '{clip(primary)}' is categorical; choose transform 'none'"
         )
     by = settings.stratify_by or primary
     m = len(base)
@@ -459,13 +457,22 @@ def _check_columns(df: pd.DataFrame, roles: Roles, settings: Settings) -> None:
         named.append(("covariate", settings.covariate))
     if settings.stratify_by:
         named.append(("stratify by", settings.stratify_by))
-    available = ", ".join(f"'{c}'" for c in df.columns)
+    available = ", ".join(f"'{clip(c, 60)}'" for c in df.columns[:30])
+    if len(df.columns) > 30:
+        available += f" and {len(df.columns) - 30} more"
     for role, col in named:
         if col not in df.columns:
-            raise DataError(f"column '{col}' ({role}) is not in the table; columns are {available}",
-                            column=col)
+            raise DataError(f"column '{clip(col)}' ({role}) is not in the table; "
+                            f"columns are {available}", column=col)
         if df[col].isna().all():
-            raise DataError(f"column '{col}' ({role}) has no values in any row", column=col)
+            raise DataError(f"column '{clip(col)}' ({role}) has no values in any row", column=col)
+        nested = nested_cells(df[col])
+        if nested.any():
+            rows = np.flatnonzero(nested)
+            raise DataError(
+                f"column '{clip(col)}' ({role}) holds lists or records (e.g. a Parquet list or "
+                f"struct column) in {row_list(rows)}; a role column must hold plain numbers, "
+                "dates or text", column=col, positions=rows[:20])
     roles_used = [c for _, c in named[:3]]
     if len(set(roles_used)) < 3:
         raise DataError("subject, time and response must be three different columns",
@@ -475,18 +482,27 @@ def _check_columns(df: pd.DataFrame, roles: Roles, settings: Settings) -> None:
 def _subject_codes(s: pd.Series) -> tuple[np.ndarray, np.ndarray]:
     """(code per row, distinct labels in sorted order): code = the label's rank, -1 if missing.
 
-    Labels are the stripped text (empty = missing), or numbers with whole values shown as
-    integers. The cleaning runs on the distinct raw values only, so it costs little on long
-    tables; raw values that clean to the same label (e.g. 'A' and 'A ') share one code.
+    Labels are the stripped text (empty = missing), integers kept exact (long ids never pass
+    through a float, so two ids above 2**53 never merge), or for a float column whole values
+    as integers and any other value (1.5, inf) as its text. The cleaning runs on the distinct
+    raw values only, so it costs little on long tables; raw values that clean to the same
+    label (e.g. 'A' and 'A ') share one code.
     """
-    numeric = pd.api.types.is_numeric_dtype(s) and not pd.api.types.is_bool_dtype(s)
+    integer = pd.api.types.is_integer_dtype(s) and not pd.api.types.is_bool_dtype(s)
+    floating = pd.api.types.is_float_dtype(s)
     # factorize plain arrays: uniques come back as an array, without building a pandas Index
-    raw = s.to_numpy(dtype=float) if numeric else s.to_numpy(dtype=object, na_value=None)
-    raw_codes, raw_uniq = pd.factorize(raw, use_na_sentinel=True)
-    if numeric:
+    if integer:
+        raw_codes, raw_uniq = pd.factorize(s, use_na_sentinel=True)
+        clean = pd.Series([int(x) for x in raw_uniq], dtype=object)
+    elif floating:
+        raw_codes, raw_uniq = pd.factorize(s.to_numpy(dtype=float, na_value=np.nan),
+                                           use_na_sentinel=True)
         v = np.asarray(raw_uniq, dtype=float)
-        clean = pd.Series([int(x) if x == int(x) else float(x) for x in v], dtype=object)
+        clean = pd.Series([int(x) if np.isfinite(x) and x == int(x) else repr(float(x))
+                           for x in v], dtype=object)
     else:
+        raw = s.to_numpy(dtype=object, na_value=None)
+        raw_codes, raw_uniq = pd.factorize(raw, use_na_sentinel=True)
         text = pd.Series(raw_uniq, dtype=object).astype("string").str.strip()
         clean = text.mask(text == "").astype(object).where(text.notna() & (text != ""), None)
     clean_codes, clean_uniq = pd.factorize(clean.to_numpy(dtype=object), use_na_sentinel=True)
@@ -504,55 +520,76 @@ def _subject_codes(s: pd.Series) -> tuple[np.ndarray, np.ndarray]:
     return rows, labels
 
 
-def _numeric(s: pd.Series, column: str, role: str) -> pd.Series:
-    """Numbers as float; empty cells → NaN; anything else non-numeric → DataError."""
+def _numeric(s: pd.Series, column: str, role: str, *, finite: bool = False) -> pd.Series:
+    """Numbers as float; empty cells → NaN; a decimal comma is read as a decimal point;
+    anything else non-numeric → DataError. With ``finite``, also 'inf', '-inf', 'nan' written
+    as text and numbers too large for a float (1e309) → DataError."""
     if pd.api.types.is_numeric_dtype(s) and not pd.api.types.is_bool_dtype(s):
-        return s.astype(float)
-    text = s.astype("string").str.strip()
-    text = text.mask(text == "")
-    out = pd.to_numeric(text, errors="coerce")
-    bad = out.isna() & text.notna()
-    if bad.any():
-        fixable = text[bad].str.match(_DECIMAL_COMMA.pattern).fillna(False)
-        if fixable.all():
-            out = out.copy()
-            out[bad] = pd.to_numeric(text[bad].str.replace(",", ".", regex=False))
-            return out.astype(float)
-        rows = np.flatnonzero(bad.to_numpy())
-        raise DataError(
-            f"column '{column}' ({role}) must hold numbers; {rows_hold(rows, text[bad].unique()[:3])}",
-            column=column, positions=rows[:20])
-    return out.astype(float)
+        out = s.astype(float)
+        text = None
+    else:
+        text = s.astype("string").str.strip()
+        text = text.mask(text == "")
+        out = pd.to_numeric(text, errors="coerce")
+        bad = out.isna() & text.notna()
+        if bad.any():
+            nonfinite = text[bad].str.lower().isin(NON_FINITE_TEXT)
+            fixable = (decimal_comma_numbers(text[bad][~nonfinite]) is not None
+                       if (~nonfinite).any() else True)
+            if fixable:
+                out = out.copy()
+                rest = bad.copy()
+                rest[bad] = ~nonfinite.to_numpy()
+                if rest.any():
+                    out[rest] = decimal_comma_numbers(text[rest])
+            else:
+                rows = np.flatnonzero(bad.to_numpy())
+                raise DataError(
+                    f"column '{clip(column)}' ({role}) must hold numbers; "
+                    f"{rows_hold(rows, text[bad].unique()[:3])}",
+                    column=column, positions=rows[:20])
+        out = out.astype(float)
+    if finite:
+        flag = np.isinf(out.to_numpy(dtype=float, na_value=np.nan))
+        if text is not None:
+            flag |= text.str.lower().isin(NON_FINITE_TEXT).fillna(False).to_numpy(dtype=bool)
+        if flag.any():
+            rows = np.flatnonzero(flag)
+            shown = (text[flag] if text is not None else out[flag]).unique()[:3]
+            raise DataError(
+                f"column '{clip(column)}' ({role}) must hold finite numbers; "
+                f"{rows_hold(rows, shown)} (infinite, too large, or 'not a number'); "
+                "leave a cell empty when the value is missing", column=column, positions=rows[:20])
+    return out
 
 
-def _time_kind(s: pd.Series) -> str:
-    """'date' or 'number'; a column that is mostly dates counts as dates, so the few cells that
-    do not parse are reported by row rather than the whole column being called non-numeric."""
-    kind = column_kind(s)
-    if kind != "text":
-        return "date" if kind == "date" else "number"
-    values = s.dropna().astype("string").str.strip()
-    values = values[values != ""]
-    numeric = pd.to_numeric(values, errors="coerce").notna().mean()
-    dates = parse_dates(values).notna().mean()
-    return "date" if dates > max(numeric, 0.5) else "number"
+def _time_column(s: pd.Series, column: str, role: str, order: str) -> tuple[str, pd.Series]:
+    """('date' or 'number', the values), each cell parsed once.
+
+    A column that is mostly dates counts as dates, so the few cells that do not parse are
+    reported by row rather than the whole column being called non-numeric."""
+    if pd.api.types.is_datetime64_any_dtype(s):
+        return "date", read_dates(s, order=order, column=column, role=role)
+    if pd.api.types.is_numeric_dtype(s) and not pd.api.types.is_bool_dtype(s):
+        return "number", _numeric(s, column, role, finite=True)
+    # the kind is told from a spread-out sample; the whole column is converted once, below
+    values = s.dropna()
+    sample = values.iloc[:: max(1, len(values) // 500)].astype("string").str.strip()
+    sample = sample[sample != ""]
+    numeric = pd.to_numeric(sample, errors="coerce").notna().mean() if len(sample) else 0.0
+    if numeric < 1.0 and decimal_comma_numbers(sample) is None:
+        if date_fraction(sample, order) > max(numeric, 0.5):
+            return "date", read_dates(s, order=order, column=column, role=role)
+    return "number", _numeric(s, column, role, finite=True)
 
 
-def _time_values(s: pd.Series, column: str, role: str, kind: str) -> pd.Series:
+def _time_values(s: pd.Series, column: str, role: str, kind: str, order: str) -> pd.Series:
     if kind == "number":
         if column_kind(s) == "date":
-            raise DataError(f"column '{column}' ({role}) holds dates but the time column holds "
-                            "numbers; both must be numbers or both dates", column=column)
-        return _numeric(s, column, role)
-    parsed = parse_dates(s)
-    text = s.astype("string").str.strip()
-    bad = parsed.isna() & text.notna() & (text != "")
-    if bad.any():
-        rows = np.flatnonzero(bad.to_numpy())
-        raise DataError(
-            f"column '{column}' ({role}) must hold dates such as 2021-03-15; "
-            f"{rows_hold(rows, text[bad].unique()[:3])}", column=column, positions=rows[:20])
-    return parsed
+            raise DataError(f"column '{clip(column)}' ({role}) holds dates but the time column "
+                            "holds numbers; both must be numbers or both dates", column=column)
+        return _numeric(s, column, role, finite=True)
+    return read_dates(s, order=order, column=column, role=role)
 
 
 def _check_constant_within_subject(work: pd.DataFrame, col: str, column: str, role: str,
@@ -562,8 +599,9 @@ def _check_constant_within_subject(work: pd.DataFrame, col: str, column: str, ro
     if len(varying):
         first = work[work["subject"].isin(varying[:1])]
         raise DataError(
-            f"column '{column}' ({role}) must be the same on every row of a subject; it varies for "
-            f"{len(varying)} subject(s), e.g. {', '.join(map(str, labels[varying[:3]]))} "
+            f"column '{clip(column)}' ({role}) must be the same on every row of a subject; it "
+            f"varies for {len(varying)} subject(s), e.g. "
+            f"{', '.join(map(clip, labels[varying[:3]]))} "
             f"({row_list(first['_row'].to_numpy())})",
             column=column, positions=first["_row"].to_numpy()[:20])
 
@@ -634,8 +672,8 @@ def _handle_duplicates(work: pd.DataFrame, roles: Roles, settings: Settings,
         first = labels[work.loc[dup, "subject"].iloc[0]]
         raise DataError(
             f"{int(dup.sum())} rows repeat a (subject, time) pair already present, e.g. subject "
-            f"{first} ({row_list(rows)}); remove them, or choose duplicates 'average' to use the "
-            "mean response of each repeated visit", column=roles.time, positions=rows[:20])
+            f"{clip(first)} ({row_list(rows)}); remove them, or choose duplicates 'average' to use "
+            "the mean response of each repeated visit", column=roles.time, positions=rows[:20])
     agg = {c: "first" for c in work.columns if c not in ("subject", "time", "response")}
     agg["response"] = "mean"
     return work.groupby(["subject", "time"], sort=False, as_index=False).agg(agg)
@@ -660,8 +698,9 @@ def _baseline_values(work: pd.DataFrame, covariates, kinds, warnings: list,
         varying = n.index[n > 1]
         if len(varying):
             warnings.append(
-                f"baseline covariate '{c}' changes within {len(varying)} subject(s) "
-                f"(e.g. {', '.join(map(str, labels[varying[:3]]))}); the first visit's value is used")
+                f"baseline covariate '{clip(c)}' changes within {len(varying)} subject(s) "
+                f"(e.g. {', '.join(map(clip, labels[varying[:3]]))}); "
+                "the first visit's value is used")
     return out
 
 

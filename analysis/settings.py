@@ -68,7 +68,7 @@ class Roles:
 # fields of its own stage plus those of every stage it depends on.
 STAGE_FIELDS: dict[str, tuple[str, ...]] = {
     "cohort": ("origin", "unit", "time_min", "time_max", "min_visits", "require_covariate",
-               "covariate", "duplicates"),
+               "covariate", "duplicates", "date_order"),
     "strata": ("transform", "center", "stratify_by", "strata_method", "n_strata", "breaks"),
     "residuals": ("detrend", "spline_df", "lowess_frac", "detrend_within_strata"),
     "variogram": ("variogram_bins", "variogram_max_lag"),
@@ -98,6 +98,7 @@ class Settings:
     require_covariate: bool = True
     covariate: str | None = None
     duplicates: str = "reject"
+    date_order: str = "auto"
     transform: str = "none"
     center: str | float = "none"
     stratify_by: str | None = None
@@ -124,6 +125,7 @@ class Settings:
         _choice("origin", self.origin, opt.ORIGINS)
         _choice("unit", self.unit, opt.UNITS)
         _choice("duplicates", self.duplicates, opt.DUPLICATE_POLICIES)
+        _choice("date_order", self.date_order, opt.DATE_ORDERS)
         _choice("transform", self.transform, opt.TRANSFORMS)
         _choice("strata_method", self.strata_method, opt.STRATA_METHODS)
         _choice("detrend", self.detrend, opt.DETRENDS)

@@ -29,6 +29,9 @@ SETTING_FLAGS: tuple[tuple[str, str, object, tuple | None, str], ...] = (
      "which baseline covariate is transformed and enters the interaction [first --covariate]"),
     ("--duplicates", "duplicates", str, opt.DUPLICATE_POLICIES,
      "repeated (subject, time) rows: reject or average [reject]"),
+    ("--date-order", "date_order", str, opt.DATE_ORDERS,
+     "how to read dates such as 03/04/2021: auto (stop when unclear), day-first or month-first "
+     "[auto]"),
     ("--transform", "transform", str, opt.TRANSFORMS, "covariate transform [none]"),
     ("--center", "center", str, None, "covariate centring: none, mean, median or a number [none]"),
     ("--stratify-by", "stratify_by", str, None, "covariate to cut into strata [primary covariate]"),

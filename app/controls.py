@@ -26,6 +26,9 @@ STRATA_METHOD_LABELS = {"quantile": "equal counts (quantiles)", "equal-width": "
 DETREND_LABELS = {"none": "none (raw response)", "linear": "straight line in time",
                   "spline": "smooth spline in time", "lowess": "lowess smooth"}
 DUPLICATE_LABELS = {"reject": "stop with a message", "average": "average them"}
+DATE_ORDER_LABELS = {"auto": "as the data show",
+                     "day-first": "day first (31.12.2021, 31/12/2021)",
+                     "month-first": "month first (12/31/2021)"}
 CENTER_CHOICES = {"none": "no centring", "mean": "cohort mean", "median": "cohort median",
                   "value": "a value I give"}
 
@@ -159,6 +162,7 @@ FIELD_LABELS = {
     "require_covariate": "Require the baseline covariate",
     "covariate": "Baseline covariate",
     "duplicates": "Two visits at the same time",
+    "date_order": "Dates written",
     "transform": "Transform",
     "center": "Centre at",
     "stratify_by": "Group subjects by",

@@ -32,7 +32,7 @@ ROLES_STATUS = "roles-status"
 # -- settings panel: one control + one message per Settings field ------------
 SETTING_FIELDS = (
     "origin", "unit", "time_min", "time_max", "min_visits", "require_covariate",
-    "covariate", "duplicates", "transform", "center", "stratify_by", "strata_method",
+    "covariate", "duplicates", "date_order", "transform", "center", "stratify_by", "strata_method",
     "n_strata", "breaks", "detrend", "spline_df", "lowess_frac", "detrend_within_strata",
     "variogram_bins", "variogram_max_lag", "lag_width", "data_cut",
 )

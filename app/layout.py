@@ -50,7 +50,7 @@ def build_layout(settings: Settings) -> html.Div:
             html.Aside(settings_panel(settings), className="cl-side"),
             html.Main(className="cl-main", children=[
                 html.Div(id=ids.PAGE_ALERT, className="cl-alert", role="status"),
-                data_section(),
+                data_section(settings),
                 kept_section(),
                 selection_bar(),
                 course_section(),
@@ -129,7 +129,7 @@ def number(id_: str, value, *, step="any", min_=None, placeholder=None) -> dcc.I
 
 
 # ------------------------------------------------------------------ data section
-def data_section() -> html.Section:
+def data_section(settings: Settings | None = None) -> html.Section:
     role_rows = [
         ("subject", "Subject identifier", False, None),
         ("time", "Time or visit date", False,
@@ -160,11 +160,25 @@ def data_section() -> html.Section:
                    ]),
                    message(ids.DATA_UPLOAD_MSG),
                    html.Div(className="cl-roles", children=[
-                       field(label, dcc.Dropdown(id=ids.ROLE_INPUT[r], multi=multi, options=[],
-                                                 placeholder="choose a column…",
-                                                 clearable=True),
-                             ids.ROLE_MSG[r], hint)
-                       for r, label, multi, hint in role_rows]),
+                       *[field(label, dcc.Dropdown(id=ids.ROLE_INPUT[r], multi=multi, options=[],
+                                                   placeholder="choose a column…",
+                                                   clearable=True),
+                               ids.ROLE_MSG[r], hint)
+                         for r, label, multi, hint in role_rows[:2]],
+                       # read with the time role: how year-last dates in the time and
+                       # event-date columns are read
+                       field(ctl.FIELD_LABELS["date_order"],
+                             dcc.Dropdown(id=ids.SETTING_INPUT["date_order"],
+                                          options=ctl.choice_options(ctl.DATE_ORDER_LABELS),
+                                          value=(settings or Settings()).date_order,
+                                          clearable=False, searchable=False),
+                             ids.SETTING_MSG["date_order"],
+                             "For dates with the year last, e.g. 03/04/2021."),
+                       *[field(label, dcc.Dropdown(id=ids.ROLE_INPUT[r], multi=multi, options=[],
+                                                   placeholder="choose a column…",
+                                                   clearable=True),
+                               ids.ROLE_MSG[r], hint)
+                         for r, label, multi, hint in role_rows[2:]]]),
                    html.Div(id=ids.ROLES_STATUS, className="cl-status"),
                    html.Details(className="cl-preview", open=True, children=[
                        html.Summary("First rows of the table"),

@@ -25,6 +25,7 @@ _FLOAT_OR_NONE = {"time_min", "time_max", "variogram_max_lag", "lag_width"}
 _INTS = {"min_visits": 1, "n_strata": 1, "spline_df": 1, "variogram_bins": 1}
 _BOOLS = {"require_covariate", "detrend_within_strata"}
 _CHOICES = {"origin": opt.ORIGINS, "unit": opt.UNITS, "duplicates": opt.DUPLICATE_POLICIES,
+            "date_order": opt.DATE_ORDERS,
             "transform": opt.TRANSFORMS, "strata_method": opt.STRATA_METHODS,
             "detrend": opt.DETRENDS}
 _NAMES_OR_NONE = {"covariate", "stratify_by", "data_cut"}  # data_cut: a date, checked by Settings

@@ -259,7 +259,8 @@ def test_render_key_of_unusable_stores_is_stable_and_does_not_raise(app_ctx):
 ALTERNATES = {
     "origin": "first-visit", "unit": "weeks", "time_min": 1.5, "time_max": 48.25,
     "min_visits": 5, "require_covariate": False, "covariate": "age_at_tx",
-    "duplicates": "average", "transform": "log10", "center": 2.5, "stratify_by": "centre",
+    "duplicates": "average", "date_order": "day-first",
+    "transform": "log10", "center": 2.5, "stratify_by": "centre",
     "strata_method": "custom", "n_strata": 3, "breaks": (1.0, 2.5, 7.125),
     "detrend": "lowess", "spline_df": 6, "lowess_frac": 0.45, "detrend_within_strata": True,
     "variogram_bins": 17, "variogram_max_lag": 30.0, "lag_width": 4.5, "data_cut": "2022-12-31",

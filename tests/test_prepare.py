@@ -269,3 +269,98 @@ def test_small_groups_reach_the_cohort_warnings_and_the_report():
     text = build_report(c)
     for w in small:
         assert w.replace("'", "&#x27;") in text
+
+
+# ------------------------------------------------------------------ input checks (dates, ids, values)
+from analysis.errors import ECHO_LIMIT  # noqa: E402
+
+SIMPLE = Roles("pid", "t", "y")
+
+
+def _simple(t, y=None, pid=None) -> pd.DataFrame:
+    n = len(t)
+    return pd.DataFrame({"pid": pid if pid is not None else [f"S{i // 3}" for i in range(n)],
+                         "t": t, "y": y if y is not None else np.arange(n, dtype=float)})
+
+
+@pytest.mark.parametrize("bad, row", [(np.inf, 3), (-np.inf, 2), ("inf", 4), ("1e309", 5),
+                                      ("nan", 3), ("-Infinity", 6)])
+def test_non_finite_time_is_named_by_row(bad, row):
+    t = [0.0, 1.0, 2.0, 0.0, 1.0, 2.0]
+    t = [str(v) for v in t] if isinstance(bad, str) else t
+    t[row - 2] = bad
+    with pytest.raises(DataError, match=r"column 't' \(time\) must hold finite numbers") as err:
+        select_cohort(_simple(t), SIMPLE, Settings(min_visits=1))
+    assert err.value.rows == (row,) and err.value.column == "t"
+
+
+def test_non_finite_response_is_named_and_a_real_missing_value_is_not():
+    y = [1.0, 2.0, np.inf, 1.0, 2.0, 3.0]
+    with pytest.raises(DataError, match=r"'y' \(response\).*row 4"):
+        select_cohort(_simple([0.0, 1, 2] * 2, y), SIMPLE, Settings(min_visits=1))
+    y[2] = np.nan  # an empty cell: dropped and counted, as before
+    sel = select_cohort(_simple([0.0, 1, 2] * 2, y), SIMPLE, Settings(min_visits=1))
+    assert sel.panel.n_obs == 5  # reference: six rows minus the one missing response
+
+
+def test_day_first_dates_with_event_date_match_pandas_with_the_format():
+    df = cohort_frame()
+    text = df.assign(visit=pd.to_datetime(df["visit"]).dt.strftime("%d/%m/%Y"),
+                     tx=pd.to_datetime(df["tx"]).dt.strftime("%d/%m/%Y"))
+    got = select_cohort(text, ROLES, settings())
+    iso = select_cohort(df, ROLES, settings())
+    # reference: the same visits written yyyy-mm-dd, read by pandas' ISO parser
+    np.testing.assert_array_equal(got.panel.time, iso.panel.time)
+    amb = pd.DataFrame({"pid": ["A"] * 3, "visit": ["01/02/2021", "01/03/2021", "05/04/2021"],
+                        "tx": ["01/01/2021"] * 3, "gfr": [50.0, 51.0, 52.0]})
+    roles = Roles("pid", "visit", "gfr", event_date="tx")
+    with pytest.raises(DataError, match="date order") as err:
+        select_cohort(amb, roles, settings(unit="days"))
+    assert err.value.column == "visit"
+    for order, fmt in (("month-first", "%m/%d/%Y"), ("day-first", "%d/%m/%Y")):
+        sel = select_cohort(amb, roles, settings(unit="days", date_order=order))
+        # reference: pandas to_datetime told the format, differences in days
+        ref = (pd.to_datetime(amb["visit"], format=fmt) - pd.to_datetime(amb["tx"], format=fmt))
+        np.testing.assert_array_equal(sel.panel.time, ref.dt.days.to_numpy(float))
+
+
+def test_sixteen_digit_ids_never_merge_dataframe_path():
+    ids = np.array([9007199254740993 + k for k in range(20)], dtype=np.int64)  # above 2**53
+    assert len(np.unique(ids.astype(float))) < 20  # what a float would do
+    df = pd.DataFrame({"pid": np.repeat(ids, 3), "t": np.tile([0.0, 1.0, 2.0], 20),
+                       "y": np.arange(60, dtype=float)})
+    sel = select_cohort(df, SIMPLE, Settings(min_visits=1))
+    # reference: the 20 distinct Python integers given
+    assert sel.panel.n_subjects == 20
+    assert sorted(sel.subject_ids.tolist()) == sorted(int(i) for i in ids)
+    nullable = df.assign(pid=df["pid"].astype("Int64"))
+    nullable.loc[0, "pid"] = pd.NA
+    sel = select_cohort(nullable, SIMPLE, Settings(min_visits=1))
+    assert sel.panel.n_subjects == 20 and int(ids[1]) in sel.subject_ids.tolist()
+
+
+def test_float_ids_that_are_not_whole_are_text_and_inf_is_no_traceback():
+    df = _simple([0.0, 1, 2] * 3, pid=[1.5] * 3 + [2.0] * 3 + [np.inf] * 3)
+    sel = select_cohort(df, SIMPLE, Settings(min_visits=1))
+    assert sorted(map(str, sel.subject_ids)) == ["1.5", "2", "inf"]
+    assert 2 in sel.subject_ids.tolist()  # whole numbers stay numbers
+
+
+def test_a_nested_role_column_is_a_message():
+    df = _simple([0.0, 1, 2] * 2, y=[[1.0]] * 6)
+    with pytest.raises(DataError, match=r"'y' \(response\) holds lists or records"):
+        select_cohort(df, SIMPLE, Settings(min_visits=1))
+
+
+def test_huge_cells_and_names_are_cut_in_messages():
+    y = ["1", "x" * 1_000_000, "3", "1", "2", "3"]
+    with pytest.raises(DataError) as err:
+        select_cohort(_simple([0.0, 1, 2] * 2, y), SIMPLE, Settings(min_visits=1))
+    assert "row 3" in str(err.value) and len(str(err.value)) < 2 * ECHO_LIMIT + 200
+    long = "c" * 5000
+    with pytest.raises(DataError, match="is not in the table") as err:
+        select_cohort(_simple([0.0, 1, 2]).rename(columns={"y": long}), SIMPLE, Settings())
+    assert len(str(err.value)) < 2 * ECHO_LIMIT + 200
+    with pytest.raises(DataError, match="is not in the table") as err:
+        select_cohort(_simple([0.0, 1, 2]), Roles("pid", "t", long), Settings())
+    assert len(str(err.value)) < 2 * ECHO_LIMIT + 200
