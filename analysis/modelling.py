@@ -192,8 +192,9 @@ def fit_candidates(cohort, *, structures=DEFAULT_CANDIDATES, correlation: str = 
     Raises
     ------
     ModelError
-        Bad options, or the design cannot be built (e.g. collinear confounders).
-        A candidate whose fit fails is recorded with its message instead.
+        Bad options, the design cannot be built (e.g. collinear confounders), or
+        the response has no variation (constant, or reproduced exactly by the
+        mean model). A candidate whose fit fails is recorded with its message instead.
 
     Notes
     -----
@@ -243,6 +244,10 @@ def fit_candidates(cohort, *, structures=DEFAULT_CANDIDATES, correlation: str = 
         panel = panel.subset_subjects(keep)
         baseline = baseline.loc[keep].reset_index(drop=True)
     des = design(panel, baseline, mean, covariate_name=COVARIATE_COLUMN)
+    from .mixed.fit import response_variation_problem
+    problem = response_variation_problem(panel.y, des.X, response=_labels(cohort)["response_label"])
+    if problem:
+        raise ModelError(problem)
 
     candidates = []
     runs = [(s, c) for s in structures for c in (shapes if "serial" in s else shapes[:1])]

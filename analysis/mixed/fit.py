@@ -71,6 +71,9 @@ def _check_inputs(panel, X, names, spec, method, correlation, maxiter):
             raise ModelError(f"design column {names[j]!r} has no variation (every row is "
                              f"{X[0, j]:g}); remove it or check the covariate")
     _check_rank(X, names)
+    problem = response_variation_problem(panel.y, X)
+    if problem:
+        raise ModelError(problem)
     m = panel.n_subjects
     if m < spec.min_subjects:
         raise ModelError(f"structure {spec.name!r} needs at least {spec.min_subjects} subjects "
@@ -85,6 +88,35 @@ def _check_inputs(panel, X, names, spec, method, correlation, maxiter):
             raise ModelError("a random slope needs at least one subject with 2 or more distinct "
                              "visit times; no subject has")
     return X, names
+
+
+def response_variation_problem(y, X, *, response: str = "response") -> str | None:
+    """Why ``y`` leaves nothing for a covariance model to describe, or None.
+
+    Two refusals: every value of the response is the same, or the OLS fit of
+    the mean-model design reproduces it exactly (residual sum of squares below
+    1e-20 of the total sum of squares about the mean, i.e. rounding error).
+    Either way a likelihood fit would drive every variance to 0 and report
+    meaningless "converged" results.
+    """
+    y = np.asarray(y, dtype=float)
+    if y.size == 0:
+        return None
+    dev = y - y.mean()
+    tss = float(dev @ dev)
+    if tss <= (1e-12 * max(abs(float(y.mean())), 1e-300))**2 * y.size:
+        return (f"{response} has no variation: every value is {y[0]:g}; a model of change over "
+                "time needs a response that varies")
+    X = np.asarray(X, dtype=float)
+    if X.ndim == 1:
+        X = X[:, None]
+    beta = np.linalg.lstsq(X, y, rcond=None)[0]
+    r = y - X @ beta
+    if float(r @ r) <= 1e-20 * tss:
+        return (f"the mean model reproduces {response} exactly (no residual variation left "
+                "after the fixed effects): there is nothing for a covariance model to describe; "
+                "check that the response is not computed from the time or covariate columns")
+    return None
 
 
 def _check_rank(X, names):
