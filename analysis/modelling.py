@@ -103,6 +103,25 @@ class ModelSet:
     n_dropped: int
     method: str = "reml"
     correlation: str = "exponential"
+    panel: object | None = None
+
+    def mean_residuals(self) -> np.ndarray:
+        """OLS residuals of the response on this set's fixed-effects design, panel row order."""
+        X, y = self.design.X, self.panel.y
+        beta = np.linalg.lstsq(X, y, rcond=None)[0]
+        return y - X @ beta
+
+    def residual_variogram(self, *, n_bins: int = 10, max_lag: float | None = None):
+        """Empirical semivariogram of :meth:`mean_residuals` (like with like for the overlay).
+
+        The fitted semivariograms describe the residuals about the models' own mean
+        (the fixed-effects design), so the points they are drawn against come from
+        the same mean model, fitted by OLS, not from the exploratory smooth trend.
+        Computed by :func:`analysis.variogram.semivariogram`.
+        """
+        from .variogram import semivariogram
+        return semivariogram(self.panel.with_y(self.mean_residuals()), n_bins=n_bins,
+                             max_lag=max_lag)
 
     @property
     def fits(self) -> dict:
@@ -300,7 +319,7 @@ def fit_candidates(cohort, *, structures=DEFAULT_CANDIDATES, correlation: str = 
     return ModelSet(mean=mean, design=des, candidates=tuple(candidates), comparison=comp,
                     lrts=tuple(lrts), gee=tuple(gee_rows), preferred=preferred, effect=effect,
                     notes=tuple(notes), n_subjects=panel.n_subjects, n_obs=panel.n_obs,
-                    n_dropped=n_dropped, method=method, correlation=correlation)
+                    n_dropped=n_dropped, method=method, correlation=correlation, panel=panel)
 
 
 # --------------------------------------------------------------------------- helpers
