@@ -199,3 +199,10 @@ def test_cli_fit_refuses_a_constant_response(tmp_path, capsys):
     err = capsys.readouterr().err
     assert "no variation" in err and "50" in err
     assert not out.exists()
+
+
+def test_boundary_wording_in_the_tables():
+    from analysis.report import variance_interval
+    assert "one-sided, lower limit 0" in variance_interval(0.0, np.nan, True)
+    assert "boundary" in variance_interval(np.nan, np.nan, True)
+    assert variance_interval(np.nan, np.nan, False) == "not available"
