@@ -22,7 +22,6 @@ from .options import TRANSFORM_STEP, TRANSFORMS
 #: The caution every statement ends with.
 CAUTION = "This is an association in this cohort, not a causal effect."
 
-_Z95 = 1.959963984540054
 
 
 @dataclass(frozen=True)

@@ -21,7 +21,6 @@ from .panel import Panel
 #: Working correlation structures offered.
 WORKING: tuple[str, ...] = ("exchangeable", "autoregressive", "independence")
 
-_Z95 = 1.959963984540054
 
 
 @dataclass(frozen=True, eq=False)
@@ -36,7 +35,8 @@ class GEEFit:
         Term names.
     beta : ndarray (p,)
     robust_cov_beta : ndarray (p, p)
-        Sandwich covariance clustered by subject (Liang & Zeger, 1986).
+        Sandwich covariance clustered by subject (Liang & Zeger, 1986) with the
+        Mancl–DeRouen (2001) bias reduction (statsmodels ``cov_type="bias_reduced"``).
     naive_cov_beta : ndarray (p, p)
         Model-based covariance under the working correlation.
     working_params : dict
@@ -47,6 +47,11 @@ class GEEFit:
     converged : bool
     message : str
         Warnings raised while fitting (empty if none).
+
+    Notes
+    -----
+    Intervals and p-values refer the Wald statistic to Student's t with
+    subjects − p degrees of freedom (:attr:`robust_df`).
     """
 
     working: str
@@ -65,22 +70,30 @@ class GEEFit:
         """Display name, e.g. "GEE (exchangeable)"."""
         return f"GEE ({self.working})"
 
+    @property
+    def robust_df(self) -> float:
+        """Degrees of freedom of the robust t statistics: subjects − p (at least 1)."""
+        return float(max(self.n_subjects - len(self.names), 1))
+
     def fixed_frame(self) -> pd.DataFrame:
-        """Estimates with robust SEs, 95% Wald intervals and two-sided p-values.
+        """Estimates with bias-reduced robust SEs, 95% t intervals and two-sided p-values.
 
         Returns
         -------
         DataFrame
-            Columns term, estimate, robust_se, lo, hi, z, p, naive_se.
+            Columns term, estimate, robust_se, df, lo, hi, z, p, naive_se.
         """
         est = np.asarray(self.beta, float)
         rse = np.sqrt(np.diag(self.robust_cov_beta))
+        df = self.robust_df
+        q = stats.t.ppf(0.975, df)
         with np.errstate(divide="ignore", invalid="ignore"):
             z = est / rse
         return pd.DataFrame({
             "term": list(self.names), "estimate": est, "robust_se": rse,
-            "lo": est - _Z95 * rse, "hi": est + _Z95 * rse, "z": z,
-            "p": 2 * stats.norm.sf(np.abs(z)),
+            "df": np.full(est.size, df),
+            "lo": est - q * rse, "hi": est + q * rse, "z": z,
+            "p": 2 * stats.t.sf(np.abs(z), df),
             "naive_se": np.sqrt(np.diag(self.naive_cov_beta)),
         })
 
@@ -92,7 +105,7 @@ class GEEFit:
         """Plain dict: name, working, fixed (term, estimate, robust_se, lo, hi, p), working_params."""
         ff = self.fixed_frame()
         fixed = [{"term": str(r["term"]), **{k: _num(r[k]) for k in
-                                              ("estimate", "robust_se", "lo", "hi", "p")}}
+                                              ("estimate", "robust_se", "df", "lo", "hi", "p")}}
                  for r in ff.to_dict("records")]
         return {"name": self.label, "working": self.working, "fixed": fixed,
                 "working_params": {k: _num(v) for k, v in self.working_params.items()},
@@ -129,7 +142,9 @@ def gee_fit(panel: Panel, X, *, names, working: str = "exchangeable",
     Notes
     -----
     Uses ``statsmodels.genmod.generalized_estimating_equations.GEE`` with
-    the Gaussian family and ``cov_type="robust"``. For "autoregressive" the
+    the Gaussian family and ``cov_type="bias_reduced"`` (Mancl & DeRouen, 2001:
+    each subject's residuals are corrected by its block of the hat matrix
+    before they enter the sandwich). For "autoregressive" the
     visit times are passed as the ``time`` argument and the structure is
     built with ``Autoregressive(grid=False)``, so corr(Y_ij, Y_ik) =
     α^|t_ij − t_ik| uses the actual (irregular) time gaps and α is estimated
@@ -179,7 +194,7 @@ def gee_fit(panel: Panel, X, *, names, working: str = "exchangeable",
         try:
             model = GEE(panel.y, X, groups=panel.codes, family=families.Gaussian(),
                         cov_struct=struct, **kwargs)
-            res = model.fit(maxiter=int(maxiter), cov_type="robust")
+            res = model.fit(maxiter=int(maxiter), cov_type="bias_reduced")
         except (np.linalg.LinAlgError, ValueError) as exc:
             hint = ""
             if "bracket" in str(exc):
@@ -199,7 +214,7 @@ def gee_fit(panel: Panel, X, *, names, working: str = "exchangeable",
         params = {"correlation": float(dep[0]), **params}
     return GEEFit(
         working=working, names=names, beta=np.asarray(res.params, float),
-        robust_cov_beta=np.asarray(res.cov_robust, float),
+        robust_cov_beta=np.asarray(res.cov_robust_bc, float),
         naive_cov_beta=np.asarray(res.cov_naive, float), working_params=params,
         n_subjects=panel.n_subjects, n_obs=panel.n_obs, converged=converged,
         message="; ".join(dict.fromkeys(msgs)),

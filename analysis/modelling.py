@@ -103,6 +103,25 @@ class ModelSet:
     n_dropped: int
     method: str = "reml"
     correlation: str = "exponential"
+    panel: object | None = None
+
+    def mean_residuals(self) -> np.ndarray:
+        """OLS residuals of the response on this set's fixed-effects design, panel row order."""
+        X, y = self.design.X, self.panel.y
+        beta = np.linalg.lstsq(X, y, rcond=None)[0]
+        return y - X @ beta
+
+    def residual_variogram(self, *, n_bins: int = 10, max_lag: float | None = None):
+        """Empirical semivariogram of :meth:`mean_residuals` (like with like for the overlay).
+
+        The fitted semivariograms describe the residuals about the models' own mean
+        (the fixed-effects design), so the points they are drawn against come from
+        the same mean model, fitted by OLS, not from the exploratory smooth trend.
+        Computed by :func:`analysis.variogram.semivariogram`.
+        """
+        from .variogram import semivariogram
+        return semivariogram(self.panel.with_y(self.mean_residuals()), n_bins=n_bins,
+                             max_lag=max_lag)
 
     @property
     def fits(self) -> dict:
@@ -192,8 +211,9 @@ def fit_candidates(cohort, *, structures=DEFAULT_CANDIDATES, correlation: str = 
     Raises
     ------
     ModelError
-        Bad options, or the design cannot be built (e.g. collinear confounders).
-        A candidate whose fit fails is recorded with its message instead.
+        Bad options, the design cannot be built (e.g. collinear confounders), or
+        the response has no variation (constant, or reproduced exactly by the
+        mean model). A candidate whose fit fails is recorded with its message instead.
 
     Notes
     -----
@@ -243,6 +263,10 @@ def fit_candidates(cohort, *, structures=DEFAULT_CANDIDATES, correlation: str = 
         panel = panel.subset_subjects(keep)
         baseline = baseline.loc[keep].reset_index(drop=True)
     des = design(panel, baseline, mean, covariate_name=COVARIATE_COLUMN)
+    from .mixed.fit import response_variation_problem
+    problem = response_variation_problem(panel.y, des.X, response=_labels(cohort)["response_label"])
+    if problem:
+        raise ModelError(problem)
 
     candidates = []
     runs = [(s, c) for s in structures for c in (shapes if "serial" in s else shapes[:1])]
@@ -295,7 +319,7 @@ def fit_candidates(cohort, *, structures=DEFAULT_CANDIDATES, correlation: str = 
     return ModelSet(mean=mean, design=des, candidates=tuple(candidates), comparison=comp,
                     lrts=tuple(lrts), gee=tuple(gee_rows), preferred=preferred, effect=effect,
                     notes=tuple(notes), n_subjects=panel.n_subjects, n_obs=panel.n_obs,
-                    n_dropped=n_dropped, method=method, correlation=correlation)
+                    n_dropped=n_dropped, method=method, correlation=correlation, panel=panel)
 
 
 # --------------------------------------------------------------------------- helpers

@@ -77,6 +77,26 @@ def p_phrase(p) -> str:
     return f"p {text}" if text.startswith("<") else f"p = {text}"
 
 
+def small_sample_note(n_subjects: int) -> str:
+    """Plain statement that the intervals rest on small-sample corrections ('' from 30 subjects)."""
+    from .mixed import SMALL_COHORT
+    if n_subjects >= SMALL_COHORT:
+        return ""
+    return (f"Only {n_subjects} subjects (fewer than {SMALL_COHORT}): the intervals and p-values "
+            "rest on small-sample corrections — t reference distributions with Satterthwaite "
+            "degrees of freedom, and the Mancl–DeRouen bias-reduced sandwich with subjects − p "
+            "degrees of freedom for the robust ones. They are approximate; read them as rough.")
+
+
+def variance_interval(lo, hi, at_boundary: bool) -> str:
+    """Display text of a variance parameter's 95% interval, saying when it is at the boundary."""
+    if at_boundary:
+        if lo == 0 and not np.isfinite(hi):
+            return "at the boundary (0): one-sided, lower limit 0; no Wald upper limit"
+        return "at the boundary: no Wald interval"
+    return interval(lo, hi) if np.isfinite([lo, hi]).all() else "not available"
+
+
 def short_reference(reference: str) -> str:
     """The distribution part of an LRT reference text, e.g. '0.5·χ²(1) + 0.5·χ²(2)'."""
     head = reference.split(";")[0].strip()
@@ -108,6 +128,8 @@ class ModelTables:
         Caution from :func:`analysis.compare.comparison_warning`.
     reference : str
         Reference distribution of the fixed-effect tests.
+    small_sample : str
+        :func:`small_sample_note` for the cohort size ('' from 30 subjects).
     """
 
     chosen: str | None
@@ -121,6 +143,7 @@ class ModelTables:
     method_note: str
     warning: str | None
     reference: str
+    small_sample: str = ""
 
 
 def model_tables(models, chosen: str | None = None, *, unit: str = "time unit") -> ModelTables:
@@ -166,9 +189,9 @@ def model_tables(models, chosen: str | None = None, *, unit: str = "time unit") 
         columns=["simpler model", "richer model", "LR statistic", "extra parameters", "p",
                  "p (plain χ²)", "reference"])
 
-    fixed = pd.DataFrame(columns=["term", "estimate", "model-based SE", "95% CI (model-based)",
-                                  "p (model-based)", "robust SE", "95% CI (robust)",
-                                  "p (robust)"])
+    fixed = pd.DataFrame(columns=["term", "estimate", "model-based SE", "df (Satterthwaite)",
+                                  "95% CI (model-based)", "p (model-based)", "robust SE",
+                                  "df (robust)", "95% CI (robust)", "p (robust)"])
     variance = pd.DataFrame(columns=["parameter", "estimate", "95% CI", "note"])
     reference = ""
     if chosen is not None:
@@ -177,9 +200,11 @@ def model_tables(models, chosen: str | None = None, *, unit: str = "time unit") 
         ff = fit.fixed_frame()
         fixed = pd.DataFrame({
             "term": ff["term"], "estimate": ff["estimate"].map(fmt),
-            "model-based SE": ff["se"].map(fmt),
+            "model-based SE": ff["se"].map(fmt), "df (Satterthwaite)": ff["df"].map(
+                lambda v: fmt(v, 3)),
             "95% CI (model-based)": [interval(a, b) for a, b in zip(ff["lo"], ff["hi"])],
             "p (model-based)": ff["p"].map(fmt_p), "robust SE": ff["robust_se"].map(fmt),
+            "df (robust)": ff["robust_df"].map(lambda v: fmt(v, 3)),
             "95% CI (robust)": [interval(a, b) for a, b in zip(ff["robust_lo"], ff["robust_hi"])],
             "p (robust)": ff["robust_p"].map(fmt_p)})
         vf = fit.variance_frame()
@@ -187,8 +212,8 @@ def model_tables(models, chosen: str | None = None, *, unit: str = "time unit") 
             "parameter": [VARIANCE_LABELS.get(p, p).format(unit=unit, per=per)
                           for p in vf["parameter"]],
             "estimate": vf["estimate"].map(fmt),
-            "95% CI": [interval(a, b) if np.isfinite([a, b]).all() else "not available"
-                       for a, b in zip(vf["lo"], vf["hi"])],
+            "95% CI": [variance_interval(a, b, k in fit.at_boundary)
+                       for a, b, k in zip(vf["lo"], vf["hi"], vf["parameter"])],
             "note": vf["note"]})
         reference = fit.reference
 
@@ -214,7 +239,8 @@ def model_tables(models, chosen: str | None = None, *, unit: str = "time unit") 
                        variance=variance, gee=gee, boundary_notes=boundary_notes,
                        lrt_notes=lrt_notes,
                        method_note=REML_NOTE if models.method == "reml" else ML_NOTE,
-                       warning=comp.attrs.get("warning"), reference=reference)
+                       warning=comp.attrs.get("warning"), reference=reference,
+                       small_sample=small_sample_note(models.n_subjects))
 
 
 # --------------------------------------------------------------------------- HTML pieces
@@ -432,6 +458,8 @@ def _models_html(models, *, chosen, unit, x_note="") -> str:
     t = model_tables(models, chosen, unit=unit)
     out.append(_p(models.mean.describe("the primary covariate (x)")))
     out.append(_p(f"{models.n_subjects:,} subjects and {models.n_obs:,} visits were used."))
+    if t.small_sample:
+        out.append(_p(t.small_sample, "warn"))
     out += [_p(n, "note") for n in models.notes]
     if models.effect is not None:
         e = models.effect
@@ -458,13 +486,14 @@ def _models_html(models, *, chosen, unit, x_note="") -> str:
         out.append(f"<h3>Fixed effects — {_e(t.chosen)}</h3>")
         out.append(table_html(t.fixed))
         out.append(_p(f"{x_note} Time in {unit}. 95% intervals and p-values: {t.reference}. "
-                      "Robust SEs are the sandwich estimator clustered by subject.".strip(),
-                      "note"))
+                      "Robust SEs are the sandwich estimator clustered by subject with the "
+                      "Mancl–DeRouen small-sample correction.".strip(), "note"))
         out.append(f"<h3>Variance parameters — {_e(t.chosen)}</h3>")
         out.append(table_html(t.variance))
     if len(t.gee):
         out.append("<h3>GEE robustness rows</h3>")
         out.append(table_html(t.gee))
-        out.append(_p("GEE with robust (sandwich) SEs: the mean-model coefficients without "
-                      "trusting the working covariance.", "note"))
+        out.append(_p("GEE with robust (sandwich) SEs, Mancl–DeRouen bias-reduced, t with "
+                      "subjects − p df: the mean-model coefficients without trusting the "
+                      "working covariance.", "note"))
     return "\n".join(out)

@@ -107,6 +107,7 @@ def models_section() -> html.Section:
         html.Div(className="cl-graph", children=dcc.Graph(
             id=ids.MODELS_GRAPH, config=GRAPH_CONFIG, style={"height": "460px"},
             figure=placeholder_figure())),
+        html.P(OVERLAY_CAPTION, className="cl-hint"),
         html.Div(className="cl-view-controls", children=[
             html.Label("Details of model", className="cl-label"),
             dcc.Dropdown(id=ids.MODELS_CHOSEN, options=[], value=None, clearable=False,
@@ -172,6 +173,14 @@ def model_curves(models, max_lag: float, n: int = CURVE_POINTS) -> pd.DataFrame:
             else pd.DataFrame({"model": [], "lag": [], "gamma": []}))
 
 
+#: Caption of the semivariogram overlay (page and report).
+OVERLAY_CAPTION = ("Points: empirical semivariogram (sized by pair count) of the residuals from "
+                   "the models' own mean — the fixed-effects design fitted by ordinary least "
+                   "squares — not of the smooth trend used for exploration, so points and lines "
+                   "describe the same residuals. Lines: the semivariogram implied by each fitted "
+                   "model (★ = preferred).")
+
+
 def variogram_overlay(bins: pd.DataFrame, curves: pd.DataFrame, *, unit: str, response: str,
                       response_unit: str = "", preferred: str | None = None) -> go.Figure:
     """Empirical semivariogram (points sized by pairs) with each model's fitted curve.
@@ -194,7 +203,8 @@ def variogram_overlay(bins: pd.DataFrame, curves: pd.DataFrame, *, unit: str, re
     pairs = ok["pairs"].to_numpy(float)
     size = 7 + 11 * np.sqrt(pairs / pairs.max()) if len(pairs) and pairs.max() > 0 else 9
     fig.add_trace(go.Scatter(
-        x=ok["lag_mean"], y=ok["gamma"], mode="markers", name="empirical (binned residual pairs)",
+        x=ok["lag_mean"], y=ok["gamma"], mode="markers",
+        name="empirical (residuals of the models' mean, OLS)",
         marker={"color": EMPIRICAL_COLOUR, "size": size, "symbol": "circle"},
         customdata=np.column_stack([ok["pairs"], ok["lag_lo"], ok["lag_hi"]]) if len(ok) else None,
         hovertemplate=(f"lag %{{customdata[1]:.3g}}–%{{customdata[2]:.3g}} {unit}<br>"
@@ -261,7 +271,8 @@ def summary_children(models, *, unit: str) -> list:
     t = model_tables(models, unit=unit)
     preferred_row = [{"if": {"filter_query": '{preferred} = "★"'}, "fontWeight": 700,
                       "backgroundColor": "#eef4fb"}]
-    out = [effect_block(models),
+    small = [html.P(t.small_sample, className="cl-msg", role="note")] if t.small_sample else []
+    out = [effect_block(models), *small,
            html.H3("Comparing working covariance structures"),
            html.P(models.mean.describe("the primary covariate (x)") +
                   f" {models.n_subjects:,} subjects, {models.n_obs:,} visits.", className="cl-note"),
@@ -291,9 +302,11 @@ def detail_children(models, chosen: str | None, *, unit: str, x_note: str = "") 
     t = model_tables(models, chosen, unit=unit)
     if t.chosen is None:
         return [html.P("No model could be fitted.", className="cl-msg")]
-    return [html.H3(f"Fixed effects — {t.chosen}"), datatable(t.fixed),
+    small = [html.P(t.small_sample, className="cl-msg", role="note")] if t.small_sample else []
+    return [*small, html.H3(f"Fixed effects — {t.chosen}"), datatable(t.fixed),
             html.P(f"{x_note} Time in {unit}. Intervals and p-values: {t.reference}. Robust SEs: "
-                   "sandwich estimator clustered by subject.".strip(), className="cl-caveat"),
+                   "sandwich estimator clustered by subject, Mancl–DeRouen bias-reduced."
+                   .strip(), className="cl-caveat"),
             html.H3(f"Variance parameters — {t.chosen}"), datatable(t.variance)]
 
 
@@ -303,6 +316,8 @@ def report_figures(exploration, models, *, unit: str, response: str,
     import plotly.io as pio
 
     vg = exploration.variogram
+    if models is not None and getattr(models, "panel", None) is not None:
+        vg = models.residual_variogram(n_bins=len(vg.bins), max_lag=vg.max_lag)
     curves = (model_curves(models, vg.max_lag) if models is not None
               else pd.DataFrame({"model": [], "lag": [], "gamma": []}))
     fig = variogram_overlay(vg.to_frame(), curves, unit=unit, response=response,
@@ -310,8 +325,7 @@ def report_figures(exploration, models, *, unit: str, response: str,
                             preferred=getattr(models, "preferred", None))
     snippet = pio.to_html(fig, include_plotlyjs=True, full_html=False,
                           config={"displaylogo": False}, default_height="460px")
-    return [("Empirical semivariogram of the residuals (points, sized by pair count) with the "
-             "semivariogram implied by each fitted model (lines; ★ = preferred).", snippet)]
+    return [(OVERLAY_CAPTION, snippet)]
 
 
 def report_text(context: AppContext, data, roles, settings, snapshot: dict | None,
@@ -432,8 +446,8 @@ def fit_outputs(context: AppContext, data, roles, settings, structures, correlat
     models, cohort = fit_for_view(context, data, roles, settings, choices)
     if not models.fits:
         raise ModelError("none of the chosen models could be fitted: " + "; ".join(models.notes))
-    dataset, r, s = context.inputs(data, roles, settings)
-    vg = context.workbench.variogram(dataset, r, s)
+    _, r, s = context.inputs(data, roles, settings)
+    vg = models.residual_variogram(n_bins=s.variogram_bins, max_lag=s.variogram_max_lag)
     fig = variogram_overlay(vg.to_frame(), model_curves(models, vg.max_lag), unit=s.unit,
                             response=r.response, response_unit=cohort.response_unit,
                             preferred=models.preferred)

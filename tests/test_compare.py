@@ -124,3 +124,16 @@ def test_real_fits_lrt_and_aic():
     np.testing.assert_allclose(r.p, 0.5 * stats.chi2.sf(x, 1) + 0.5 * stats.chi2.sf(x, 2),
                                rtol=1e-10)  # reference: scipy mixture
     assert nested_pairs([f0, f1]) == [(0, 1)]
+
+
+def test_mixture_p_value_at_published_critical_value():
+    # Stram & Lee (1994), Biometrics 50, 1171–1177: the 5% critical value of the 50:50
+    # mixture of χ²(1) and χ²(2) (adding a random slope) is 5.14 (published table value,
+    # recalled from memory). The LRT p-value at that statistic must be 0.05 to 3 decimals.
+    a, b = _fake("intercept", -1000.0), _fake("intercept+slope", -1000.0 + 5.14 / 2)
+    r = likelihood_ratio(a, b)
+    assert abs(r.p - 0.05) < 5e-4, r.p
+    # and the 0.5·χ²(0) + 0.5·χ²(1) mixture has the published 5% critical value 2.71
+    # (Self & Liang 1987; the χ²(1) 10% point, recalled from memory)
+    r = likelihood_ratio(_fake("independence", -500.0), _fake("intercept", -500.0 + 2.71 / 2))
+    assert abs(r.p - 0.05) < 5e-4, r.p

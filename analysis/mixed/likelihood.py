@@ -451,3 +451,27 @@ def subject_scores(data, spec: StructureSpec, theta: np.ndarray, ev: Evaluation)
         GZa = comp.G @ Za
         u -= sum(GZa[a][:, None] * s.ZW[a, :, :s.p] for a in range(s.q))
     return u / comp.error_var
+
+
+def bias_reduced_scores(groups, spec: StructureSpec, theta: np.ndarray, beta: np.ndarray,
+                        Minv: np.ndarray, correlation: str) -> np.ndarray:
+    """Per-subject scores XᵢᵀVᵢ⁻¹(I − Hᵢᵢ)⁻¹rᵢ with leverage-corrected residuals, (m, p).
+
+    ``Hᵢᵢ = XᵢM⁻¹XᵢᵀVᵢ⁻¹`` is subject i's diagonal block of the GLS hat matrix
+    (M = Σ XᵢᵀVᵢ⁻¹Xᵢ) and rᵢ = yᵢ − Xᵢβ̂. The meat Σ uᵢuᵢᵀ of these scores gives
+    the bias-reduced sandwich of Mancl & DeRouen (2001, Biometrics 57, 126–134),
+    the same correction as statsmodels GEE ``cov_type="bias_reduced"``.
+    Each visit-count group is handled as one (m, n, n) stack.
+    """
+    comp = components(spec, theta)
+    out = []
+    for g in groups:
+        V = covariance_stack(g, comp, correlation)
+        Vinv = np.linalg.inv(V)
+        B = Vinv @ g.X                                          # (m, n, p)
+        H = g.X @ Minv @ np.swapaxes(B, 1, 2)                   # X M⁻¹ XᵀV⁻¹, (m, n, n)
+        n = g.y.shape[1]
+        r = g.y - g.X @ beta
+        rt = np.linalg.solve(np.eye(n)[None] - H, r[:, :, None])[:, :, 0]
+        out.append(np.einsum("mip,mi->mp", B, rt))
+    return np.concatenate(out)

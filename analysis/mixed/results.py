@@ -10,10 +10,15 @@ from scipy import stats
 
 from .structures import StructureSpec, components, correlation_function
 
-_Z95 = 1.959963984540054
+#: Below this many subjects the page and the report say that the intervals rest on
+#: small-sample corrections (common practice: sandwich and large-sample Wald
+#: intervals are known to be too narrow with a few dozen clusters or fewer).
+SMALL_COHORT = 30
 
 #: How the p-values and intervals of the fixed effects are referred.
-REFERENCE_TEXT = "Wald tests against the standard normal (large-sample)"
+REFERENCE_TEXT = ("Wald t tests and intervals: model-based with Satterthwaite degrees of freedom "
+                  "(from the observed information of the variance parameters); robust with the "
+                  "Mancl–DeRouen bias-reduced sandwich and subjects − p degrees of freedom")
 
 
 @dataclass(frozen=True, eq=False)
@@ -59,9 +64,11 @@ class MixedFit:
     cov_beta : ndarray (p, p)
         Model-based covariance (Σ XᵢᵀV̂ᵢ⁻¹Xᵢ)⁻¹.
     robust_cov_beta : ndarray (p, p)
-        Sandwich (empirical) covariance clustered by subject,
-        M⁻¹ [Σ XᵢᵀV̂ᵢ⁻¹ rᵢ rᵢᵀ V̂ᵢ⁻¹ Xᵢ] M⁻¹ with M = Σ XᵢᵀV̂ᵢ⁻¹Xᵢ and
-        rᵢ = yᵢ − Xᵢβ̂ (no small-sample correction; Liang & Zeger, 1986).
+        Sandwich (empirical) covariance clustered by subject with the
+        Mancl–DeRouen small-sample correction,
+        M⁻¹ [Σ XᵢᵀV̂ᵢ⁻¹ r̃ᵢ r̃ᵢᵀ V̂ᵢ⁻¹ Xᵢ] M⁻¹ with M = Σ XᵢᵀV̂ᵢ⁻¹Xᵢ,
+        r̃ᵢ = (I − Hᵢᵢ)⁻¹(yᵢ − Xᵢβ̂) and Hᵢᵢ = XᵢM⁻¹XᵢᵀV̂ᵢ⁻¹ (Liang & Zeger, 1986;
+        Mancl & DeRouen, 2001).
     variance : dict
         Natural-scale variance parameters present in the structure:
         "intercept_var", "slope_var", "intercept_slope_cov", "serial_var",
@@ -70,8 +77,9 @@ class MixedFit:
         95% Wald intervals (lo, hi): computed on the log scale for variances
         and range (so always positive), on the natural scale for the
         covariance, from a finite-difference Hessian of the profiled (RE)ML
-        log-likelihood. NaN when the Hessian is not negative definite
-        (typically an estimate at the boundary).
+        log-likelihood restricted to the parameters not at the boundary. A
+        variance at the boundary gets (0, NaN): one-sided, its lower limit is 0.
+        NaN when the interior information is not positive definite.
     loglik : float
         Maximised log-likelihood (REML or ML; statsmodels ``MixedLM`` convention,
         = −½ × lme4's REML criterion / deviance).
@@ -85,6 +93,13 @@ class MixedFit:
     iterations : int
     boundary : tuple of str
         Notes on estimates at or near the edge of the parameter space.
+    at_boundary : tuple of str
+        Variance parameters at the boundary of the parameter space (or not
+        identified because of one that is); see ``boundary`` for the notes.
+    df : ndarray (p,)
+        Satterthwaite degrees of freedom of each model-based Wald t statistic.
+    robust_df : float
+        Degrees of freedom of the robust t statistics: subjects − p.
     n_subjects, n_obs : int
     message : str
         Optimiser message.
@@ -108,6 +123,9 @@ class MixedFit:
     converged: bool
     iterations: int
     boundary: tuple
+    at_boundary: tuple
+    df: np.ndarray
+    robust_df: float
     n_subjects: int
     n_obs: int
     message: str
@@ -122,17 +140,25 @@ class MixedFit:
         return f"{self.structure}{corr}, {self.method.upper()}"
 
     def fixed_frame(self) -> pd.DataFrame:
-        """Fixed effects with model-based and robust SEs, 95% intervals and Wald tests.
+        """Fixed effects with model-based and robust SEs, 95% intervals and Wald t tests.
 
         Returns
         -------
         DataFrame
-            Columns term, estimate, se, robust_se, lo, hi, robust_lo, robust_hi,
-            z, p, robust_z, robust_p (two-sided p against the standard normal).
+            Columns term, estimate, se, robust_se, df, robust_df, lo, hi,
+            robust_lo, robust_hi, z, p, robust_z, robust_p. ``z`` is the Wald
+            statistic estimate/SE, referred to Student's t with ``df``
+            (Satterthwaite) or ``robust_df`` (subjects − p) degrees of freedom
+            for the two-sided p-value and the interval.
         """
         est = np.asarray(self.beta, dtype=float)
         se = np.sqrt(np.diag(self.cov_beta))
         rse = np.sqrt(np.diag(self.robust_cov_beta))
+        df = np.asarray(self.df, dtype=float)
+        rdf = np.full(est.size, float(self.robust_df))
+        # a NaN df (information not available) falls back to subjects − p
+        df_used = np.where(np.isfinite(df) | (df == np.inf), df, rdf)
+        q, rq = stats.t.ppf(0.975, df_used), stats.t.ppf(0.975, rdf)
         with np.errstate(divide="ignore", invalid="ignore"):
             z, rz = est / se, est / rse
         return pd.DataFrame({
@@ -140,14 +166,16 @@ class MixedFit:
             "estimate": est,
             "se": se,
             "robust_se": rse,
-            "lo": est - _Z95 * se,
-            "hi": est + _Z95 * se,
-            "robust_lo": est - _Z95 * rse,
-            "robust_hi": est + _Z95 * rse,
+            "df": df_used,
+            "robust_df": rdf,
+            "lo": est - q * se,
+            "hi": est + q * se,
+            "robust_lo": est - rq * rse,
+            "robust_hi": est + rq * rse,
             "z": z,
-            "p": 2 * stats.norm.sf(np.abs(z)),
+            "p": 2 * stats.t.sf(np.abs(z), df_used),
             "robust_z": rz,
-            "robust_p": 2 * stats.norm.sf(np.abs(rz)),
+            "robust_p": 2 * stats.t.sf(np.abs(rz), rdf),
         })
 
     def to_frame(self) -> pd.DataFrame:
@@ -166,6 +194,8 @@ class MixedFit:
         for k, v in self.variance.items():
             lo, hi = self.variance_ci.get(k, (np.nan, np.nan))
             note = "; ".join(n for n in self.boundary if n.startswith(k) or f" {k}" in n)
+            if k in self.at_boundary and not note:
+                note = f"{k} is not identified because another parameter is at the boundary"
             rows.append({"parameter": k, "estimate": v, "lo": lo, "hi": hi, "note": note})
         return pd.DataFrame(rows, columns=["parameter", "estimate", "lo", "hi", "note"])
 
@@ -180,7 +210,8 @@ class MixedFit:
             lo, hi = self.variance_ci.get(k, (np.nan, np.nan))
             var[k] = {"estimate": float(v),
                       "lo": float(lo) if np.isfinite(lo) else None,
-                      "hi": float(hi) if np.isfinite(hi) else None}
+                      "hi": float(hi) if np.isfinite(hi) else None,
+                      "at_boundary": k in self.at_boundary}
         return {
             "name": self.label,
             "structure": self.structure,
@@ -197,6 +228,7 @@ class MixedFit:
             "variance": var,
             "boundary": list(self.boundary),
             "reference": self.reference,
+            "small_sample": self.n_subjects < SMALL_COHORT,
         }
 
     # ------------------------------------------------------------------ derived curves
