@@ -575,16 +575,20 @@ def compare_plans(inputs: PlanInputs, models) -> PlanComparison:
     ----------
     inputs : PlanInputs
         Everything but the covariance is used (its ``covariance`` is replaced).
-    models : iterable
-        :class:`CovarianceModel`, fitted :class:`analysis.mixed.MixedFit` or their JSON dicts.
+    models : iterable or dict
+        :class:`CovarianceModel`, fitted :class:`analysis.mixed.MixedFit` or their JSON dicts;
+        a dict maps display names to them (e.g. ``ModelSet.fits``).
 
     Returns
     -------
     PlanComparison
     """
     rows = []
-    for m in models:
+    named = models.items() if isinstance(models, dict) else ((None, m) for m in models)
+    for label, m in named:
         cov = _as_covariance(m)
+        if label:
+            cov = CovarianceModel(cov.structure, cov.correlation, cov.parameters, str(label))
         row = {"name": cov.name, "structure": cov.structure, "correlation": cov.correlation,
                "subjects_needed": None, "per_group": None, "standard_error": None, "error": None}
         try:

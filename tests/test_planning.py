@@ -208,6 +208,9 @@ def test_from_fit_reads_a_fitted_model():
     # brute force: a fitted model and its JSON give the same plan
     a = compare_plans(PlanInputs(THREE, 0.05, SCHEDULE, design="two-groups"), [fit, fit.to_json()])
     assert a.rows[0]["subjects_needed"] == a.rows[1]["subjects_needed"] is not None
+    named = compare_plans(PlanInputs(THREE, 0.05, SCHEDULE, design="two-groups"), {"mine": fit})
+    assert named.rows[0]["name"] == "mine"
+    assert named.rows[0]["subjects_needed"] == a.rows[0]["subjects_needed"]
 
 
 # ----------------------------------------------------------------------------- json, errors
