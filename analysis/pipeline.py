@@ -82,8 +82,10 @@ class Summaries:
 
 @dataclass(frozen=True, eq=False)
 class Exploration:
-    """Every exploratory result for one (data, roles, settings)."""
+    """Every exploratory result for one (data, roles, settings); ``settings`` are the request's
+    own (the cached stages carry only the fields of their keys)."""
 
+    settings: Settings
     cohort: PreparedCohort
     subject_lines: pd.DataFrame
     residuals: Any
@@ -96,7 +98,7 @@ class Exploration:
         c = self.cohort
         lines = self.subject_lines
         return json_safe({
-            "settings": c.settings.to_dict(),
+            "settings": self.settings.to_dict(),
             "roles": c.roles.to_dict(),
             "cohort": {
                 "subjects": c.panel.n_subjects,
@@ -179,12 +181,16 @@ class Workbench:
 
     # -- stages ----------------------------------------------------------
     def selection(self, dataset: Dataset, roles: Roles, settings: Settings) -> CohortSelection:
+        keyed = settings.only(self.stage_fields("selection", settings))
         return self._memo("selection", dataset, roles, settings,
-                          lambda: select_cohort(dataset.frame, roles, settings))
+                          lambda: select_cohort(dataset.frame, roles, keyed))
 
     def cohort(self, dataset: Dataset, roles: Roles, settings: Settings) -> PreparedCohort:
+        # the cached cohort carries exactly the settings of its key: a later request that
+        # differs only in, say, detrending must not read this request's other choices
+        keyed = settings.only(self.stage_fields("cohort", settings))
         return self._memo("cohort", dataset, roles, settings,
-                          lambda: stratify(self.selection(dataset, roles, settings), settings))
+                          lambda: stratify(self.selection(dataset, roles, settings), keyed))
 
     def subject_fits(self, dataset: Dataset, roles: Roles, settings: Settings):
         from .subject_fits import fit_subject_lines
@@ -276,6 +282,7 @@ class Workbench:
     def explore(self, dataset: Dataset, roles: Roles, settings: Settings) -> Exploration:
         """Every exploratory stage (each one cached on its own)."""
         return Exploration(
+            settings=settings,
             cohort=self.cohort(dataset, roles, settings),
             subject_lines=self.subject_lines(dataset, roles, settings),
             residuals=self.residuals(dataset, roles, settings),

@@ -172,6 +172,11 @@ class Settings:
     def replace(self, **changes) -> "Settings":
         return replace(self, **changes)
 
+    def only(self, names) -> "Settings":
+        """These settings' values for ``names``, the defaults for every other field (what a
+        cached stage result carries, so that it never reports a cache neighbour's choices)."""
+        return Settings(**{n: getattr(self, n) for n in names})
+
     # -- cache keys -------------------------------------------------------
     def fields_for(self, stage: str) -> tuple[str, ...]:
         """All setting names that ``stage`` depends on (its own and its upstream stages')."""
