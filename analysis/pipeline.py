@@ -29,10 +29,37 @@ from typing import Any, Callable
 import numpy as np
 import pandas as pd
 
+from .errors import SettingsError
 from .jsonsafe import json_safe
 from .loading import Dataset
 from .prepare import CohortSelection, PreparedCohort, select_cohort, stratify
-from .settings import STAGE_FIELDS, Roles, Settings
+from .settings import COUNT_LIMITS, STAGE_FIELDS, Roles, Settings
+
+
+def check_group_limit(selection: CohortSelection, settings: Settings) -> None:
+    """Groups cut from a numeric stratifier: at most one per subject (checked before cutting)."""
+    by = settings.stratify_by or selection.covariate
+    if by is None or selection.covariate_kinds.get(by) != "numeric" \
+            or settings.strata_method == "custom":
+        return
+    n = selection.panel.n_subjects
+    if settings.n_strata > n:
+        hi = min(n, COUNT_LIMITS["n_strata"])
+        raise SettingsError(f"n_strata == {settings.n_strata}: the cohort has {n:,} subjects, "
+                            f"so the number of groups must be from 1 to {hi}", field="n_strata")
+
+
+def check_spline_limit(time: np.ndarray, settings: Settings) -> None:
+    """A spline in time needs more distinct times than its degrees of freedom (checked before
+    the basis is built, instead of quietly fitting fewer df)."""
+    if settings.detrend != "spline" or settings.spline_df <= 1:
+        return
+    n_times = np.unique(time).size
+    if settings.spline_df > n_times - 1:
+        hi = max(1, min(n_times - 1, COUNT_LIMITS["spline_df"]))
+        raise SettingsError(f"spline_df == {settings.spline_df}: the cohort has {n_times:,} "
+                            f"distinct times, so the spline's degrees of freedom must be from "
+                            f"1 to {hi}", field="spline_df")
 
 
 class ResultCache:
@@ -189,8 +216,13 @@ class Workbench:
         # the cached cohort carries exactly the settings of its key: a later request that
         # differs only in, say, detrending must not read this request's other choices
         keyed = settings.only(self.stage_fields("cohort", settings))
-        return self._memo("cohort", dataset, roles, settings,
-                          lambda: stratify(self.selection(dataset, roles, settings), keyed))
+
+        def compute():
+            selection = self.selection(dataset, roles, settings)
+            check_group_limit(selection, keyed)
+            return stratify(selection, keyed)
+
+        return self._memo("cohort", dataset, roles, settings, compute)
 
     def subject_fits(self, dataset: Dataset, roles: Roles, settings: Settings):
         from .subject_fits import fit_subject_lines
@@ -224,6 +256,7 @@ class Workbench:
             else:
                 panel = self.selection(dataset, roles, settings).panel
                 groups = None
+            check_spline_limit(panel.time, settings)
             return detrend(panel, method=settings.detrend, spline_df=settings.spline_df,
                            lowess_frac=settings.lowess_frac, groups=groups)
 

@@ -81,7 +81,9 @@ def settings_from_controls(values: dict, *, fallback: Settings | None = None
     try:
         return Settings.from_dict(d), {}
     except CohortError as exc:
-        return None, {_field_named_in(str(exc)): _plain(str(exc))}
+        field = getattr(exc, "field", None)
+        return None, {field if field in ids.SETTING_FIELDS else ids.SETTING_FIELDS[0]:
+                      plain_message(str(exc))}
 
 
 def _field_value(f: str, v, values: dict, fallback: Settings):
@@ -128,18 +130,7 @@ def _field_value(f: str, v, values: dict, fallback: Settings):
     return v if v is not None else getattr(fallback, f)
 
 
-def _field_named_in(message: str) -> str:
-    """Which settings control a validation message is about (first field name it starts with)."""
-    head = message.split(" ", 1)[0]
-    if head in ids.SETTING_FIELDS:
-        return head
-    for f in ids.SETTING_FIELDS:
-        if f in message:
-            return f
-    return "origin"
-
-
-def _plain(message: str) -> str:
+def plain_message(message: str) -> str:
     """Settings messages name fields as in code; say them as the panel does."""
     for f in ids.SETTING_FIELDS:
         message = message.replace(f"{f} ==", f"{FIELD_LABELS[f].lower()} is")

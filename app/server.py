@@ -15,6 +15,7 @@ import numpy as np
 from dash import MATCH, Input, Output, State, dash_table, html, no_update
 from dash.dash_table.Format import Format
 
+from analysis.errors import SettingsError
 from analysis.loading import Dataset, read_table
 from analysis.pipeline import Workbench
 from analysis.settings import Roles, Settings
@@ -112,8 +113,10 @@ def _register_panels(app, context: AppContext) -> None:
             role = role_of_column(r, err)
             if role:
                 out["role_msgs"][role] = message
-            elif err is not None and type(err).__name__ == "SettingsError":
-                out["settings_msg"] = message
+            elif isinstance(err, SettingsError):
+                field = err.field
+                out["settings_msg"] = (f"{ctl.FIELD_LABELS[field]}: {ctl.plain_message(message)}"
+                                       if field in ctl.FIELD_LABELS else message)
             else:
                 out["status"] = message
             return out
