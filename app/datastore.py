@@ -18,6 +18,8 @@ from analysis.loading import Dataset
 
 #: the fixed key of the bundled demo registry (also what a shared link carries)
 DEMO_KEY = "demo"
+#: the name of every stored upload (a session shows the file name from its own browser store)
+UPLOAD_NAME = "uploaded table"
 
 
 class DataStore:
@@ -49,7 +51,12 @@ class DataStore:
 
     # -- uploads ------------------------------------------------------------
     def add(self, frame: pd.DataFrame, *, name: str = "upload") -> Dataset:
-        """Store a table under its content hash and return the dataset (same content, same key)."""
+        """Store a table under its content hash and return the dataset (same content, same key).
+
+        ``name`` is used in messages only: the stored dataset is shared by every session that
+        uploads the same content, so it keeps the neutral :data:`UPLOAD_NAME` and each session
+        keeps its own file name in its browser store.
+        """
         if frame.size > self.max_cells:
             raise DataError(
                 f"{name} has {frame.shape[0]:,} rows x {frame.shape[1]} columns; this server "
@@ -57,7 +64,7 @@ class DataStore:
         # rows are numbered from 0 in file order (messages count spreadsheet rows from it,
         # and the selection step expects it); a filtered frame keeps its old labels otherwise
         frame = frame.reset_index(drop=True)
-        dataset = Dataset.from_frame(frame, name=name)
+        dataset = Dataset.from_frame(frame, name=UPLOAD_NAME)
         with self._lock:
             if dataset.key in self._uploads:
                 self._uploads.move_to_end(dataset.key)

@@ -334,10 +334,12 @@ def report_text(context: AppContext, data, roles, settings, snapshot: dict | Non
             choices = None
     figures = report_figures(exploration, models, unit=s.unit, response=r.response,
                              response_unit=cohort.response_unit)
-    text = build_report(cohort, exploration, models, data_name=dataset.name,
+    # the file name this session gave its table (the shared store keeps none for uploads)
+    name = (data or {}).get("name") or dataset.name
+    text = build_report(cohort, exploration, models, data_name=name,
                         data_key=fingerprint(dataset.frame), choices=choices, figures=figures,
                         chosen=chosen)
-    stem = re.sub(r"[^A-Za-z0-9_-]+", "-", dataset.name.rsplit(".", 1)[0]).strip("-") or "data"
+    stem = re.sub(r"[^A-Za-z0-9_-]+", "-", name.rsplit(".", 1)[0]).strip("-") or "data"
     return f"cohortlens-report-{stem}.html", text
 
 
