@@ -18,6 +18,21 @@ from analysis.loading import Dataset
 
 #: the fixed key of the bundled demo registry (also what a shared link carries)
 DEMO_KEY = "demo"
+#: largest HTTP request the server accepts (an upload arrives base64-encoded inside one request)
+MAX_REQUEST_BYTES = 200 * 1024 * 1024
+
+
+def upload_limit(request_bytes: int = MAX_REQUEST_BYTES) -> int:
+    """Largest file the page can send within ``request_bytes``: base64 makes 3 bytes 4, and the
+    callback's other inputs need a little room (64 KiB kept for them)."""
+    return max(0, (request_bytes - 64 * 1024) * 3 // 4)
+
+
+def size_text(n: int) -> str:
+    """'149 MB' (binary megabytes, as file managers mostly show them)."""
+    return f"{n / 2**20:,.0f} MB" if n >= 2**20 else f"{n / 1024:,.0f} KB"
+
+
 #: the name of every stored upload (a session shows the file name from its own browser store)
 UPLOAD_NAME = "uploaded table"
 

@@ -22,7 +22,7 @@ from analysis.settings import Roles, Settings
 
 from . import controls as ctl
 from . import hub, ids, models_view, palette, views
-from .datastore import DEMO_KEY, DataStore, demo_dataset
+from .datastore import DEMO_KEY, MAX_REQUEST_BYTES, DataStore, demo_dataset, upload_limit
 from .layout import build_layout
 from .session import AppContext, attempt, role_of_column
 
@@ -32,12 +32,14 @@ log = logging.getLogger("cohortlens.app")
 
 def create_app(*, dataset: Dataset | None = None, roles: Roles | None = None,
                settings: Settings | None = None, workbench: Workbench | None = None,
-               datastore: DataStore | None = None) -> dash.Dash:
+               datastore: DataStore | None = None,
+               max_request_bytes: int = MAX_REQUEST_BYTES) -> dash.Dash:
     """A Dash app showing ``dataset`` (default: the invented demo registry) with these roles/settings.
 
     With no dataset the demo registry is used with its own roles and settings
     (loaded lazily on the first request). ``roles=None`` with a dataset makes the
-    page ask for the column roles.
+    page ask for the column roles. ``max_request_bytes`` bounds one HTTP request; the page
+    refuses files that would not fit (before sending them) and says so beside the upload.
     """
     datastore = datastore or DataStore()
     if dataset is None:
@@ -53,8 +55,9 @@ def create_app(*, dataset: Dataset | None = None, roles: Roles | None = None,
                          default_settings=settings or Settings())
     app = dash.Dash(__name__, title="cohortlens", assets_folder=str(ASSETS),
                     suppress_callback_exceptions=False, update_title=None)
-    app.layout = lambda: build_layout(context.default_settings)
-    app.server.config["MAX_CONTENT_LENGTH"] = 200 * 1024 * 1024
+    max_upload = upload_limit(max_request_bytes)
+    app.layout = lambda: build_layout(context.default_settings, max_upload_bytes=max_upload)
+    app.server.config["MAX_CONTENT_LENGTH"] = max_request_bytes
     hub.register(app, context)
     _register_panels(app, context)
     views.register(app, context)
