@@ -21,6 +21,7 @@ from __future__ import annotations
 
 import hashlib
 import json
+import sys
 import threading
 from collections import Counter, OrderedDict
 from dataclasses import dataclass
@@ -62,18 +63,61 @@ def check_spline_limit(time: np.ndarray, settings: Settings) -> None:
                             f"1 to {hi}", field="spline_df")
 
 
+def deep_nbytes(obj, _seen: set | None = None, _depth: int = 0) -> int:
+    """Estimated memory held by a result: numpy ``nbytes``, pandas ``memory_usage(deep=True)``,
+    recursing into dataclasses, objects' attributes and containers (each object counted once)."""
+    seen = set() if _seen is None else _seen
+    if id(obj) in seen or _depth > 12:
+        return 0
+    seen.add(id(obj))
+    if isinstance(obj, np.ndarray):
+        if obj.dtype == object:
+            return int(obj.nbytes) + sum(sys.getsizeof(v) for v in obj.ravel()[:100_000]) \
+                * max(1, obj.size // 100_000)
+        return int(obj.nbytes) if obj.base is None else 0 if id(obj.base) in seen \
+            else deep_nbytes(obj.base, seen, _depth + 1) or int(obj.nbytes)
+    if isinstance(obj, pd.DataFrame):
+        return int(obj.memory_usage(deep=True, index=True).sum())
+    if isinstance(obj, (pd.Series, pd.Index)):
+        return int(obj.memory_usage(deep=True))
+    if isinstance(obj, (str, bytes, int, float, bool, type(None))):
+        return sys.getsizeof(obj)
+    if isinstance(obj, dict):
+        return sys.getsizeof(obj) + sum(deep_nbytes(k, seen, _depth + 1)
+                                        + deep_nbytes(v, seen, _depth + 1) for k, v in obj.items())
+    if isinstance(obj, (list, tuple, set, frozenset)):
+        return sys.getsizeof(obj) + sum(deep_nbytes(v, seen, _depth + 1) for v in obj)
+    size = sys.getsizeof(obj)
+    attrs = getattr(obj, "__dict__", None)
+    if attrs is not None:
+        size += sum(deep_nbytes(v, seen, _depth + 1) for v in attrs.values())
+    for name in getattr(type(obj), "__slots__", ()):
+        size += deep_nbytes(getattr(obj, name, None), seen, _depth + 1)
+    return size
+
+
 class ResultCache:
     """A bounded, thread-safe least-recently-used memo.
 
     Two sessions asking for the same key share the result (keys include the
     data's content hash, so different data never collide); nothing else is shared.
+    Bounded by entry count and, when ``max_bytes`` is given, by the estimated memory of the
+    results (:func:`deep_nbytes`): the least recently used entries go first, and the newest
+    entry is always kept (a single result larger than the budget is still returned).
     """
 
-    def __init__(self, max_entries: int = 128):
+    def __init__(self, max_entries: int = 128, max_bytes: int | None = None,
+                 sizer: Callable[[Any], int] = deep_nbytes):
         if max_entries < 1:
             raise ValueError(f"max_entries == {max_entries}, must be >= 1")
+        if max_bytes is not None and max_bytes < 1:
+            raise ValueError(f"max_bytes == {max_bytes}, must be >= 1")
         self.max_entries = max_entries
+        self.max_bytes = max_bytes
+        self._sizer = sizer
         self._items: OrderedDict = OrderedDict()
+        self._sizes: dict = {}
+        self.nbytes = 0
         self._lock = threading.Lock()
 
     def get_or_compute(self, key, compute: Callable[[], Any]) -> tuple[Any, bool]:
@@ -83,12 +127,24 @@ class ResultCache:
                 self._items.move_to_end(key)
                 return self._items[key], False
         value = compute()
+        size = self._sizer(value) if self.max_bytes is not None else 0
         with self._lock:
+            if key in self._items:
+                self.nbytes -= self._sizes.pop(key, 0)
             self._items[key] = value
+            self._sizes[key] = size
+            self.nbytes += size
             self._items.move_to_end(key)
-            while len(self._items) > self.max_entries:
-                self._items.popitem(last=False)
+            while len(self._items) > 1 and (
+                    len(self._items) > self.max_entries
+                    or (self.max_bytes is not None and self.nbytes > self.max_bytes)):
+                old, _ = self._items.popitem(last=False)
+                self.nbytes -= self._sizes.pop(old, 0)
         return value, True
+
+    def __contains__(self, key) -> bool:
+        with self._lock:
+            return key in self._items
 
     def __len__(self) -> int:
         return len(self._items)
@@ -96,6 +152,8 @@ class ResultCache:
     def clear(self) -> None:
         with self._lock:
             self._items.clear()
+            self._sizes.clear()
+            self.nbytes = 0
 
 
 @dataclass(frozen=True, eq=False)
@@ -156,6 +214,10 @@ class Workbench:
         Bound on cached exploratory results (all those stages together).
     max_model_sets : int
         Bound on cached fitted model sets (the ``models`` stage).
+    max_bytes : int or None
+        Memory budget of the cached results (estimated by :func:`deep_nbytes`); three
+        quarters go to the exploratory stages, one quarter to fitted model sets. None: no
+        byte bound (the entry counts only).
 
     Attributes
     ----------
@@ -163,12 +225,20 @@ class Workbench:
         How many times each stage was actually computed (cache misses).
     """
 
-    def __init__(self, max_entries: int = 128, max_model_sets: int = 8):
-        self._cache = ResultCache(max_entries)
+    def __init__(self, max_entries: int = 128, max_model_sets: int = 8,
+                 max_bytes: int | None = None):
+        explore_bytes = None if max_bytes is None else max(1, max_bytes * 3 // 4)
+        model_bytes = None if max_bytes is None else max(1, max_bytes - explore_bytes)
+        self._cache = ResultCache(max_entries, explore_bytes)
         # fitted model sets keep their data and are slow to make: a bound of their own
-        self._model_cache = ResultCache(max_model_sets)
+        self._model_cache = ResultCache(max_model_sets, model_bytes)
         self.compute_counts: Counter = Counter()
         self._count_lock = threading.Lock()
+
+    @property
+    def nbytes(self) -> int:
+        """Estimated memory of the cached results (0 when not bounded by bytes)."""
+        return self._cache.nbytes + self._model_cache.nbytes
 
     # -- keys ------------------------------------------------------------
     @staticmethod

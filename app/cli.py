@@ -62,6 +62,9 @@ def build_parser() -> argparse.ArgumentParser:
     serve.add_argument("--host", default="127.0.0.1", help="address to bind [127.0.0.1]")
     serve.add_argument("--port", type=int, default=8050, help="port [8050]")
     serve.add_argument("--debug", action="store_true", help="Dash debug mode (development only)")
+    serve.add_argument("--cache-mb", type=float, default=None, metavar="MB",
+                       help="memory budget of uploaded tables plus cached results, half each; "
+                            "least recently used dropped first [1024]")
     _add_settings(serve)
 
     summ = _data_command(sub, "summarize", "write every exploratory number as JSON")
@@ -358,9 +361,14 @@ def _split(text: str | None) -> tuple[str, ...]:
 def cmd_serve(args) -> int:
     from app.server import run_server
 
+    from app.datastore import DEFAULT_CACHE_MB
+
+    cache_mb = DEFAULT_CACHE_MB if args.cache_mb is None else args.cache_mb
+    if not 16 <= cache_mb <= 1_000_000:
+        raise CohortError(f"--cache-mb {cache_mb:g}: must be from 16 to 1000000 (MB)")
     data, roles, settings = resolve(args)
     run_server(data_path=data, roles=roles, settings=settings, host=args.host, port=args.port,
-               debug=args.debug)
+               debug=args.debug, cache_mb=cache_mb)
     return 0
 
 

@@ -18,6 +18,9 @@ from analysis.loading import Dataset
 
 #: the fixed key of the bundled demo registry (also what a shared link carries)
 DEMO_KEY = "demo"
+#: default memory budget (MB) of uploads plus cached results (``cohortlens serve --cache-mb``)
+DEFAULT_CACHE_MB = 1024
+
 #: largest HTTP request the server accepts (an upload arrives base64-encoded inside one request)
 MAX_REQUEST_BYTES = 200 * 1024 * 1024
 
@@ -46,13 +49,22 @@ class DataStore:
         How many uploaded tables to keep; older ones are evicted first.
     max_cells : int
         Upper bound on rows x columns of one upload (larger tables are refused).
+    max_bytes : int or None
+        Memory budget of the uploads (pandas ``memory_usage(deep=True)``); the least recently
+        used go first, the newest is always kept. None: the count bound only.
     """
 
-    def __init__(self, max_uploads: int = 8, max_cells: int = 20_000_000):
+    def __init__(self, max_uploads: int = 8, max_cells: int = 20_000_000,
+                 max_bytes: int | None = None):
         if max_uploads < 1:
             raise ValueError(f"max_uploads == {max_uploads}, must be >= 1")
+        if max_bytes is not None and max_bytes < 1:
+            raise ValueError(f"max_bytes == {max_bytes}, must be >= 1")
         self.max_uploads = max_uploads
         self.max_cells = max_cells
+        self.max_bytes = max_bytes
+        self.nbytes = 0
+        self._sizes: dict[str, int] = {}
         self._uploads: OrderedDict[str, Dataset] = OrderedDict()
         self._pinned: dict[str, Dataset | Callable[[], Dataset]] = {}
         self._lock = threading.Lock()
@@ -80,13 +92,19 @@ class DataStore:
         # and the selection step expects it); a filtered frame keeps its old labels otherwise
         frame = frame.reset_index(drop=True)
         dataset = Dataset.from_frame(frame, name=UPLOAD_NAME)
+        size = int(frame.memory_usage(deep=True, index=True).sum())
         with self._lock:
             if dataset.key in self._uploads:
                 self._uploads.move_to_end(dataset.key)
                 return self._uploads[dataset.key]
             self._uploads[dataset.key] = dataset
-            while len(self._uploads) > self.max_uploads:
-                self._uploads.popitem(last=False)
+            self._sizes[dataset.key] = size
+            self.nbytes += size
+            while len(self._uploads) > 1 and (
+                    len(self._uploads) > self.max_uploads
+                    or (self.max_bytes is not None and self.nbytes > self.max_bytes)):
+                old, _ = self._uploads.popitem(last=False)
+                self.nbytes -= self._sizes.pop(old, 0)
         return dataset
 
     def get(self, key: str | None) -> Dataset | None:

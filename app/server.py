@@ -22,7 +22,8 @@ from analysis.settings import Roles, Settings
 
 from . import controls as ctl
 from . import hub, ids, models_view, palette, views
-from .datastore import DEMO_KEY, MAX_REQUEST_BYTES, DataStore, demo_dataset, upload_limit
+from .datastore import (DEFAULT_CACHE_MB, DEMO_KEY, MAX_REQUEST_BYTES, DataStore, demo_dataset,
+                        upload_limit)
 from .layout import build_layout
 from .session import AppContext, attempt, role_of_column
 
@@ -33,15 +34,19 @@ log = logging.getLogger("cohortlens.app")
 def create_app(*, dataset: Dataset | None = None, roles: Roles | None = None,
                settings: Settings | None = None, workbench: Workbench | None = None,
                datastore: DataStore | None = None,
-               max_request_bytes: int = MAX_REQUEST_BYTES) -> dash.Dash:
+               max_request_bytes: int = MAX_REQUEST_BYTES,
+               cache_mb: float = DEFAULT_CACHE_MB) -> dash.Dash:
     """A Dash app showing ``dataset`` (default: the invented demo registry) with these roles/settings.
 
     With no dataset the demo registry is used with its own roles and settings
     (loaded lazily on the first request). ``roles=None`` with a dataset makes the
     page ask for the column roles. ``max_request_bytes`` bounds one HTTP request; the page
     refuses files that would not fit (before sending them) and says so beside the upload.
+    ``cache_mb`` is the memory budget of uploads and cached results together: half for the
+    uploaded tables, half for the results (least recently used dropped first).
     """
-    datastore = datastore or DataStore()
+    budget = int(cache_mb * 2**20)
+    datastore = datastore or DataStore(max_bytes=max(1, budget // 2))
     if dataset is None:
         from analysis.demo import demo_roles, demo_settings
 
@@ -50,7 +55,8 @@ def create_app(*, dataset: Dataset | None = None, roles: Roles | None = None,
         settings = settings or demo_settings()
     else:
         key = datastore.pin(dataset.key, dataset)
-    context = AppContext(datasets=datastore, workbench=workbench or Workbench(max_entries=128),
+    context = AppContext(datasets=datastore, workbench=workbench or Workbench(
+                             max_entries=128, max_bytes=max(1, budget - budget // 2)),
                          default_key=key, default_roles=roles,
                          default_settings=settings or Settings())
     app = dash.Dash(__name__, title="cohortlens", assets_folder=str(ASSETS),
@@ -224,17 +230,18 @@ def _card(context, data, roles, settings, subject):
 
 # ------------------------------------------------------------------ running
 def run_server(*, data_path=None, roles: Roles | None = None, settings: Settings | None = None,
-               host: str = "127.0.0.1", port: int = 8050, debug: bool = False) -> None:
+               host: str = "127.0.0.1", port: int = 8050, debug: bool = False,
+               cache_mb: float = DEFAULT_CACHE_MB) -> None:
     """Serve the dashboard until interrupted (loopback only unless ``host`` says otherwise)."""
     from analysis.demo import DEMO_CSV
 
     logging.basicConfig(level=logging.INFO, format="%(levelname)s %(name)s: %(message)s")
     if data_path is None or Path(data_path) == DEMO_CSV:
-        app = create_app(roles=roles, settings=settings)
+        app = create_app(roles=roles, settings=settings, cache_mb=cache_mb)
     else:
         frame = read_table(data_path)
         app = create_app(dataset=Dataset.from_frame(frame, name=Path(data_path).name),
-                         roles=roles, settings=settings)
+                         roles=roles, settings=settings, cache_mb=cache_mb)
     if host not in ("127.0.0.1", "localhost", "::1"):
         print(f"cohortlens: WARNING binding {host}: other computers on the network can reach "
               "this dashboard and its data.")
