@@ -12,6 +12,7 @@ from analysis.errors import CohortError
 from analysis.settings import Roles, Settings
 
 from . import ids
+from .text import short
 
 ON = "on"
 
@@ -218,7 +219,8 @@ def role_options(described: list[dict]) -> list[dict]:
     out = []
     for c in described:
         miss = f", {c['n_missing']} missing" if c["n_missing"] else ""
-        out.append({"label": f"{c['name']}  ({c['kind']}{miss})", "value": c["name"]})
+        out.append({"label": f"{short(c['name'])}  ({c['kind']}{miss})", "value": c["name"],
+                    "title": str(c["name"])})
     return out
 
 

@@ -21,6 +21,7 @@ from analysis.loading import describe_columns, read_table
 from . import controls as ctl
 from . import ids, urlstate
 from .session import AppContext, attempt
+from .text import clip_message, echo, option, short
 
 PREVIEW_ROWS = 6
 _SETTING_KEYS = (*ids.SETTING_FIELDS, "center_value")
@@ -162,7 +163,7 @@ def _from_upload(context: AppContext, contents, filename, now: dict, out: dict) 
 
     dataset, message, _ = attempt(load, what=f"reading {name}")
     if dataset is None:
-        out["upload_msg"] = f"Could not use {name}: {message}"
+        out["upload_msg"] = clip_message(f"Could not use {echo(name)}: {message}")
         return False
     current = now["roles"]
     roles, _ = ctl.roles_from_controls(current, known=context.default_roles)
@@ -184,11 +185,11 @@ def _show_dataset(context: AppContext, key: str, roles, out: dict, name: str | N
     options = ctl.role_options(described)
     roles = ctl.keep_roles_that_fit(roles, dataset.frame.columns)
     out["data"] = {"key": dataset.key, "name": name}
-    out["title"] = name
+    out["title"] = short(name)
     subjects = ""
     if roles is not None:
         subjects = f", {dataset.frame[roles.subject].nunique():,} subjects"
-    out["data_name"] = (f"{name}: {len(dataset.frame):,} rows, "
+    out["data_name"] = (f"{short(name)}: {len(dataset.frame):,} rows, "
                         f"{dataset.frame.shape[1]} columns{subjects}")
     out["role_options"] = {r: options for r in ids.ROLE_FIELDS}
     out["roles"] = ctl.role_values(roles)
@@ -242,7 +243,7 @@ def _analysed_subject(context: AppContext, data, roles: dict, settings: dict, pi
 
 def _covariate_options(covariates) -> list[dict]:
     """Choices of the covariate and grouping dropdowns: the columns chosen as covariates."""
-    return [{"label": c, "value": c} for c in (covariates or [])]
+    return [option(c, c) for c in (covariates or [])]
 
 
 def _same_query(a, b) -> bool:
@@ -264,10 +265,11 @@ def decode_upload(contents: str, name: str) -> bytes:
 def preview(frame, described) -> tuple[list[dict], list[dict]]:
     """First rows as display strings, with column headers naming each column's kind."""
     head = frame.head(PREVIEW_ROWS)
-    columns = [{"name": [c["name"], c["kind"]], "id": str(i)} for i, c in enumerate(described)]
+    columns = [{"name": [short(c["name"]), c["kind"]], "id": str(i)}
+               for i, c in enumerate(described)]
     rows = []
     for _, row in head.iterrows():
-        rows.append({str(i): _cell(v) for i, v in enumerate(row.tolist())})
+        rows.append({str(i): short(_cell(v)) for i, v in enumerate(row.tolist())})
     return rows, columns
 
 

@@ -29,6 +29,7 @@ from analysis.report import (ASSOCIATION_NOTE, CAUTIONS, MIXTURE_NOTE, PREFERRED
 from . import ids
 from .layout import GRAPH_CONFIG, message, section
 from .session import AppContext, NeedsInput, attempt
+from .text import option
 
 #: (structure, label) in the order offered; every structure includes measurement error
 STRUCTURE_CHOICES: tuple[tuple[str, str], ...] = (
@@ -144,7 +145,7 @@ def confounder_options(roles: dict | None, settings: dict | None) -> list[dict]:
     """Baseline covariates under the roles other than the primary one."""
     covs = list(((roles or {}).get("roles") or {}).get("covariates") or [])
     primary = (settings or {}).get("covariate") or (covs[0] if covs else None)
-    return [{"label": c, "value": c} for c in covs if c != primary]
+    return [option(c, c) for c in covs if c != primary]
 
 
 def snapshot_key(context: AppContext, data, roles, settings, choices: ModelChoices) -> str:

@@ -26,6 +26,7 @@ from .datastore import (DEFAULT_CACHE_MB, DEMO_KEY, MAX_REQUEST_BYTES, DataStore
                         upload_limit)
 from .layout import build_layout
 from .session import AppContext, attempt, role_of_column
+from .text import short
 
 ASSETS = Path(__file__).resolve().parents[1] / "assets"
 log = logging.getLogger("cohortlens.app")
@@ -211,17 +212,17 @@ def _card(context, data, roles, settings, subject):
     se = f" (SE {fmt(r['slope_se'])})" if "slope_se" in row.columns else ""
     cov = cohort.covariate
     head = html.Div(className="cl-card-head", children=[
-        html.Strong(f"Subject {subject}"),
-        html.Span(f"group {r['stratum_label']}"),
-        *([html.Span(f"{cov} = {r['covariate']}")] if cov else []),
+        html.Strong(f"Subject {short(subject)}"),
+        html.Span(f"group {short(r['stratum_label'])}"),
+        *([html.Span(f"{short(cov)} = {short(r['covariate'])}")] if cov else []),
         html.Span(f"{len(mine)} visits"),
         html.Span(f"fitted line: {fmt(r['intercept'])} + {fmt(r['slope'])}{se} × time"),
     ])
     visits = dash_table.DataTable(
         data=[{"time": round(float(t), 2), "response": round(float(y), 2)}
               for t, y in zip(mine["time"], mine["response"])],
-        columns=[{"name": cohort.time_label, "id": "time"},
-                 {"name": cohort.roles.response, "id": "response"}],
+        columns=[{"name": short(cohort.time_label), "id": "time"},
+                 {"name": short(cohort.roles.response), "id": "response"}],
         fill_width=False,
         style_table={"maxHeight": "8rem", "overflowY": "auto"},
         style_cell={"fontFamily": "inherit", "fontSize": "14px", "padding": "2px 8px"})

@@ -18,6 +18,7 @@ from analysis.pipeline import Workbench
 
 from . import draw, ids
 from .session import AppContext, NeedsInput, attempt
+from .text import short
 
 STORES = (Input(ids.STORE_DATA, "data"), Input(ids.STORE_ROLES, "data"),
           Input(ids.STORE_SETTINGS, "data"))
@@ -160,7 +161,7 @@ def register(app, context: AppContext) -> None:
 
 def rate_table_columns(present, cohort) -> list[dict]:
     """Two-row headers for the group summary table (the internal group code is left out)."""
-    cov = cohort.covariate or "covariate"
+    cov = short(cohort.covariate or "covariate")
     unit = cohort.settings.unit
     per = f"slope per {unit[:-1] if unit.endswith('s') else unit}"
     spec = [
