@@ -6,8 +6,6 @@ session); the limit and the file size the test itself chooses.
 """
 from __future__ import annotations
 
-import threading
-
 import pytest
 
 from analysis.demo import demo_roles, demo_settings, load_demo
@@ -16,7 +14,8 @@ from analysis.modelstage import ModelChoices
 from analysis.pipeline import Workbench
 from analysis.report import x_description
 from app import ids
-from test_models import EFFECT, wait_fitted
+from conftest import serving
+from test_models import wait_fitted
 
 TIMEOUT = 60_000
 REQUEST_BYTES = 64 * 1024 + 4096      # a small limit: pages refuse files over 3 KB
@@ -24,8 +23,6 @@ REQUEST_BYTES = 64 * 1024 + 4096      # a small limit: pages refuse files over 3
 
 @pytest.fixture(scope="module")
 def small_server():
-    from werkzeug.serving import make_server
-
     from app.server import create_app
 
     df = load_demo()
@@ -34,14 +31,8 @@ def small_server():
                                  name="registry subset")
     dash_app = create_app(dataset=dataset, roles=demo_roles(), settings=demo_settings(),
                           max_request_bytes=REQUEST_BYTES)
-    server = make_server("127.0.0.1", 0, dash_app.server, threaded=True)
-    thread = threading.Thread(target=server.serve_forever, daemon=True)
-    thread.start()
-    try:
-        yield f"http://127.0.0.1:{server.server_port}/", dataset
-    finally:
-        server.shutdown()
-        thread.join(timeout=5)
+    with serving(dash_app) as url:
+        yield url, dataset
 
 
 def _open(page, url):
