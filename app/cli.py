@@ -303,7 +303,10 @@ def cmd_fit(args) -> int:
     from analysis.jsonsafe import json_safe
     from analysis.prepare import prepare
 
+    from analysis.modelstage import ModelChoices
+
     _check_output(args.json, "--json")
+    ModelChoices(time_spline_df=args.time_spline_df)     # checks its range before any work
     data, roles, settings = resolve(args)
     cohort = prepare(_load(data), roles, settings)
     structures = (tuple(s.strip() for s in args.models.split(",") if s.strip())

@@ -64,6 +64,15 @@ def test_huge_count_flags_are_messages_naming_the_flag(flag, value, fragment, tm
     assert rc == 2 and fragment in err and flag in err, err
 
 
+@pytest.mark.parametrize("command", ["fit", "report"])
+def test_huge_time_spline_df_is_a_message(command, tmp_path, capsys):
+    out = ["--json", str(tmp_path / "o.json")] if command == "fit" else \
+        ["--out", str(tmp_path / "r.html")]
+    rc = main([command, "demo", "--time-spline-df", "5000000", *out])
+    err = capsys.readouterr().err
+    assert rc == 2 and "time_spline_df == 5000000, must be from 1 to 20" in err, err
+
+
 @pytest.mark.parametrize("args", [["--breaks=-50,1e6"], ["--breaks", "-50,1e6"]])
 def test_negative_breaks_are_read_as_a_value(args, tmp_path, capsys):
     from app.cli import build_parser, join_negative_values
