@@ -21,7 +21,7 @@ from analysis.loading import describe_columns, read_table
 from . import controls as ctl
 from . import ids, urlstate
 from .session import AppContext, attempt
-from .text import clip_message, echo, option, short
+from .text import clip_message, echo, option, renamed_note, short, shorten_columns
 
 PREVIEW_ROWS = 6
 _SETTING_KEYS = (*ids.SETTING_FIELDS, "center_value")
@@ -159,17 +159,19 @@ def _from_upload(context: AppContext, contents, filename, now: dict, out: dict) 
 
     def load():
         raw = decode_upload(contents, name)
-        return context.datasets.add(read_table(raw, name=name), name=name)
+        frame, renamed = shorten_columns(read_table(raw, name=name))
+        return context.datasets.add(frame, name=name), renamed
 
-    dataset, message, _ = attempt(load, what=f"reading {name}")
-    if dataset is None:
+    loaded, message, _ = attempt(load, what=f"reading {name}")
+    if loaded is None:
         out["upload_msg"] = clip_message(f"Could not use {echo(name)}: {message}")
         return False
+    dataset, renamed = loaded
     current = now["roles"]
     roles, _ = ctl.roles_from_controls(current, known=context.default_roles)
     keep = ctl.keep_roles_that_fit(roles, dataset.frame.columns)
     _show_dataset(context, dataset.key, keep, out, name=name)
-    out["upload_msg"] = ""
+    out["upload_msg"] = clip_message(renamed_note(renamed))
     out["subject"], out["stratum"] = None, None
     now.update(data=out["data"], roles=out["roles"], subject=None, stratum=None)
     return True

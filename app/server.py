@@ -26,7 +26,7 @@ from .datastore import (DEFAULT_CACHE_MB, DEMO_KEY, MAX_REQUEST_BYTES, DataStore
                         upload_limit)
 from .layout import build_layout
 from .session import AppContext, attempt, role_of_column
-from .text import short
+from .text import renamed_note, short, shorten_columns
 
 ASSETS = Path(__file__).resolve().parents[1] / "assets"
 log = logging.getLogger("cohortlens.app")
@@ -240,7 +240,9 @@ def run_server(*, data_path=None, roles: Roles | None = None, settings: Settings
     if data_path is None or Path(data_path) == DEMO_CSV:
         app = create_app(roles=roles, settings=settings, cache_mb=cache_mb)
     else:
-        frame = read_table(data_path)
+        frame, renamed = shorten_columns(read_table(data_path))
+        if renamed:
+            print(f"cohortlens: {renamed_note(renamed)}")
         app = create_app(dataset=Dataset.from_frame(frame, name=Path(data_path).name),
                          roles=roles, settings=settings, cache_mb=cache_mb)
     if host not in ("127.0.0.1", "localhost", "::1"):

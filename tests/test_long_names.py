@@ -15,7 +15,8 @@ from analysis.pipeline import Workbench
 from analysis.settings import Roles, Settings
 from app import controls as ctl
 from app import draw, hub
-from app.text import ECHO_CHARS, LABEL_CHARS, echo, short
+from app.text import ECHO_CHARS, LABEL_CHARS, NAME_CHARS, echo, renamed_note, short, \
+    shorten_columns
 
 
 def _frame(n_chars: int) -> tuple[pd.DataFrame, Roles]:
@@ -58,3 +59,16 @@ def test_dropdowns_tables_and_figures_show_short_names():
     shown = draw.courses(cohort.frame, full=cohort.frame, cohort=cohort)
     layout = json.dumps(shown.to_plotly_json()["layout"], default=str)
     assert "r" * (LABEL_CHARS + 1) not in layout and "t" * (LABEL_CHARS + 1) not in layout
+
+
+def test_long_column_names_are_renamed_on_loading_and_stay_unique():
+    df, _ = _frame(6000)
+    df["y" * 50] = 1.0                                   # a short name is left alone
+    out, renamed = shorten_columns(df)
+    assert len(renamed) == 4 and out.columns[-1] == "y" * 50
+    assert all(len(c) <= NAME_CHARS for c in out.columns)
+    assert len(set(out.columns)) == len(out.columns)
+    assert [old for old, _ in renamed] == list(df.columns[:4])
+    assert (out.to_numpy() == df.to_numpy()).all()         # same cells, in the same order
+    note = renamed_note(renamed)
+    assert "[column 1]" in note and len(note) < 4 * (ECHO_CHARS + 150)

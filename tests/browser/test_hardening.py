@@ -89,3 +89,37 @@ def test_a_file_over_the_limit_is_refused_with_a_message(small_server, page, tmp
     msg.get_by_text("cohortlens serve FILE", exact=False).wait_for(timeout=TIMEOUT)
     assert "too_big.csv" in msg.inner_text() and "up to 3 KB" in msg.inner_text()
     assert page.inner_text(f"#{ids.DATA_NAME}") == before      # nothing was sent or loaded
+
+
+def test_columns_with_names_thousands_of_characters_long(server_url, page, tmp_path):
+    """Reference: the names the test builds; the display length app.text.LABEL_CHARS."""
+    from test_dashboard import (TIMEOUT as DRAW_TIMEOUT, UPLOAD_COLUMNS, choose, figure,
+                                upload_frame, wait_drawn)
+
+    from app.text import LABEL_CHARS, short, shorten_columns
+
+    url, _ = server_url
+    long = {c: f"{c}_" + "x" * 4000 for c in UPLOAD_COLUMNS}
+    frame = upload_frame(60).rename(columns={v: long[k] for k, v in UPLOAD_COLUMNS.items()})
+    path = tmp_path / "long names.csv"
+    frame.to_csv(path, index=False)
+    _open(page, url)
+    page.set_input_files(f"#{ids.DATA_UPLOAD} input[type=file]", str(path))
+    page.wait_for_function("() => document.getElementById('data-name').innerText"
+                           ".includes('long names.csv')", timeout=DRAW_TIMEOUT)
+    # the page renames such columns on loading (option values that long stall the tab)
+    new = dict(shorten_columns(frame)[1])
+    assert "shortened" in page.inner_text(f"#{ids.DATA_UPLOAD_MSG}")
+    for role, col in (("subject", "recipient_id"), ("time", "visit_date"),
+                      ("event_date", "tx_date"), ("response", "egfr"),
+                      ("covariates", "urine_protein_ratio")):
+        choose(page, ids.ROLE_INPUT[role], short(new[long[col]]))
+    fig = wait_drawn(page, ids.COURSE_GRAPH)
+    wait_drawn(page, ids.SPREAD_GRAPH)
+    titles = [ax.get("title", {}).get("text", "") for k, ax in fig["layout"].items()
+              if k.startswith(("xaxis", "yaxis"))]
+    assert titles and max(map(len, titles)) <= 2 * LABEL_CHARS + 40, titles
+    headers = page.eval_on_selector_all(f"#{ids.DATA_PREVIEW} th",
+                                        "els => els.map(e => e.innerText.length)")
+    assert headers and max(headers) <= LABEL_CHARS + 20
+    assert figure(page, ids.COURSE_GRAPH) is not None
