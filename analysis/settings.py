@@ -179,6 +179,9 @@ class Settings:
             _int_between(name, getattr(self, name), 1, hi)
         for name in ("time_min", "time_max", "lowess_frac", "lag_width", "variogram_max_lag"):
             _number_or_none(name, getattr(self, name))
+        if self.lowess_frac is None:
+            raise SettingsError("lowess_frac == None, must be a number in (0, 1]",
+                                field="lowess_frac")
         if not 0 < self.lowess_frac <= 1:
             raise SettingsError(f"lowess_frac == {self.lowess_frac}, must be in (0, 1]",
                                 field="lowess_frac")
