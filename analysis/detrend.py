@@ -213,6 +213,8 @@ def _fit(t, y, at, method, spline_df, frac, notes):
         vals = _lstsq_eval(natural_spline_basis(t, knots), natural_spline_basis(at, knots), y)
         text = (f"natural cubic spline in time with {knots.size - 1} df "
                 f"(knots at {', '.join(f'{k:.3g}' for k in knots)})")
+        if use_df < spline_df:
+            text += f"; {spline_df} df were asked for, but there are only {n_unique} distinct times"
         return vals, None, text
     xs, fs = _lowess_curve(t, y, frac)
     if not np.all(np.isfinite(fs)):

@@ -7,7 +7,18 @@ class CohortError(ValueError):
 
 
 class SettingsError(CohortError):
-    """A setting has a value outside its allowed range or choices."""
+    """A setting has a value outside its allowed range or choices.
+
+    Attributes
+    ----------
+    field : str or None
+        The :class:`~analysis.settings.Settings` field concerned (the page shows the message
+        beside that control), or None when no single setting is to blame.
+    """
+
+    def __init__(self, message: str, *, field: str | None = None):
+        super().__init__(message)
+        self.field = field
 
 
 class DataError(CohortError):

@@ -18,6 +18,7 @@ import numpy as np
 from .errors import ModelError
 from .mean_model import MeanModel
 from .modelling import COVARIATE_COLUMN, DEFAULT_CANDIDATES, ModelSet, fit_candidates
+from .settings import COUNT_LIMITS
 
 #: GEE working correlations fitted beside the mixed models unless told otherwise.
 DEFAULT_GEE: tuple[str, ...] = ("exchangeable", "autoregressive")
@@ -88,8 +89,9 @@ class ModelChoices:
             if isinstance(df, bool) or not isinstance(df, (int, np.integer)):
                 raise ModelError(f"time_spline_df == {df!r}, must be a whole number >= 1 "
                                  "or empty for a straight line")
-            if df < 1:
-                raise ModelError(f"time_spline_df == {df}, must be >= 1")
+            if not 1 <= df <= COUNT_LIMITS["spline_df"]:
+                raise ModelError(f"time_spline_df == {df}, must be from 1 to "
+                                 f"{COUNT_LIMITS['spline_df']}")
         bad = [w for w in self.gee if w not in WORKING]
         if bad:
             raise ModelError(f"GEE working correlations {bad} not known; choose from "

@@ -22,6 +22,7 @@ from __future__ import annotations
 
 import hashlib
 import json
+import sys
 import threading
 from collections import Counter, OrderedDict
 from dataclasses import dataclass
@@ -30,10 +31,57 @@ from typing import Any, Callable
 import numpy as np
 import pandas as pd
 
+from .errors import SettingsError
 from .jsonsafe import json_safe
 from .loading import Dataset
 from .prepare import CohortSelection, PreparedCohort, select_cohort, stratify
-from .settings import STAGE_FIELDS, Roles, Settings
+from .settings import COUNT_LIMITS, STAGE_FIELDS, Roles, Settings
+
+
+def check_group_limit(selection: CohortSelection, settings: Settings) -> None:
+    """Groups cut from a numeric stratifier: at most one per subject (checked before cutting)."""
+    by = settings.stratify_by or selection.covariate
+    if by is None or selection.covariate_kinds.get(by) != "numeric" \
+            or settings.strata_method == "custom":
+        return
+    n = selection.panel.n_subjects
+    if settings.n_strata > n:
+        hi = min(n, COUNT_LIMITS["n_strata"])
+        raise SettingsError(f"n_strata == {settings.n_strata}: the cohort has {n:,} subjects, "
+                            f"so the number of groups must be from 1 to {hi}", field="n_strata")
+
+
+def deep_nbytes(obj, _seen: set | None = None, _depth: int = 0) -> int:
+    """Estimated memory held by a result: numpy ``nbytes``, pandas ``memory_usage(deep=True)``,
+    recursing into dataclasses, objects' attributes and containers (each object counted once)."""
+    seen = set() if _seen is None else _seen
+    if id(obj) in seen or _depth > 12:
+        return 0
+    seen.add(id(obj))
+    if isinstance(obj, np.ndarray):
+        if obj.dtype == object:
+            return int(obj.nbytes) + sum(sys.getsizeof(v) for v in obj.ravel()[:100_000]) \
+                * max(1, obj.size // 100_000)
+        return int(obj.nbytes) if obj.base is None else 0 if id(obj.base) in seen \
+            else deep_nbytes(obj.base, seen, _depth + 1) or int(obj.nbytes)
+    if isinstance(obj, pd.DataFrame):
+        return int(obj.memory_usage(deep=True, index=True).sum())
+    if isinstance(obj, (pd.Series, pd.Index)):
+        return int(obj.memory_usage(deep=True))
+    if isinstance(obj, (str, bytes, int, float, bool, type(None))):
+        return sys.getsizeof(obj)
+    if isinstance(obj, dict):
+        return sys.getsizeof(obj) + sum(deep_nbytes(k, seen, _depth + 1)
+                                        + deep_nbytes(v, seen, _depth + 1) for k, v in obj.items())
+    if isinstance(obj, (list, tuple, set, frozenset)):
+        return sys.getsizeof(obj) + sum(deep_nbytes(v, seen, _depth + 1) for v in obj)
+    size = sys.getsizeof(obj)
+    attrs = getattr(obj, "__dict__", None)
+    if attrs is not None:
+        size += sum(deep_nbytes(v, seen, _depth + 1) for v in attrs.values())
+    for name in getattr(type(obj), "__slots__", ()):
+        size += deep_nbytes(getattr(obj, name, None), seen, _depth + 1)
+    return size
 
 
 class ResultCache:
@@ -41,13 +89,23 @@ class ResultCache:
 
     Two sessions asking for the same key share the result (keys include the
     data's content hash, so different data never collide); nothing else is shared.
+    Bounded by entry count and, when ``max_bytes`` is given, by the estimated memory of the
+    results (:func:`deep_nbytes`): the least recently used entries go first, and the newest
+    entry is always kept (a single result larger than the budget is still returned).
     """
 
-    def __init__(self, max_entries: int = 128):
+    def __init__(self, max_entries: int = 128, max_bytes: int | None = None,
+                 sizer: Callable[[Any], int] = deep_nbytes):
         if max_entries < 1:
             raise ValueError(f"max_entries == {max_entries}, must be >= 1")
+        if max_bytes is not None and max_bytes < 1:
+            raise ValueError(f"max_bytes == {max_bytes}, must be >= 1")
         self.max_entries = max_entries
+        self.max_bytes = max_bytes
+        self._sizer = sizer
         self._items: OrderedDict = OrderedDict()
+        self._sizes: dict = {}
+        self.nbytes = 0
         self._lock = threading.Lock()
 
     def get_or_compute(self, key, compute: Callable[[], Any]) -> tuple[Any, bool]:
@@ -57,12 +115,24 @@ class ResultCache:
                 self._items.move_to_end(key)
                 return self._items[key], False
         value = compute()
+        size = self._sizer(value) if self.max_bytes is not None else 0
         with self._lock:
+            if key in self._items:
+                self.nbytes -= self._sizes.pop(key, 0)
             self._items[key] = value
+            self._sizes[key] = size
+            self.nbytes += size
             self._items.move_to_end(key)
-            while len(self._items) > self.max_entries:
-                self._items.popitem(last=False)
+            while len(self._items) > 1 and (
+                    len(self._items) > self.max_entries
+                    or (self.max_bytes is not None and self.nbytes > self.max_bytes)):
+                old, _ = self._items.popitem(last=False)
+                self.nbytes -= self._sizes.pop(old, 0)
         return value, True
+
+    def __contains__(self, key) -> bool:
+        with self._lock:
+            return key in self._items
 
     def __len__(self) -> int:
         return len(self._items)
@@ -70,6 +140,8 @@ class ResultCache:
     def clear(self) -> None:
         with self._lock:
             self._items.clear()
+            self._sizes.clear()
+            self.nbytes = 0
 
 
 @dataclass(frozen=True, eq=False)
@@ -83,8 +155,10 @@ class Summaries:
 
 @dataclass(frozen=True, eq=False)
 class Exploration:
-    """Every exploratory result for one (data, roles, settings)."""
+    """Every exploratory result for one (data, roles, settings); ``settings`` are the request's
+    own (the cached stages carry only the fields of their keys)."""
 
+    settings: Settings
     cohort: PreparedCohort
     subject_lines: pd.DataFrame
     residuals: Any
@@ -97,7 +171,7 @@ class Exploration:
         c = self.cohort
         lines = self.subject_lines
         return json_safe({
-            "settings": c.settings.to_dict(),
+            "settings": self.settings.to_dict(),
             "roles": c.roles.to_dict(),
             "cohort": {
                 "subjects": c.panel.n_subjects,
@@ -128,6 +202,10 @@ class Workbench:
         Bound on cached exploratory results (all those stages together).
     max_model_sets : int
         Bound on cached fitted model sets (the ``models`` stage).
+    max_bytes : int or None
+        Memory budget of the cached results (estimated by :func:`deep_nbytes`); three
+        quarters go to the exploratory stages, one quarter to fitted model sets. None: no
+        byte bound (the entry counts only).
 
     Attributes
     ----------
@@ -135,12 +213,20 @@ class Workbench:
         How many times each stage was actually computed (cache misses).
     """
 
-    def __init__(self, max_entries: int = 128, max_model_sets: int = 8):
-        self._cache = ResultCache(max_entries)
+    def __init__(self, max_entries: int = 128, max_model_sets: int = 8,
+                 max_bytes: int | None = None):
+        explore_bytes = None if max_bytes is None else max(1, max_bytes * 3 // 4)
+        model_bytes = None if max_bytes is None else max(1, max_bytes - explore_bytes)
+        self._cache = ResultCache(max_entries, explore_bytes)
         # fitted model sets keep their data and are slow to make: a bound of their own
-        self._model_cache = ResultCache(max_model_sets)
+        self._model_cache = ResultCache(max_model_sets, model_bytes)
         self.compute_counts: Counter = Counter()
         self._count_lock = threading.Lock()
+
+    @property
+    def nbytes(self) -> int:
+        """Estimated memory of the cached results (0 when not bounded by bytes)."""
+        return self._cache.nbytes + self._model_cache.nbytes
 
     # -- keys ------------------------------------------------------------
     @staticmethod
@@ -180,12 +266,21 @@ class Workbench:
 
     # -- stages ----------------------------------------------------------
     def selection(self, dataset: Dataset, roles: Roles, settings: Settings) -> CohortSelection:
+        keyed = settings.only(self.stage_fields("selection", settings))
         return self._memo("selection", dataset, roles, settings,
-                          lambda: select_cohort(dataset.frame, roles, settings))
+                          lambda: select_cohort(dataset.frame, roles, keyed))
 
     def cohort(self, dataset: Dataset, roles: Roles, settings: Settings) -> PreparedCohort:
-        return self._memo("cohort", dataset, roles, settings,
-                          lambda: stratify(self.selection(dataset, roles, settings), settings))
+        # the cached cohort carries exactly the settings of its key: a later request that
+        # differs only in, say, detrending must not read this request's other choices
+        keyed = settings.only(self.stage_fields("cohort", settings))
+
+        def compute():
+            selection = self.selection(dataset, roles, settings)
+            check_group_limit(selection, keyed)
+            return stratify(selection, keyed)
+
+        return self._memo("cohort", dataset, roles, settings, compute)
 
     def subject_fits(self, dataset: Dataset, roles: Roles, settings: Settings):
         from .subject_fits import fit_subject_lines
@@ -277,6 +372,7 @@ class Workbench:
     def explore(self, dataset: Dataset, roles: Roles, settings: Settings) -> Exploration:
         """Every exploratory stage (each one cached on its own)."""
         return Exploration(
+            settings=settings,
             cohort=self.cohort(dataset, roles, settings),
             subject_lines=self.subject_lines(dataset, roles, settings),
             residuals=self.residuals(dataset, roles, settings),

@@ -183,6 +183,9 @@ class PreparedCohort:
     center_value: float | None
     baseline: pd.DataFrame
     warnings: tuple[str, ...]
+    #: the settings this cohort was built with (those passed to :func:`stratify`); a cached
+    #: cohort carries exactly the fields of its cache key (see ``Workbench.cohort``)
+    settings: Settings
 
     # convenience views of the selection
     @property
@@ -200,10 +203,6 @@ class PreparedCohort:
     @property
     def roles(self) -> Roles:
         return self.selection.roles
-
-    @property
-    def settings(self) -> Settings:
-        return self.selection.settings
 
     @property
     def covariate(self) -> str | None:
@@ -414,7 +413,7 @@ def stratify(selection: CohortSelection, settings: Settings) -> PreparedCohort:
     base["stratum_label"] = labels[strata.codes]
     warnings.extend(getattr(strata, "notes", ()))
     return PreparedCohort(selection=selection, strata=strata, x=x, center_value=center_value,
-                          baseline=base, warnings=tuple(warnings))
+                          baseline=base, warnings=tuple(warnings), settings=settings)
 
 
 # --------------------------------------------------------------------------- helpers

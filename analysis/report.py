@@ -323,7 +323,7 @@ def x_description(cohort) -> str:
 
 def build_report(cohort, exploration=None, models=None, *, data_name: str = "data",
                  data_key: str = "", choices=None, figures=(), chosen: str | None = None,
-                 created: datetime | None = None) -> str:
+                 created: datetime | None = None, settings=None) -> str:
     """The whole analysis as one self-contained HTML document.
 
     Parameters
@@ -345,6 +345,9 @@ def build_report(cohort, exploration=None, models=None, *, data_name: str = "dat
         Model whose details are shown (default: the preferred model).
     created : datetime, optional
         Time stamp (default: now, UTC).
+    settings : Settings, optional
+        The request's settings for the settings table (default: the exploration's, else the
+        cohort's, which hold only the fields its stage reads).
 
     Returns
     -------
@@ -352,7 +355,7 @@ def build_report(cohort, exploration=None, models=None, *, data_name: str = "dat
         A complete HTML document.
     """
     created = created or datetime.now(timezone.utc)
-    s = cohort.settings
+    s = settings or (exploration.settings if exploration is not None else cohort.settings)
     unit = s.unit
     parts = [f"<h1>{_e(TITLE)}</h1>",
              _p(f"Data: {data_name} (content fingerprint {data_key or 'not given'})", "meta"),

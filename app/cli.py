@@ -9,11 +9,12 @@ from __future__ import annotations
 
 import argparse
 import json
+import re
 import sys
 from pathlib import Path
 
 from analysis import options as opt
-from analysis.errors import CohortError
+from analysis.errors import CohortError, SettingsError
 from analysis.settings import Roles, Settings
 
 COMMANDS = ("serve", "summarize", "fit", "report")
@@ -49,6 +50,10 @@ SETTING_FLAGS: tuple[tuple[str, str, object, tuple | None, str], ...] = (
 )
 
 
+#: the command-line flag of each Settings field, for messages
+_FLAG_OF: dict[str, str] = {field: flag for flag, field, *_ in SETTING_FLAGS}
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="cohortlens",
@@ -62,6 +67,9 @@ def build_parser() -> argparse.ArgumentParser:
     serve.add_argument("--host", default="127.0.0.1", help="address to bind [127.0.0.1]")
     serve.add_argument("--port", type=int, default=8050, help="port [8050]")
     serve.add_argument("--debug", action="store_true", help="Dash debug mode (development only)")
+    serve.add_argument("--cache-mb", type=float, default=None, metavar="MB",
+                       help="memory budget of uploaded tables plus cached results, half each; "
+                            "least recently used dropped first [1024]")
     _add_settings(serve)
 
     summ = _data_command(sub, "summarize", "write every exploratory number as JSON")
@@ -142,9 +150,20 @@ def resolve(args: argparse.Namespace) -> tuple[object, Roles | None, Settings]:
             loaded = json.loads(Path(args.settings).read_text(encoding="utf-8"))
         except (OSError, json.JSONDecodeError) as exc:
             raise CohortError(f"--settings {args.settings}: cannot read JSON ({exc})") from None
-        if isinstance(loaded, dict) and "settings" in loaded:
-            base_settings = dict(loaded["settings"])
+        if not isinstance(loaded, dict):
+            raise SettingsError(f"--settings {args.settings}: expected a JSON object of "
+                                f"setting: value pairs, found a {_json_kind(loaded)}")
+        if "settings" in loaded:
+            base_settings = loaded["settings"]
             base_roles = loaded.get("roles")
+            if not isinstance(base_settings, dict):
+                raise SettingsError(f"--settings {args.settings}: 'settings' must be a JSON "
+                                    f"object, found a {_json_kind(base_settings)}")
+            if base_roles is not None and not isinstance(base_roles, dict):
+                raise SettingsError(f"--settings {args.settings}: 'roles' must be a JSON object "
+                                    f"of role: column pairs, found a {_json_kind(base_roles)}",
+                                    field="roles")
+            base_settings = dict(base_settings)
         else:
             base_settings = dict(loaded)
 
@@ -198,12 +217,52 @@ def resolve(args: argparse.Namespace) -> tuple[object, Roles | None, Settings]:
     return data, roles, Settings.from_dict(settings_dict)
 
 
+def _json_kind(value) -> str:
+    """How JSON calls a parsed value ('list', 'string', 'number' ...)."""
+    if isinstance(value, bool):
+        return "true/false value"
+    return {list: "list", str: "string", int: "number", float: "number", dict: "object",
+            type(None): "null"}.get(type(value), type(value).__name__)
+
+
+def _check_output(out: str, flag: str) -> None:
+    """Fail before any work when the output file cannot be written there."""
+    if out == "-":
+        return
+    folder = Path(out).expanduser().resolve().parent
+    if not folder.is_dir():
+        raise CohortError(f"{flag} {out}: the folder {folder} does not exist; create it or "
+                          "choose another path")
+    if Path(out).is_dir():
+        raise CohortError(f"{flag} {out}: is a folder; give a file name")
+
+
+#: option flags whose value may start with '-' (a negative number), e.g. ``--breaks -50,1e6``
+_VALUE_FLAGS = frozenset(f for f, *_ in SETTING_FLAGS)
+_NEGATIVE = re.compile(r"^-(\d|\.\d|inf)", re.IGNORECASE)
+
+
+def join_negative_values(argv: list[str]) -> list[str]:
+    """``--breaks -50,1e6`` → ``--breaks=-50,1e6`` so argparse does not read the value as a flag."""
+    out: list[str] = []
+    i = 0
+    while i < len(argv):
+        a = argv[i]
+        if a in _VALUE_FLAGS and i + 1 < len(argv) and _NEGATIVE.match(argv[i + 1]):
+            out.append(f"{a}={argv[i + 1]}")
+            i += 2
+            continue
+        out.append(a)
+        i += 1
+    return out
+
+
 def _parse_breaks(text: str) -> tuple[float, ...]:
     try:
         return tuple(float(b) for b in text.split(",") if b.strip())
     except ValueError:
-        raise CohortError(f"--breaks {text!r}: expected numbers separated by commas, e.g. 10,20,40") \
-            from None
+        raise SettingsError(f"--breaks {text!r}: expected numbers separated by commas, "
+                            "e.g. 10,20,40", field="breaks") from None
 
 
 def _parse_center(text: str):
@@ -212,7 +271,8 @@ def _parse_center(text: str):
     try:
         return float(text)
     except ValueError:
-        raise CohortError(f"--center {text!r}: expected none, mean, median or a number") from None
+        raise SettingsError(f"--center {text!r}: expected none, mean, median or a number",
+                            field="center") from None
 
 
 def _write_json(payload: dict, out: str) -> None:
@@ -220,7 +280,11 @@ def _write_json(payload: dict, out: str) -> None:
     if out == "-":
         sys.stdout.write(text + "\n")
     else:
-        Path(out).write_text(text + "\n", encoding="utf-8")
+        _check_output(out, "--json")
+        try:
+            Path(out).write_text(text + "\n", encoding="utf-8")
+        except OSError as exc:
+            raise CohortError(f"--json {out}: cannot write the file ({exc.strerror})") from None
         print(f"wrote {out}", file=sys.stderr)
 
 
@@ -233,6 +297,7 @@ def _load(data) -> "object":
 def cmd_summarize(args) -> int:
     from analysis.pipeline import explore
 
+    _check_output(args.json, "--json")
     data, roles, settings = resolve(args)
     result = explore(_load(data), roles, settings)
     _write_json(result.to_json(), args.json)
@@ -245,6 +310,10 @@ def cmd_fit(args) -> int:
     from analysis.jsonsafe import json_safe
     from analysis.prepare import prepare
 
+    from analysis.modelstage import ModelChoices
+
+    _check_output(args.json, "--json")
+    ModelChoices(time_spline_df=args.time_spline_df)     # checks its range before any work
     data, roles, settings = resolve(args)
     cohort = prepare(_load(data), roles, settings)
     structures = (tuple(s.strip() for s in args.models.split(",") if s.strip())
@@ -267,6 +336,7 @@ def cmd_report(args) -> int:
     from analysis.report import build_report
     from app.models_view import report_figures
 
+    _check_output(args.out, "--out")
     data, roles, settings = resolve(args)
     choices = None
     if not args.no_models:
@@ -301,9 +371,14 @@ def _split(text: str | None) -> tuple[str, ...]:
 def cmd_serve(args) -> int:
     from app.server import run_server
 
+    from app.datastore import DEFAULT_CACHE_MB
+
+    cache_mb = DEFAULT_CACHE_MB if args.cache_mb is None else args.cache_mb
+    if not 16 <= cache_mb <= 1_000_000:
+        raise CohortError(f"--cache-mb {cache_mb:g}: must be from 16 to 1000000 (MB)")
     data, roles, settings = resolve(args)
     run_server(data_path=data, roles=roles, settings=settings, host=args.host, port=args.port,
-               debug=args.debug)
+               debug=args.debug, cache_mb=cache_mb)
     return 0
 
 
@@ -312,13 +387,15 @@ def main(argv: list[str] | None = None) -> int:
     if not argv or (argv[0] not in COMMANDS and argv[0] not in ("-h", "--help")):
         argv.insert(0, "serve")
     parser = build_parser()
-    args = parser.parse_args(argv)
+    args = parser.parse_args(join_negative_values(argv))
     handler = {"serve": cmd_serve, "summarize": cmd_summarize, "fit": cmd_fit,
                "report": cmd_report}[args.command]
     try:
         return handler(args)
     except CohortError as exc:
-        print(f"cohortlens: {exc}", file=sys.stderr)
+        flag = _FLAG_OF.get(getattr(exc, "field", None))
+        hint = f" (flag {flag})" if flag and flag not in str(exc) else ""
+        print(f"cohortlens: {exc}{hint}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:
         return 130

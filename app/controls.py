@@ -12,6 +12,7 @@ from analysis.errors import CohortError
 from analysis.settings import Roles, Settings
 
 from . import ids
+from .text import short
 
 ON = "on"
 
@@ -84,7 +85,9 @@ def settings_from_controls(values: dict, *, fallback: Settings | None = None
     try:
         return Settings.from_dict(d), {}
     except CohortError as exc:
-        return None, {_field_named_in(str(exc)): _plain(str(exc))}
+        field = getattr(exc, "field", None)
+        return None, {field if field in ids.SETTING_FIELDS else ids.SETTING_FIELDS[0]:
+                      plain_message(str(exc))}
 
 
 def _field_value(f: str, v, values: dict, fallback: Settings):
@@ -133,18 +136,7 @@ def _field_value(f: str, v, values: dict, fallback: Settings):
     return v if v is not None else getattr(fallback, f)
 
 
-def _field_named_in(message: str) -> str:
-    """Which settings control a validation message is about (first field name it starts with)."""
-    head = message.split(" ", 1)[0]
-    if head in ids.SETTING_FIELDS:
-        return head
-    for f in ids.SETTING_FIELDS:
-        if f in message:
-            return f
-    return "origin"
-
-
-def _plain(message: str) -> str:
+def plain_message(message: str) -> str:
     """Settings messages name fields as in code; say them as the panel does."""
     for f in ids.SETTING_FIELDS:
         message = message.replace(f"{f} ==", f"{FIELD_LABELS[f].lower()} is")
@@ -236,7 +228,8 @@ def role_options(described: list[dict]) -> list[dict]:
     out = []
     for c in described:
         miss = f", {c['n_missing']} missing" if c["n_missing"] else ""
-        out.append({"label": f"{c['name']}  ({c['kind']}{miss})", "value": c["name"]})
+        out.append({"label": f"{short(c['name'])}  ({c['kind']}{miss})", "value": c["name"],
+                    "title": str(c["name"])})
     return out
 
 

@@ -13,6 +13,7 @@ import plotly.graph_objects as go
 
 from . import figures
 from . import palette
+from .text import short
 
 
 def stratum_colours(labels) -> dict:
@@ -63,17 +64,18 @@ def look(cohort) -> figures.CohortLook:
         count_map[palette.NO_VALUE_LABEL] = int((codes < 0).sum())
     cov_unit = getattr(roles, "covariate_unit", "") or ""
     stratifier = cohort.strata.name or "group"
+    # names from the user's file are cut to a display length (axis titles, legends)
     return figures.CohortLook(
         strata=tuple(labels),
         colours=stratum_colours(labels),
-        time_label=cohort.time_label,
+        time_label=short(cohort.time_label),
         time_unit=cohort.settings.unit,
-        response=roles.response,
-        response_unit=getattr(roles, "response_unit", "") or "",
-        stratifier=stratifier,
-        stratifier_unit=cov_unit if stratifier == cohort.covariate else "",
-        covariate=cohort.covariate,
-        covariate_unit=cov_unit,
+        response=short(roles.response),
+        response_unit=short(getattr(roles, "response_unit", "") or "", 30),
+        stratifier=short(stratifier),
+        stratifier_unit=short(cov_unit, 30) if stratifier == cohort.covariate else "",
+        covariate=None if cohort.covariate is None else short(cohort.covariate),
+        covariate_unit=short(cov_unit, 30),
         transform=cohort.settings.transform,
         counts=count_map,
     )

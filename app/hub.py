@@ -21,6 +21,7 @@ from analysis.loading import describe_columns, read_table
 from . import controls as ctl
 from . import ids, urlstate
 from .session import AppContext, attempt
+from .text import clip_message, echo, option, renamed_note, short, shorten_columns
 
 PREVIEW_ROWS = 6
 _SETTING_KEYS = (*ids.SETTING_FIELDS, "center_value")
@@ -87,7 +88,7 @@ def register(app, context: AppContext) -> None:
                 or (not data and trig not in (ids.DATA_UPLOAD, ids.DATA_USE_DEMO))):
             # also when a control fires before the first load's response arrived: Dash
             # drops that response as stale, so this call must load the page instead
-            _from_url(context, search, out)
+            _from_url(context, search, out, current=data)
             return out
         if trig == ids.DATA_UPLOAD:
             if not _from_upload(context, upload, filename, now, out):
@@ -127,7 +128,7 @@ def _unchanged(spec):
 
 
 # ------------------------------------------------------------------ dispatch targets
-def _from_url(context: AppContext, search: str | None, out: dict) -> None:
+def _from_url(context: AppContext, search: str | None, out: dict, current=None) -> None:
     state = urlstate.decode(search, base=context.default_settings,
                             base_roles=context.default_roles, base_data=context.default_key)
     problems = list(state.problems)
@@ -140,7 +141,9 @@ def _from_url(context: AppContext, search: str | None, out: dict) -> None:
         roles = context.default_roles
     else:
         roles = state.roles
-    _show_dataset(context, key, roles, out)
+    # this session's own name for the table when it already shows it (never another session's)
+    same = isinstance(current, dict) and current.get("key") == key
+    _show_dataset(context, key, roles, out, name=current.get("name") if same else None)
     values = ctl.control_values(state.settings)
     out["settings"] = {k: values[k] for k in _SETTING_KEYS}
     out["view"] = dict(state.view)
@@ -156,33 +159,39 @@ def _from_upload(context: AppContext, contents, filename, now: dict, out: dict) 
 
     def load():
         raw = decode_upload(contents, name)
-        return context.datasets.add(read_table(raw, name=name), name=name)
+        frame, renamed = shorten_columns(read_table(raw, name=name))
+        return context.datasets.add(frame, name=name), renamed
 
-    dataset, message, _ = attempt(load, what=f"reading {name}")
-    if dataset is None:
-        out["upload_msg"] = f"Could not use {name}: {message}"
+    loaded, message, _ = attempt(load, what=f"reading {name}")
+    if loaded is None:
+        out["upload_msg"] = clip_message(f"Could not use {echo(name)}: {message}")
         return False
+    dataset, renamed = loaded
     current = now["roles"]
     roles, _ = ctl.roles_from_controls(current, known=context.default_roles)
     keep = ctl.keep_roles_that_fit(roles, dataset.frame.columns)
-    _show_dataset(context, dataset.key, keep, out)
-    out["upload_msg"] = ""
+    _show_dataset(context, dataset.key, keep, out, name=name)
+    out["upload_msg"] = clip_message(renamed_note(renamed))
     out["subject"], out["stratum"] = None, None
     now.update(data=out["data"], roles=out["roles"], subject=None, stratum=None)
     return True
 
 
-def _show_dataset(context: AppContext, key: str, roles, out: dict) -> None:
+def _show_dataset(context: AppContext, key: str, roles, out: dict, name: str | None = None
+                  ) -> None:
+    """Offer a stored table's columns; ``name`` is this session's file name for it (kept in its
+    browser store, since the shared store deduplicates uploads by content)."""
     dataset = context.datasets.get(key)
+    name = name or dataset.name
     described = describe_columns(dataset.frame)
     options = ctl.role_options(described)
     roles = ctl.keep_roles_that_fit(roles, dataset.frame.columns)
-    out["data"] = {"key": dataset.key, "name": dataset.name}
-    out["title"] = dataset.name
+    out["data"] = {"key": dataset.key, "name": name}
+    out["title"] = short(name)
     subjects = ""
     if roles is not None:
         subjects = f", {dataset.frame[roles.subject].nunique():,} subjects"
-    out["data_name"] = (f"{dataset.name}: {len(dataset.frame):,} rows, "
+    out["data_name"] = (f"{short(name)}: {len(dataset.frame):,} rows, "
                         f"{dataset.frame.shape[1]} columns{subjects}")
     out["role_options"] = {r: options for r in ids.ROLE_FIELDS}
     out["roles"] = ctl.role_values(roles)
@@ -236,7 +245,7 @@ def _analysed_subject(context: AppContext, data, roles: dict, settings: dict, pi
 
 def _covariate_options(covariates) -> list[dict]:
     """Choices of the covariate and grouping dropdowns: the columns chosen as covariates."""
-    return [{"label": c, "value": c} for c in (covariates or [])]
+    return [option(c, c) for c in (covariates or [])]
 
 
 def _same_query(a, b) -> bool:
@@ -258,10 +267,11 @@ def decode_upload(contents: str, name: str) -> bytes:
 def preview(frame, described) -> tuple[list[dict], list[dict]]:
     """First rows as display strings, with column headers naming each column's kind."""
     head = frame.head(PREVIEW_ROWS)
-    columns = [{"name": [c["name"], c["kind"]], "id": str(i)} for i, c in enumerate(described)]
+    columns = [{"name": [short(c["name"]), c["kind"]], "id": str(i)}
+               for i, c in enumerate(described)]
     rows = []
     for _, row in head.iterrows():
-        rows.append({str(i): _cell(v) for i, v in enumerate(row.tolist())})
+        rows.append({str(i): short(_cell(v)) for i, v in enumerate(row.tolist())})
     return rows, columns
 
 

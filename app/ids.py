@@ -19,6 +19,7 @@ STORE_STRATUM = "store-stratum"      # selected stratum label (str) or None
 # -- data section ------------------------------------------------------------
 DATA_UPLOAD = "data-upload"
 DATA_UPLOAD_MSG = "data-upload-msg"
+DATA_UPLOAD_LIMIT = "data-upload-limit"
 DATA_NAME = "data-name"
 DATA_USE_DEMO = "data-use-demo"
 DATA_PREVIEW = "data-preview"

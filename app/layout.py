@@ -36,8 +36,9 @@ SECTIONS = (
 )
 
 
-def build_layout(settings: Settings) -> html.Div:
-    """The whole page, controls showing ``settings`` until the link or the user changes them."""
+def build_layout(settings: Settings, *, max_upload_bytes: int | None = None) -> html.Div:
+    """The whole page, controls showing ``settings`` until the link or the user changes them;
+    the upload refuses files over ``max_upload_bytes`` (default: what the server accepts)."""
     return html.Div(className="cl-page", children=[
         dcc.Location(id=ids.PAGE_URL, refresh=False),
         dcc.Store(id=ids.STORE_DATA),
@@ -50,7 +51,7 @@ def build_layout(settings: Settings) -> html.Div:
             html.Aside(settings_panel(settings), className="cl-side"),
             html.Main(className="cl-main", children=[
                 html.Div(id=ids.PAGE_ALERT, className="cl-alert", role="status"),
-                data_section(settings),
+                data_section(settings, max_upload_bytes),
                 kept_section(),
                 selection_bar(),
                 course_section(),
@@ -129,7 +130,31 @@ def number(id_: str, value, *, step="any", min_=None, placeholder=None) -> dcc.I
 
 
 # ------------------------------------------------------------------ data section
-def data_section(settings: Settings | None = None) -> html.Section:
+def upload_box(max_bytes: int | None = None) -> html.Div:
+    """The upload area with its size limit said beside it. Files over the limit are refused in
+    the browser before sending (``max_size``); assets/upload_limit.js reads the limit and the
+    message from the data attributes here and shows it under the control."""
+    from .datastore import size_text, upload_limit
+
+    max_bytes = upload_limit() if max_bytes is None else int(max_bytes)
+    limit = size_text(max_bytes)
+    too_large = (f"{{name}} is {{size}}; the page accepts files up to {limit}. Start the app "
+                 "with the file instead (it is then read from disk, with no size limit): "
+                 "cohortlens serve FILE")
+    return html.Div(className="cl-upload-box", **{
+        "data-max-bytes": str(max_bytes), "data-msg-id": ids.DATA_UPLOAD_MSG,
+        "data-too-large": too_large}, children=[
+        dcc.Upload(id=ids.DATA_UPLOAD, className="cl-upload", multiple=False, max_size=max_bytes,
+                   accept=".csv,.tsv,.txt,.parquet,.pq",
+                   children=html.Div(["Drop a file here or ",
+                                      html.Span("choose one", className="cl-link")])),
+        html.Div(id=ids.DATA_UPLOAD_LIMIT, className="cl-hint",
+                 children=f"Files up to {limit}. Larger files: cohortlens serve FILE"),
+    ])
+
+
+def data_section(settings: Settings | None = None,
+                 max_upload_bytes: int | None = None) -> html.Section:
     role_rows = [
         ("subject", "Subject identifier", False, None),
         ("time", "Time or visit date", False,
@@ -147,11 +172,7 @@ def data_section(settings: Settings | None = None) -> html.Section:
                    "Upload a CSV or Parquet table with one row per visit. It is read in memory "
                    "on this computer and never saved to disk.",
                    html.Div(className="cl-data-row", children=[
-                       dcc.Upload(id=ids.DATA_UPLOAD, className="cl-upload", multiple=False,
-                                  accept=".csv,.tsv,.txt,.parquet,.pq",
-                                  children=html.Div(["Drop a file here or ",
-                                                     html.Span("choose one",
-                                                               className="cl-link")])),
+                       upload_box(max_upload_bytes),
                        html.Div(className="cl-data-meta", children=[
                            html.Div(id=ids.DATA_NAME, className="cl-data-name"),
                            html.Button("Use the demo registry", id=ids.DATA_USE_DEMO,

@@ -29,6 +29,7 @@ from analysis.report import (ASSOCIATION_NOTE, CAUTIONS, MIXTURE_NOTE, PREFERRED
 from . import ids
 from .layout import GRAPH_CONFIG, message, section
 from .session import AppContext, NeedsInput, attempt
+from .text import option
 
 #: (structure, label) in the order offered; every structure includes measurement error
 STRUCTURE_CHOICES: tuple[tuple[str, str], ...] = (
@@ -145,7 +146,7 @@ def confounder_options(roles: dict | None, settings: dict | None) -> list[dict]:
     """Baseline covariates under the roles other than the primary one."""
     covs = list(((roles or {}).get("roles") or {}).get("covariates") or [])
     primary = (settings or {}).get("covariate") or (covs[0] if covs else None)
-    return [{"label": c, "value": c} for c in covs if c != primary]
+    return [option(c, c) for c in covs if c != primary]
 
 
 def snapshot_key(context: AppContext, data, roles, settings, choices: ModelChoices) -> str:
@@ -348,10 +349,12 @@ def report_text(context: AppContext, data, roles, settings, snapshot: dict | Non
             choices = None
     figures = report_figures(exploration, models, unit=s.unit, response=r.response,
                              response_unit=cohort.response_unit)
-    text = build_report(cohort, exploration, models, data_name=dataset.name,
+    # the file name this session gave its table (the shared store keeps none for uploads)
+    name = (data or {}).get("name") or dataset.name
+    text = build_report(cohort, exploration, models, data_name=name,
                         data_key=fingerprint(dataset.frame), choices=choices, figures=figures,
                         chosen=chosen)
-    stem = re.sub(r"[^A-Za-z0-9_-]+", "-", dataset.name.rsplit(".", 1)[0]).strip("-") or "data"
+    stem = re.sub(r"[^A-Za-z0-9_-]+", "-", name.rsplit(".", 1)[0]).strip("-") or "data"
     return f"cohortlens-report-{stem}.html", text
 
 

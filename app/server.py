@@ -15,6 +15,7 @@ import numpy as np
 from dash import MATCH, Input, Output, State, dash_table, html, no_update
 from dash.dash_table.Format import Format
 
+from analysis.errors import SettingsError
 from analysis.loading import Dataset, read_table
 from analysis.pipeline import Workbench
 from analysis.settings import Roles, Settings
@@ -22,9 +23,11 @@ from analysis.strata import SMALL_GROUP_SHARE, SMALL_GROUP_SUBJECTS, small_group
 
 from . import controls as ctl
 from . import hub, ids, models_view, palette, views
-from .datastore import DEMO_KEY, DataStore, demo_dataset
+from .datastore import (DEFAULT_CACHE_MB, DEMO_KEY, MAX_REQUEST_BYTES, DataStore, demo_dataset,
+                        upload_limit)
 from .layout import build_layout
 from .session import AppContext, attempt, role_of_column
+from .text import renamed_note, short, shorten_columns
 
 ASSETS = Path(__file__).resolve().parents[1] / "assets"
 log = logging.getLogger("cohortlens.app")
@@ -32,14 +35,20 @@ log = logging.getLogger("cohortlens.app")
 
 def create_app(*, dataset: Dataset | None = None, roles: Roles | None = None,
                settings: Settings | None = None, workbench: Workbench | None = None,
-               datastore: DataStore | None = None) -> dash.Dash:
+               datastore: DataStore | None = None,
+               max_request_bytes: int = MAX_REQUEST_BYTES,
+               cache_mb: float = DEFAULT_CACHE_MB) -> dash.Dash:
     """A Dash app showing ``dataset`` (default: the invented demo registry) with these roles/settings.
 
     With no dataset the demo registry is used with its own roles and settings
     (loaded lazily on the first request). ``roles=None`` with a dataset makes the
-    page ask for the column roles.
+    page ask for the column roles. ``max_request_bytes`` bounds one HTTP request; the page
+    refuses files that would not fit (before sending them) and says so beside the upload.
+    ``cache_mb`` is the memory budget of uploads and cached results together: half for the
+    uploaded tables, half for the results (least recently used dropped first).
     """
-    datastore = datastore or DataStore()
+    budget = int(cache_mb * 2**20)
+    datastore = datastore or DataStore(max_bytes=max(1, budget // 2))
     if dataset is None:
         from analysis.demo import demo_roles, demo_settings
 
@@ -48,13 +57,15 @@ def create_app(*, dataset: Dataset | None = None, roles: Roles | None = None,
         settings = settings or demo_settings()
     else:
         key = datastore.pin(dataset.key, dataset)
-    context = AppContext(datasets=datastore, workbench=workbench or Workbench(max_entries=128),
+    context = AppContext(datasets=datastore, workbench=workbench or Workbench(
+                             max_entries=128, max_bytes=max(1, budget - budget // 2)),
                          default_key=key, default_roles=roles,
                          default_settings=settings or Settings())
     app = dash.Dash(__name__, title="cohortlens", assets_folder=str(ASSETS),
                     suppress_callback_exceptions=False, update_title=None)
-    app.layout = lambda: build_layout(context.default_settings)
-    app.server.config["MAX_CONTENT_LENGTH"] = 200 * 1024 * 1024
+    max_upload = upload_limit(max_request_bytes)
+    app.layout = lambda: build_layout(context.default_settings, max_upload_bytes=max_upload)
+    app.server.config["MAX_CONTENT_LENGTH"] = max_request_bytes
     hub.register(app, context)
     _register_panels(app, context)
     views.register(app, context)
@@ -114,8 +125,10 @@ def _register_panels(app, context: AppContext) -> None:
             role = role_of_column(r, err)
             if role:
                 out["role_msgs"][role] = message
-            elif err is not None and type(err).__name__ == "SettingsError":
-                out["settings_msg"] = message
+            elif isinstance(err, SettingsError):
+                field = err.field
+                out["settings_msg"] = (f"{ctl.FIELD_LABELS[field]}: {ctl.plain_message(message)}"
+                                       if field in ctl.FIELD_LABELS else message)
             else:
                 out["status"] = message
             return out
@@ -214,17 +227,17 @@ def _card(context, data, roles, settings, subject):
     se = f" (SE {fmt(r['slope_se'])})" if "slope_se" in row.columns else ""
     cov = cohort.covariate
     head = html.Div(className="cl-card-head", children=[
-        html.Strong(f"Subject {subject}"),
-        html.Span(f"group {r['stratum_label']}"),
-        *([html.Span(f"{cov} = {r['covariate']}")] if cov else []),
+        html.Strong(f"Subject {short(subject)}"),
+        html.Span(f"group {short(r['stratum_label'])}"),
+        *([html.Span(f"{short(cov)} = {short(r['covariate'])}")] if cov else []),
         html.Span(f"{len(mine)} visits"),
         html.Span(f"fitted line: {fmt(r['intercept'])} + {fmt(r['slope'])}{se} × time"),
     ])
     visits = dash_table.DataTable(
         data=[{"time": round(float(t), 2), "response": round(float(y), 2)}
               for t, y in zip(mine["time"], mine["response"])],
-        columns=[{"name": cohort.time_label, "id": "time"},
-                 {"name": cohort.roles.response, "id": "response"}],
+        columns=[{"name": short(cohort.time_label), "id": "time"},
+                 {"name": short(cohort.roles.response), "id": "response"}],
         fill_width=False,
         style_table={"maxHeight": "8rem", "overflowY": "auto"},
         style_cell={"fontFamily": "inherit", "fontSize": "14px", "padding": "2px 8px"})
@@ -233,17 +246,20 @@ def _card(context, data, roles, settings, subject):
 
 # ------------------------------------------------------------------ running
 def run_server(*, data_path=None, roles: Roles | None = None, settings: Settings | None = None,
-               host: str = "127.0.0.1", port: int = 8050, debug: bool = False) -> None:
+               host: str = "127.0.0.1", port: int = 8050, debug: bool = False,
+               cache_mb: float = DEFAULT_CACHE_MB) -> None:
     """Serve the dashboard until interrupted (loopback only unless ``host`` says otherwise)."""
     from analysis.demo import DEMO_CSV
 
     logging.basicConfig(level=logging.INFO, format="%(levelname)s %(name)s: %(message)s")
     if data_path is None or Path(data_path) == DEMO_CSV:
-        app = create_app(roles=roles, settings=settings)
+        app = create_app(roles=roles, settings=settings, cache_mb=cache_mb)
     else:
-        frame = read_table(data_path)
+        frame, renamed = shorten_columns(read_table(data_path))
+        if renamed:
+            print(f"cohortlens: {renamed_note(renamed)}")
         app = create_app(dataset=Dataset.from_frame(frame, name=Path(data_path).name),
-                         roles=roles, settings=settings)
+                         roles=roles, settings=settings, cache_mb=cache_mb)
     if host not in ("127.0.0.1", "localhost", "::1"):
         print(f"cohortlens: WARNING binding {host}: other computers on the network can reach "
               "this dashboard and its data.")

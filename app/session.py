@@ -13,6 +13,7 @@ from analysis.pipeline import Workbench
 from analysis.settings import Roles, Settings
 
 from .datastore import DataStore
+from .text import clip_message
 
 log = logging.getLogger("cohortlens.app")
 
@@ -56,7 +57,7 @@ def attempt(fn: Callable[[], Any], *, what: str) -> tuple[Any, str | None, Cohor
     try:
         return fn(), None, None
     except CohortError as exc:
-        return None, str(exc), exc
+        return None, clip_message(str(exc)), exc
     except Exception as exc:  # noqa: BLE001 - the page must never show a traceback
         log.exception("unexpected error while %s", what)
         return None, (f"Unexpected problem while {what} ({type(exc).__name__}); the details are "

@@ -18,6 +18,7 @@ from analysis.pipeline import Workbench
 
 from . import draw, ids
 from .session import AppContext, NeedsInput, attempt
+from .text import short
 
 STORES = (Input(ids.STORE_DATA, "data"), Input(ids.STORE_ROLES, "data"),
           Input(ids.STORE_SETTINGS, "data"))
@@ -175,7 +176,7 @@ def dropout_note(dropout, *, time_unit: str = "") -> list:
 
 def rate_table_columns(present, cohort) -> list[dict]:
     """Two-row headers for the group summary table (the internal group code is left out)."""
-    cov = cohort.covariate or "covariate"
+    cov = short(cohort.covariate or "covariate")
     unit = cohort.settings.unit
     per = f"slope per {unit[:-1] if unit.endswith('s') else unit}"
     spec = [

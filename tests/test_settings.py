@@ -16,7 +16,7 @@ def test_json_round_trip_and_hash():
 
 @pytest.mark.parametrize("kwargs, pattern", [
     ({"origin": "start"}, r"origin == 'start', must be one of"),
-    ({"min_visits": 0}, r"min_visits == 0, must be >= 1"),
+    ({"min_visits": 0}, r"min_visits == 0, must be from 1 to 1000"),
     ({"min_visits": 2.5}, r"min_visits == 2.5, must be a whole number"),
     ({"transform": "sqrt"}, r"transform == 'sqrt'"),
     ({"center": "mode"}, r"center == 'mode'"),

@@ -7,6 +7,7 @@ from __future__ import annotations
 
 import os
 import threading
+from contextlib import contextmanager
 from pathlib import Path
 
 import pytest
@@ -29,22 +30,29 @@ def artifacts() -> Path:
     return ARTIFACTS
 
 
-@pytest.fixture(scope="session")
-def server_url():
-    """The demo dashboard on an ephemeral loopback port for the whole session."""
+@contextmanager
+def serving(dash_app):
+    """``dash_app`` served on an ephemeral loopback port; yields its URL."""
     from werkzeug.serving import make_server
 
-    from app.server import create_app
-
-    dash_app = create_app()
     server = make_server("127.0.0.1", 0, dash_app.server, threaded=True)
     thread = threading.Thread(target=server.serve_forever, daemon=True)
     thread.start()
     try:
-        yield f"http://127.0.0.1:{server.server_port}/", dash_app
+        yield f"http://127.0.0.1:{server.server_port}/"
     finally:
         server.shutdown()
         thread.join(timeout=5)
+
+
+@pytest.fixture(scope="session")
+def server_url():
+    """The demo dashboard on an ephemeral loopback port for the whole session."""
+    from app.server import create_app
+
+    dash_app = create_app()
+    with serving(dash_app) as url:
+        yield url, dash_app
 
 
 @pytest.fixture(scope="session")
