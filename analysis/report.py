@@ -323,7 +323,8 @@ def x_description(cohort) -> str:
 
 def build_report(cohort, exploration=None, models=None, *, data_name: str = "data",
                  data_key: str = "", choices=None, figures=(), chosen: str | None = None,
-                 created: datetime | None = None, settings=None) -> str:
+                 created: datetime | None = None, settings=None, plan=None,
+                 plan_figure: str | None = None) -> str:
     """The whole analysis as one self-contained HTML document.
 
     Parameters
@@ -348,6 +349,11 @@ def build_report(cohort, exploration=None, models=None, *, data_name: str = "dat
     settings : Settings, optional
         The request's settings for the settings table (default: the exploration's, else the
         cohort's, which hold only the fields its stage reads).
+    plan : CohortPlan, optional
+        A plan of the next study (:func:`analysis.plan_defaults.plan_from_cohort`), shown after
+        the models when given.
+    plan_figure : str, optional
+        Self-contained HTML of its power curve.
 
     Returns
     -------
@@ -392,6 +398,8 @@ def build_report(cohort, exploration=None, models=None, *, data_name: str = "dat
                      "</figure>")
 
     parts.append(_models_html(models, chosen=chosen, unit=unit, x_note=x_description(cohort)))
+    if plan is not None:
+        parts.append(plan_html(plan, unit=unit, figure=plan_figure))
     parts.append('<div class="caution">' + "".join(_p(c) for c in CAUTIONS) + "</div>")
     body = "\n".join(parts)
     return ("<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
@@ -499,4 +507,45 @@ def _models_html(models, *, chosen, unit, x_note="") -> str:
         out.append(_p("GEE with robust (sandwich) SEs, Mancl–DeRouen bias-reduced, t with "
                       "subjects − p df: the mean-model coefficients without trusting the "
                       "working covariance.", "note"))
+    return "\n".join(out)
+
+
+def plan_sentences(made, unit: str = "time unit") -> list[str]:
+    """The plan's answer and its assumptions in words (the page and the report say the same)."""
+    p, i = made.plan, made.inputs
+    groups = (f" ({p.per_group:,} per group)" if p.per_group else "")
+    what = ("a difference in slopes between two equal groups of "
+            f"{fmt(i.effect)} per {unit}" if i.design == "two-groups" else
+            f"a time × x coefficient of {fmt(i.effect)} (change in slope per {unit} per unit "
+            "of x on its analysis scale)")
+    sched = ", ".join(fmt(t, 4) for t in i.schedule)
+    return [
+        f"{p.subjects_needed:,} subjects{groups} give {100 * p.achieved_power:.1f}% power to "
+        f"detect {what} with a two-sided test at level {fmt(i.alpha)}.",
+        f"Covariance: {made.model}. Visits at {sched} {unit}; dropout rate {fmt(i.dropout_rate)} "
+        f"per {unit} (constant hazard), so on average {fmt(p.expected_visits, 3)} of "
+        f"{len(i.schedule)} visits are completed.",
+        f"Standard error of the estimate at that size: {fmt(p.standard_error)}. "
+        + str(p.assumptions["approximation"]).capitalize() + ".",
+    ]
+
+
+def plan_html(made, *, unit: str = "time unit", figure: str | None = None) -> str:
+    """The plan of the next study: answer, per-model table, sources of the inputs, cautions."""
+    out = ["<h2>Plan of the next study</h2>"]
+    out += [_p(t) for t in plan_sentences(made, unit)]
+    if figure:
+        out.append(f"<figure>{figure}<figcaption class=\"note\">Power against the number of "
+                   "subjects; the dashed line marks the target.</figcaption></figure>")
+    out.append("<h3>Subjects needed under each fitted covariance</h3>")
+    per = made.comparison.to_frame()[["name", "subjects_needed", "per_group", "standard_error",
+                                      "error"]].rename(columns={
+        "name": "model", "subjects_needed": "subjects needed", "per_group": "per group",
+        "standard_error": "standard error", "error": "problem"})
+    out.append(table_html(per, numeric=("subjects needed", "per group", "standard error")))
+    out.append("<h3>Where the inputs come from</h3>" + _dict_table(made.sources, "input", "source"))
+    out.append("<h3>Variance parameters assumed</h3>"
+               + _dict_table(made.inputs.covariance.variance, "parameter"))
+    out += [_p(n, "note") for n in made.notes]
+    out.append('<div class="caution">' + "".join(_p(c) for c in made.plan.cautions) + "</div>")
     return "\n".join(out)

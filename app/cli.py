@@ -17,7 +17,7 @@ from analysis import options as opt
 from analysis.errors import CohortError, SettingsError
 from analysis.settings import Roles, Settings
 
-COMMANDS = ("serve", "summarize", "fit", "report")
+COMMANDS = ("serve", "summarize", "fit", "report", "plan")
 
 # (flag, Settings field, type, choices, help)
 SETTING_FLAGS: tuple[tuple[str, str, object, tuple | None, str], ...] = (
@@ -84,7 +84,35 @@ def build_parser() -> argparse.ArgumentParser:
                         models=True)
     rep.add_argument("--no-models", action="store_true", help="exploration only, fit no models")
     rep.add_argument("--out", required=True, metavar="FILE.html", help="report file to write")
+    rep.add_argument("--plan", action="store_true",
+                     help="add a plan of the next study (cohort defaults, or the plan flags)")
+    _add_plan_options(rep)
+
+    plan = _data_command(sub, "plan", "plan the size of the next study from this cohort's "
+                         "fitted covariance, write JSON", models=True)
+    _add_plan_options(plan)
+    plan.add_argument("--simulate", type=int, default=None, metavar="REPS",
+                      help="check the power by simulating and refitting REPS cohorts")
+    plan.add_argument("--json", required=True, metavar="OUT", help="output file ('-' = stdout)")
     return parser
+
+
+def _add_plan_options(p: argparse.ArgumentParser) -> None:
+    """Flags of the next-study plan (each defaults to what this cohort shows)."""
+    g = p.add_argument_group("plan of the next study")
+    g.add_argument("--model", default=None, metavar="NAME",
+                   help="fitted model whose covariance the plan assumes [preferred]")
+    g.add_argument("--effect", type=float, default=None,
+                   help="effect to detect: time × x coefficient, or slope difference for two "
+                        "groups [the model's estimate]")
+    g.add_argument("--design", default="continuous", choices=("continuous", "two-groups"),
+                   help="covariate like this cohort's, or two equal groups [continuous]")
+    g.add_argument("--power", type=float, default=0.8, help="target power [0.8]")
+    g.add_argument("--alpha", type=float, default=0.05, help="two-sided level [0.05]")
+    g.add_argument("--schedule", default=None, metavar="T1,T2,...",
+                   help="planned visit times since the origin [this cohort's typical schedule]")
+    g.add_argument("--dropout-rate", type=float, default=None, metavar="R",
+                   help="dropouts per subject per time unit [this cohort's rate]")
 
 
 def _add_model_options(p: argparse.ArgumentParser) -> None:
@@ -335,6 +363,7 @@ def cmd_report(args) -> int:
     from analysis.pipeline import Workbench
     from analysis.report import build_report
     from app.models_view import report_figures
+    from app.plan_view import report_plan_figure
 
     _check_output(args.out, "--out")
     data, roles, settings = resolve(args)
@@ -351,16 +380,61 @@ def cmd_report(args) -> int:
     wb = Workbench(max_entries=32, max_model_sets=1)
     exploration = wb.explore(dataset, roles, settings)
     models = wb.models(dataset, roles, settings, choices) if choices else None
+    made = None
+    if models is not None and (args.plan or any(getattr(args, k) is not None for k in (
+            "model", "effect", "schedule", "dropout_rate"))):
+        made = _plan_for(args, wb, dataset, roles, settings, models)
     text = build_report(exploration.cohort, exploration, models, data_name=dataset.name,
                         data_key=dataset.key, choices=choices,
                         figures=report_figures(exploration, models, unit=settings.unit,
                                                response=roles.response,
-                                               response_unit=exploration.cohort.response_unit))
+                                               response_unit=exploration.cohort.response_unit),
+                        plan=made, plan_figure=report_plan_figure(made) if made else None)
     try:
         Path(args.out).write_text(text, encoding="utf-8")
     except OSError as exc:
         raise CohortError(f"--out {args.out}: cannot write the report ({exc.strerror})") from None
     print(f"wrote {args.out}", file=sys.stderr)
+    return 0
+
+
+#: most simulation replications the CLI runs (each refits one cohort)
+MAX_SIMULATE = 5000
+
+
+def _plan_for(args, wb, dataset, roles, settings, models):
+    """The next-study plan from the plan flags, cohort defaults for the rest."""
+    from analysis.plan_defaults import parse_schedule, plan_from_cohort
+
+    return plan_from_cohort(
+        wb.cohort(dataset, roles, settings), models,
+        wb.summaries(dataset, roles, settings).dropout, model=args.model, effect=args.effect,
+        schedule=parse_schedule(args.schedule), design=args.design, alpha=args.alpha,
+        power=args.power, dropout_rate=args.dropout_rate)
+
+
+def cmd_plan(args) -> int:
+    from analysis.loading import Dataset
+    from analysis.modelstage import ModelChoices
+    from analysis.pipeline import Workbench
+    from analysis.planning import simulate_power
+
+    _check_output(args.json, "--json")
+    if args.simulate is not None and not 1 <= args.simulate <= MAX_SIMULATE:
+        raise SettingsError(f"--simulate {args.simulate}: must be from 1 to {MAX_SIMULATE} "
+                            "replications")
+    data, roles, settings = resolve(args)
+    kw = {"structures": _split(args.models)} if args.models else {}
+    choices = ModelChoices(**kw, correlation=args.correlation, method="ml" if args.ml else "reml",
+                           confounders=_split(args.confounders),
+                           time_spline_df=args.time_spline_df, gee=())
+    dataset = Dataset.from_frame(_load(data), name=str(data))
+    wb = Workbench(max_entries=32, max_model_sets=1)
+    models = wb.models(dataset, roles, settings, choices)
+    made = _plan_for(args, wb, dataset, roles, settings, models)
+    check = (simulate_power(made.inputs, reps=args.simulate, seed=0)
+             if args.simulate is not None else None)
+    _write_json(made.to_json(check), args.json)
     return 0
 
 
@@ -389,7 +463,7 @@ def main(argv: list[str] | None = None) -> int:
     parser = build_parser()
     args = parser.parse_args(join_negative_values(argv))
     handler = {"serve": cmd_serve, "summarize": cmd_summarize, "fit": cmd_fit,
-               "report": cmd_report}[args.command]
+               "report": cmd_report, "plan": cmd_plan}[args.command]
     try:
         return handler(args)
     except CohortError as exc:

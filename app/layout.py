@@ -33,6 +33,7 @@ SECTIONS = (
     ("section-rate", "Rate of change vs covariate"),
     ("section-follow", "Follow-up & loss"),
     ("section-models", "Models"),
+    ("section-plan", "Plan"),
 )
 
 
@@ -61,6 +62,7 @@ def build_layout(settings: Settings, *, max_upload_bytes: int | None = None) -> 
                 rate_section(),
                 follow_section(),
                 models_section(),
+                plan_section(),
                 html.Footer(CAUTION, className="cl-foot"),
             ]),
         ]),
@@ -409,6 +411,12 @@ def follow_section():
 
 def models_section():
     from .models_view import models_section as build  # the view module imports this one
+
+    return build()
+
+
+def plan_section():
+    from .plan_view import plan_section as build  # the view module imports this one
 
     return build()
 

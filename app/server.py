@@ -22,7 +22,7 @@ from analysis.settings import Roles, Settings
 from analysis.strata import SMALL_GROUP_SHARE, SMALL_GROUP_SUBJECTS, small_groups
 
 from . import controls as ctl
-from . import hub, ids, models_view, palette, views
+from . import hub, ids, models_view, palette, plan_view, views
 from .datastore import (DEFAULT_CACHE_MB, DEMO_KEY, MAX_REQUEST_BYTES, DataStore, demo_dataset,
                         upload_limit)
 from .layout import build_layout
@@ -70,6 +70,7 @@ def create_app(*, dataset: Dataset | None = None, roles: Roles | None = None,
     _register_panels(app, context)
     views.register(app, context)
     models_view.register(app, context)
+    plan_view.register(app, context)
     app._cohortlens = context  # for tests: the app's caches
     return app
 
