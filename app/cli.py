@@ -419,7 +419,10 @@ def cmd_plan(args) -> int:
     from analysis.pipeline import Workbench
     from analysis.planning import simulate_power
 
+    from analysis.plan_defaults import parse_schedule
+
     _check_output(args.json, "--json")
+    parse_schedule(args.schedule)                       # a typo fails before any fitting
     if args.simulate is not None and not 1 <= args.simulate <= MAX_SIMULATE:
         raise SettingsError(f"--simulate {args.simulate}: must be from 1 to {MAX_SIMULATE} "
                             "replications")
