@@ -264,7 +264,9 @@ def plan_from_cohort(cohort, models, dropout=None, *, model: str | None = None,
         raise ModelError(f"model {model!r} is not one of the fitted models; choose one of "
                          f"{list(covs)}")
     else:
-        name, sources["model"] = model, "given"
+        name = model
+        sources["model"] = ("given: the preferred model (lowest AIC among converged fits)"
+                            if model == models.preferred else "given")
     x = cohort_covariate(cohort) if design == "continuous" else np.empty(0)
     if design == "continuous" and x.size < 2:
         raise SettingsError("the continuous design needs this cohort's numeric primary "

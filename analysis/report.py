@@ -510,23 +510,30 @@ def _models_html(models, *, chosen, unit, x_note="") -> str:
     return "\n".join(out)
 
 
+def per_unit(unit: str) -> str:
+    """'months' → 'month' for "per month" (the time units are plural words)."""
+    return unit[:-1] if unit.endswith("s") and len(unit) > 2 else unit
+
+
 def plan_sentences(made, unit: str = "time unit") -> list[str]:
     """The plan's answer and its assumptions in words (the page and the report say the same)."""
     p, i = made.plan, made.inputs
+    approx = str(p.assumptions["approximation"])
+    per = per_unit(unit)
     groups = (f" ({p.per_group:,} per group)" if p.per_group else "")
     what = ("a difference in slopes between two equal groups of "
-            f"{fmt(i.effect)} per {unit}" if i.design == "two-groups" else
-            f"a time × x coefficient of {fmt(i.effect)} (change in slope per {unit} per unit "
+            f"{fmt(i.effect)} per {per}" if i.design == "two-groups" else
+            f"a time × x coefficient of {fmt(i.effect)} (change in slope per {per} per unit "
             "of x on its analysis scale)")
     sched = ", ".join(fmt(t, 4) for t in i.schedule)
     return [
         f"{p.subjects_needed:,} subjects{groups} give {100 * p.achieved_power:.1f}% power to "
         f"detect {what} with a two-sided test at level {fmt(i.alpha)}.",
         f"Covariance: {made.model}. Visits at {sched} {unit}; dropout rate {fmt(i.dropout_rate)} "
-        f"per {unit} (constant hazard), so on average {fmt(p.expected_visits, 3)} of "
+        f"per {per} (constant hazard), so on average {fmt(p.expected_visits, 3)} of "
         f"{len(i.schedule)} visits are completed.",
         f"Standard error of the estimate at that size: {fmt(p.standard_error)}. "
-        + str(p.assumptions["approximation"]).capitalize() + ".",
+        + approx[:1].upper() + approx[1:] + ".",
     ]
 
 

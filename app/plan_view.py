@@ -8,6 +8,7 @@ shows (:mod:`analysis.plan_defaults`) and editable.
 from __future__ import annotations
 
 import math
+from dataclasses import replace
 
 import numpy as np
 import pandas as pd
@@ -242,11 +243,34 @@ def make_plan(context: AppContext, request: dict):
     kw = {k: request.get(k) for k in ("effect", "schedule", "dropout_rate")}
     if kw["schedule"] is not None:
         kw["schedule"] = tuple(kw["schedule"])
-    made = plan_from_cohort(cohort, models, dropout, model=request.get("model"),
-                            design=request.get("design") or "continuous",
-                            alpha=0.05 if request.get("alpha") is None else request["alpha"],
-                            power=0.8 if request.get("power") is None else request["power"], **kw)
+    common = dict(model=request.get("model"), design=request.get("design") or "continuous",
+                  alpha=0.05 if request.get("alpha") is None else request["alpha"],
+                  power=0.8 if request.get("power") is None else request["power"])
+    made = plan_from_cohort(cohort, models, dropout, **common, **kw)
+    if any(v is not None for v in kw.values()):
+        # a control still showing its default says where the default came from
+        base = plan_from_cohort(cohort, models, dropout, **common)
+        shown = default_values(base)
+        sources = dict(made.sources)
+        for key, value in (("effect", request.get("effect")),
+                           ("schedule", request.get("schedule")),
+                           ("dropout_rate", request.get("dropout_rate"))):
+            if value is not None and _same(value, shown[key]):
+                sources[key] = base.sources[key] + " (as shown in the control)"
+        made = replace(made, sources=sources)
     return made, s.unit
+
+
+def default_values(made) -> dict:
+    """The defaults as the controls show them (4 significant figures)."""
+    i = made.inputs
+    return {"effect": float(f"{i.effect:.4g}"), "schedule": [float(f"{t:g}") for t in i.schedule],
+            "dropout_rate": float(f"{i.dropout_rate:.4g}")}
+
+
+def _same(a, b) -> bool:
+    return bool(np.allclose(np.asarray(a, dtype=float), np.asarray(b, dtype=float),
+                            rtol=1e-12, atol=0)) if np.shape(a) == np.shape(b) else False
 
 
 #: which control a message belongs beside, by the start of the message
@@ -307,9 +331,8 @@ def register(app, context: AppContext) -> None:
                              what="reading the plan defaults")
         if made is None:
             return None, no_update, no_update
-        i = made.inputs
-        return (float(f"{i.effect:.4g}"), ", ".join(f"{t:g}" for t in i.schedule),
-                float(f"{i.dropout_rate:.4g}"))
+        d = default_values(made)
+        return d["effect"], ", ".join(f"{t:g}" for t in d["schedule"]), d["dropout_rate"]
 
     outs = dict(answer=Output(ANSWER, "children"), fig=Output(GRAPH, "figure"),
                 table=Output(TABLE, "children"), assumptions=Output(ASSUMPTIONS, "children"),

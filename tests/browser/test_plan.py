@@ -61,6 +61,9 @@ def test_plan_after_fitting_equals_plan_study(server_url, page, artifacts):
     # the per-structure table lists every fitted candidate
     table = page.inner_text("#plan-table")
     assert all(name in table for name in ref.fits)
+    # inputs still at their defaults say where they came from
+    assumptions = page.inner_text("#plan-assumptions")
+    assert "lowest AIC" in assumptions and "as shown in the control" in assumptions
     fig = page.evaluate("document.querySelector('#plan-graph .js-plotly-plot').layout")
     assert "Power" in fig["title"]["text"] and "subjects" in fig["xaxis"]["title"]["text"]
 
@@ -72,6 +75,8 @@ def test_plan_after_fitting_equals_plan_study(server_url, page, artifacts):
     page.press("#plan-schedule", "Enter")
     page.locator("#plan-needed").wait_for(timeout=TIMEOUT)
 
+    # the sticky header would cover part of a full-page cut; let it scroll away for the picture
+    page.add_style_tag(content=".cl-head, .cl-selection { position: static !important; }")
     box = page.evaluate("""() => { window.scrollTo(0, 0);
         const r = document.getElementById('section-plan').getBoundingClientRect();
         return {x: r.left + window.scrollX, y: r.top + window.scrollY,
