@@ -330,11 +330,12 @@ def report_figures(exploration, models, *, unit: str, response: str,
 
 
 def report_text(context: AppContext, data, roles, settings, snapshot: dict | None,
-                chosen: str | None = None) -> tuple[str, str]:
+                chosen: str | None = None, plan_request: dict | None = None) -> tuple[str, str]:
     """(file name, HTML) of the report for the current choices.
 
     Models are included when the last fit (``snapshot``) was made for these
-    same data, roles and cohort settings; they come from the cache.
+    same data, roles and cohort settings; they come from the cache. The plan of the next
+    study is included when one was made from those models (``plan_request``).
     """
     dataset, r, s = context.inputs(data, roles, settings)
     wb = context.workbench
@@ -351,9 +352,16 @@ def report_text(context: AppContext, data, roles, settings, snapshot: dict | Non
                              response_unit=cohort.response_unit)
     # the file name this session gave its table (the shared store keeps none for uploads)
     name = (data or {}).get("name") or dataset.name
+    made = plan_figure = None
+    if models is not None and plan_request and \
+            (plan_request.get("snapshot") or {}).get("key") == snapshot.get("key"):
+        from .plan_view import make_plan, report_plan_figure
+
+        made = make_plan(context, plan_request)[0]
+        plan_figure = report_plan_figure(made)
     text = build_report(cohort, exploration, models, data_name=name,
                         data_key=fingerprint(dataset.frame), choices=choices, figures=figures,
-                        chosen=chosen)
+                        chosen=chosen, plan=made, plan_figure=plan_figure)
     stem = re.sub(r"[^A-Za-z0-9_-]+", "-", name.rsplit(".", 1)[0]).strip("-") or "data"
     return f"cohortlens-report-{stem}.html", text
 
@@ -432,10 +440,12 @@ def register(app, context: AppContext) -> None:
     @app.callback(Output(ids.MODELS_DOWNLOAD, "data"), Output(ids.MODELS_EXPORT_MSG, "children"),
                   Input(ids.MODELS_EXPORT, "n_clicks"), *STORES,
                   State(ids.MODELS_SNAPSHOT, "data"), State(ids.MODELS_CHOSEN, "value"),
+                  State("plan-request", "data"),
                   prevent_initial_call=True)
-    def export(n, data, roles, settings, snapshot, chosen):
+    def export(n, data, roles, settings, snapshot, chosen, plan_request):
         value, msg, _ = attempt(lambda: report_text(context, data, roles, settings, snapshot,
-                                                    chosen), what="writing the report")
+                                                    chosen, plan_request),
+                                what="writing the report")
         if value is None:
             return no_update, msg
         name, text = value
