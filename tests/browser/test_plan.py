@@ -8,6 +8,8 @@ The screenshot of the section goes to tests/browser/artifacts/ for a person to l
 """
 from __future__ import annotations
 
+import re
+
 from analysis.demo import DEMO_CSV, demo_roles, demo_settings
 from analysis.loading import Dataset, read_table
 from analysis.modelling import fit_candidates
@@ -74,6 +76,20 @@ def test_plan_after_fitting_equals_plan_study(server_url, page, artifacts):
     page.fill("#plan-schedule", ", ".join(f"{t:g}" for t in schedule))
     page.press("#plan-schedule", "Enter")
     page.locator("#plan-needed").wait_for(timeout=TIMEOUT)
+
+    # the simulation check with the smallest bounded count: power ± its Monte-Carlo SE
+    page.click("#plan-sim-reps")
+    page.locator(".dash-dropdown-option", has_text="20 cohorts").click()
+    page.click("#plan-simulate")
+    page.locator("#plan-sim-out").get_by_text("Simulated power").wait_for(timeout=TIMEOUT)
+    sim = page.inner_text("#plan-sim-out")
+    m = re.search(r"Simulated power ([\d.]+) ± ([\d.]+) .* from (\d+) refitted cohorts of "
+                  r"([\d,]+) subjects", sim)
+    assert m, sim
+    p_hat, se, reps = float(m.group(1)), float(m.group(2)), int(m.group(3))
+    assert reps <= 20 and int(m.group(4).replace(",", "")) == shown
+    # Monte-Carlo SE of a proportion sqrt(p(1-p)/reps) (common practice), to the 3 decimals shown
+    assert abs(se - (p_hat * (1 - p_hat) / reps) ** 0.5) < 2e-3
 
     # the sticky header would cover part of a full-page cut; let it scroll away for the picture
     page.add_style_tag(content=".cl-head, .cl-selection { position: static !important; }")
