@@ -119,6 +119,7 @@ class Setting:
     default_text: str | None = None  # the default in words, for help and the README table
     off_flag: str | None = None      # a switch's flag that turns it off ...
     off_help: str | None = None      # ... and its help
+    flag_sets: dict = field(default_factory=dict)  # other settings its flag sets unless given
     # settings panel: group heading (None: not in the panel), shown beside the next field with
     # the same ``pair``, placeholder, hint under the control, the text of a switch, radio buttons
     group: str | None = None
@@ -216,6 +217,7 @@ class Settings:
     breaks: tuple[float, ...] = setting(
         (), "breaks", label="Break points", help="custom inner break points, e.g. 10,20,40",
         default_text="none", stage="strata", flag="--breaks", group=_GROUPS,
+        flag_sets={"strata_method": "custom"},
         placeholder="e.g. 10, 20, 40", hint="Inner cut points in the covariate's own units.")
     detrend: str = setting(
         "spline", "choice", choices=opt.DETRENDS, label="Mean curve removed",

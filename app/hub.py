@@ -30,10 +30,6 @@ _VIEW_IDS = {"draw": ids.COURSE_DRAW, "seed": ids.COURSE_SEED, "order": ids.LINE
 _CLICK_GRAPHS = ids.SUBJECT_CLICK_GRAPHS
 
 
-def _setting_prop(key: str) -> str:
-    return "value"
-
-
 def register(app, context: AppContext) -> None:
     outputs = dict(
         search=Output(ids.PAGE_URL, "search"),
