@@ -128,6 +128,7 @@ class Setting:
     hint: str | None = None
     check_text: str | None = None
     radio: bool = False
+    needed_text: str | None = None   # the panel's message when another choice needs this blank one
     panel_min: float | None = None   # smallest value the page's number box steps to
 
 
@@ -218,6 +219,7 @@ class Settings:
         (), "breaks", label="Break points", help="custom inner break points, e.g. 10,20,40",
         default_text="none", stage="strata", flag="--breaks", group=_GROUPS,
         flag_sets={"strata_method": "custom"},
+        needed_text="Enter the inner break points for your own groups, e.g. 10, 20, 40.",
         placeholder="e.g. 10, 20, 40", hint="Inner cut points in the covariate's own units.")
     detrend: str = setting(
         "spline", "choice", choices=opt.DETRENDS, label="Mean curve removed",

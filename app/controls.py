@@ -67,14 +67,13 @@ def settings_from_controls(values: dict, *, fallback: Settings | None = None
             messages[f] = str(exc)
     if messages:
         return None, messages
-    if d.get("strata_method") == "custom" and not d.get("breaks"):
-        # the choice is fine; what is missing is the break points, so say it beside them
-        return None, {"breaks": "Enter the inner break points for your own groups, "
-                                "e.g. 10, 20, 40."}
     try:
         return Settings.from_dict(d), {}
     except CohortError as exc:
         field = getattr(exc, "field", None)
+        if field in DECLARED and not d[field] and DECLARED[field].needed_text:
+            # another choice needs this blank one (custom groups need break points)
+            return None, {field: DECLARED[field].needed_text}
         return None, {field if field in ids.SETTING_FIELDS else ids.SETTING_FIELDS[0]:
                       plain_message(str(exc))}
 

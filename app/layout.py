@@ -6,7 +6,6 @@ from __future__ import annotations
 
 from dash import dash_table, dcc, html
 
-from analysis import options as opt
 from analysis.settings import DECLARED, Settings
 
 from . import controls as ctl
