@@ -68,3 +68,38 @@ def test_json_key_is_sha1_of_sorted_json():
     value = {"b": [1, 2.5], "a": None}
     expect = hashlib.sha1(json.dumps(value, sort_keys=True).encode()).hexdigest()
     assert json_key(value) == expect and json_key(value, 16) == expect[:16]
+
+
+class _Odd:
+    """A value no setting accepts (not a number, text, true/false or list)."""
+
+
+@pytest.mark.parametrize("name", sorted(Settings.__dataclass_fields__))
+def test_every_bad_value_names_its_setting(name):
+    # reference: the field names of the Settings dataclass itself; each refuses a foreign object
+    with pytest.raises(SettingsError) as info:
+        Settings(**{name: _Odd()})
+    assert info.value.field == name
+
+
+def test_unknown_or_malformed_settings_name_the_settings():
+    for bad in ({"bins": 3}, ["min_visits", 3]):
+        with pytest.raises(SettingsError) as info:
+            Settings.from_dict(bad)
+        assert info.value.field == "settings"
+
+
+@pytest.mark.parametrize("field, call", [
+    ("strata_method", lambda: __import__("analysis.strata", fromlist=["x"]).cut_strata(
+        [1.0, 2.0, 3.0], method="thirds")),
+    ("transform", lambda: __import__("analysis.strata", fromlist=["x"]).transform_values(
+        [1.0, 2.0], "thirds")),
+])
+def test_estimator_guards_say_what_settings_say(field, call):
+    # reference: the message Settings itself gives for the same bad value
+    with pytest.raises(SettingsError) as direct:
+        call()
+    with pytest.raises(SettingsError) as via_settings:
+        Settings(**{field: "thirds"})
+    assert direct.value.field == field
+    assert str(direct.value) == str(via_settings.value)
