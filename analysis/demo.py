@@ -15,6 +15,7 @@ from .settings import Roles, Settings
 
 #: Location of the demo CSV (one row per visit).
 DEMO_CSV: Path = Path(__file__).resolve().parents[1] / "sample_data" / "kidney_registry.csv"
+DEMO_SETTINGS: Path = DEMO_CSV.with_name("demo_settings.json")
 
 #: Column names of the demo CSV, in file order.
 DEMO_COLUMNS: tuple[str, ...] = (
@@ -111,23 +112,7 @@ def demo_roles() -> Roles:
 
 
 def demo_settings() -> Settings:
-    """Settings that show the demo's story: log2 marker, quartile strata, 6-month lags."""
-    return Settings(
-        origin="event-date",
-        unit="months",
-        time_min=0.0,
-        time_max=60.0,
-        min_visits=3,
-        require_covariate=True,
-        covariate="urine_protein_ratio",
-        transform="log2",
-        center="median",
-        stratify_by="urine_protein_ratio",
-        strata_method="quantile",
-        n_strata=4,
-        detrend="spline",
-        spline_df=4,
-        variogram_bins=10,
-        variogram_max_lag=48.0,
-        lag_width=6.0,
-    )
+    """Settings that show the demo's story: log2 marker, quartile strata, 6-month lags (the
+    choices that differ from the defaults are in ``sample_data/demo_settings.json``, a settings
+    file like any other)."""
+    return Settings.from_json(DEMO_SETTINGS.read_text(encoding="utf-8"))

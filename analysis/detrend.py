@@ -14,6 +14,7 @@ from statsmodels.nonparametric.smoothers_lowess import lowess as _sm_lowess
 
 from . import options as opt
 from .errors import DataError, SettingsError
+from .settings import check_choice, check_value
 from .panel import Panel
 
 #: points per group in the drawn mean curve
@@ -103,13 +104,12 @@ def detrend(panel: Panel, *, method: str, spline_df: int = 4, lowess_frac: float
     829-836 (lowess). Diggle, Heagerty, Liang & Zeger, *Analysis of
     Longitudinal Data*, 2nd ed., section 3.4 (residuals for the variogram).
     """
-    if method not in opt.DETRENDS:
-        raise SettingsError(f"detrend == {method!r}, must be one of {list(opt.DETRENDS)}")
+    check_choice(method, opt.DETRENDS)
     if isinstance(spline_df, bool) or not isinstance(spline_df, (int, np.integer)) or spline_df < 1:
-        raise SettingsError(f"spline_df == {spline_df!r}, must be an integer >= 1")
+        raise SettingsError(f"spline_df == {spline_df!r}, must be an integer >= 1",
+                            field="spline_df")
     lowess_frac = float(lowess_frac)
-    if not 0.0 < lowess_frac <= 1.0:
-        raise SettingsError(f"lowess_frac == {lowess_frac}, must be in (0, 1]")
+    check_value("lowess_frac", lowess_frac)
     t, y = panel.time, panel.y
     if groups is not None:
         groups = np.asarray(groups)

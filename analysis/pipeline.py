@@ -20,8 +20,6 @@ Stages and the settings they read (see :data:`analysis.settings.STAGE_FIELDS`)::
 """
 from __future__ import annotations
 
-import hashlib
-import json
 import sys
 import threading
 from collections import Counter, OrderedDict
@@ -35,7 +33,7 @@ from .errors import SettingsError
 from .jsonsafe import json_safe
 from .loading import Dataset
 from .prepare import CohortSelection, PreparedCohort, select_cohort, stratify
-from .settings import COUNT_LIMITS, STAGE_FIELDS, Roles, Settings
+from .settings import COUNT_LIMITS, STAGE_FIELDS, Roles, Settings, json_key
 
 
 def check_group_limit(selection: CohortSelection, settings: Settings) -> None:
@@ -252,8 +250,7 @@ class Workbench:
         sub = {k: d[k] for k in self.stage_fields(stage, settings)} if stage in (
             "selection", "subject_fits", "cohort", "summaries", "residuals", "variogram",
             "lagcorr", "models") else d
-        digest = hashlib.sha1(json.dumps(sub, sort_keys=True, default=str).encode()).hexdigest()
-        return (dataset.key, roles, stage, digest[:16], extra)
+        return (dataset.key, roles, stage, json_key(sub, 16), extra)
 
     def _memo(self, stage, dataset, roles, settings, compute, extra=()):
         cache = self._model_cache if stage == "models" else self._cache

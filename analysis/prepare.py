@@ -300,8 +300,8 @@ def select_cohort(df: pd.DataFrame, roles: Roles, settings: Settings) -> CohortS
     if settings.origin == "as-is" and time_kind == "date":
         raise SettingsError(
             f"column '{clip(roles.time)}' holds dates, so time since an origin must be computed: "
-            "choose origin 'event-date' (with an event-date column) or 'first-visit'"
-        )
+            "choose origin 'event-date' (with an event-date column) or 'first-visit'",
+            field="origin")
     if settings.origin == "event-date":
         work["event"] = _time_values(df[roles.event_date], roles.event_date, "event date",
                                      time_kind, settings.date_order)
@@ -396,8 +396,7 @@ def stratify(selection: CohortSelection, settings: Settings) -> PreparedCohort:
     elif primary is not None and settings.transform != "none":
         raise SettingsError(
             f"transform == {settings.transform!r} needs a numeric covariate, "
-            f"but '{clip(primary)}' is categorical; choose transform 'none'"
-        )
+            f"but '{clip(primary)}' is categorical; choose transform 'none'", field="transform")
     by = settings.stratify_by or primary
     m = len(base)
     if by is None:
@@ -448,7 +447,8 @@ def _check_columns(df: pd.DataFrame, roles: Roles, settings: Settings) -> None:
     named += [("baseline covariate", c) for c in roles.covariates]
     if settings.origin == "event-date":
         if not roles.event_date:
-            raise SettingsError("origin == 'event-date' needs an event-date column role")
+            raise SettingsError("origin == 'event-date' needs an event-date column role",
+                                field="origin")
         named.append(("event date", roles.event_date))
     if roles.followup_end:
         named.append(("follow-up end", roles.followup_end))

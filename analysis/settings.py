@@ -2,14 +2,16 @@
 
 Every choice a user makes lives in one :class:`Settings` object, so that a
 cached result can be keyed by exactly the fields it depends on
-(:meth:`Settings.key_for`) and a dashboard view can be restored from a URL.
+(:data:`STAGE_FIELDS`, :func:`json_key`) and a dashboard view can be restored from a URL.
+Each setting is declared once, as a :class:`Setting` in its field's metadata; validation,
+the command line, the page address, the settings panel and the stage keys read it.
 """
 from __future__ import annotations
 
 import hashlib
 import json
 from datetime import date
-from dataclasses import asdict, dataclass, fields, replace
+from dataclasses import asdict, dataclass, field, fields, replace
 from typing import Any
 
 import numpy as np
@@ -91,68 +93,170 @@ class Roles:
         return tuple(dict.fromkeys(cols))
 
 
-#: Upper limits of the count settings, checked before anything is allocated (a shared link or
-#: a flag can otherwise ask for millions of bins or groups). Generous for real use: more than
-#: 200 lag bins or 50 groups cannot be read on a figure, a natural spline in time with more
-#: than 20 df follows noise, and no cohort rule needs more than 1000 visits per subject.
-#: Limits that depend on the data (groups <= subjects, spline df < distinct times) are checked
-#: by the pipeline (analysis.pipeline.check_data_limits).
-COUNT_LIMITS: dict[str, int] = {
-    "min_visits": 1000,
-    "n_strata": 50,
-    "spline_df": 20,
-    "variogram_bins": 200,
-}
+@dataclass(frozen=True)
+class Setting:
+    """How one setting is declared: everything validation, the command line, the page address,
+    the settings panel, the stage keys and the README table read about it.
 
-# Which settings each stage of the analysis reads. A result is cached under the
-# fields of its own stage plus those of every stage it depends on.
-STAGE_FIELDS: dict[str, tuple[str, ...]] = {
-    "cohort": ("origin", "unit", "time_min", "time_max", "min_visits", "require_covariate",
-               "covariate", "duplicates", "date_order"),
-    "strata": ("transform", "center", "stratify_by", "strata_method", "n_strata", "breaks"),
-    "residuals": ("detrend", "spline_df", "lowess_frac", "detrend_within_strata"),
-    "variogram": ("variogram_bins", "variogram_max_lag"),
-    "lagcorr": ("lag_width",),
-    "summaries": ("data_cut",),
-}
-STAGE_DEPENDS: dict[str, tuple[str, ...]] = {
-    "cohort": (),
-    "subject_fits": ("cohort",),
-    "strata": ("cohort",),
-    "residuals": ("cohort", "strata"),
-    "variogram": ("cohort", "strata", "residuals"),
-    "lagcorr": ("cohort", "strata", "residuals"),
-    "summaries": ("cohort", "strata"),
-}
+    ``kind`` says how a value is written and checked: ``choice`` (one of ``choices``), ``count``
+    (a whole number from ``lo`` to ``hi``), ``number`` (a finite number in the interval, ``lo``
+    excluded when ``lo_open``; ``optional`` allows None), ``switch`` (true or false),
+    ``column`` (a column name or None), ``date`` (YYYY-MM-DD or None), ``center`` (a word of
+    ``choices`` or a number) and ``breaks`` (a list of numbers).
+    """
+
+    kind: str
+    label: str                       # the settings panel's label (and messages on the page)
+    help: str                        # the command-line help, before the derived "[default]"
+    stage: str                       # the analysis stage that reads it (cache keys)
+    flag: str                        # the command-line flag
+    choices: tuple = ()              # allowed values (choice, center)
+    choice_labels: dict | None = None  # page wording of each choice, in the page's order
+    lo: float | None = None
+    hi: float | None = None
+    lo_open: bool = False
+    optional: bool = False           # None allowed (blank on the page, 'none' in a link)
+    default_text: str | None = None  # the default in words, for help and the README table
+    off_flag: str | None = None      # a switch's flag that turns it off ...
+    off_help: str | None = None      # ... and its help
+    flag_sets: dict = field(default_factory=dict)  # other settings its flag sets unless given
+    # settings panel: group heading (None: not in the panel), shown beside the next field with
+    # the same ``pair``, placeholder, hint under the control, the text of a switch, radio buttons
+    group: str | None = None
+    pair: str | None = None
+    placeholder: str | None = None
+    hint: str | None = None
+    check_text: str | None = None
+    radio: bool = False
+    needed_text: str | None = None   # the panel's message when another choice needs this blank one
+    panel_min: float | None = None   # smallest value the page's number box steps to
+
+
+def setting(default, kind: str, **declared):
+    """A :class:`Settings` field with its declaration (see :class:`Setting`)."""
+    return field(default=default, metadata={"setting": Setting(kind=kind, **declared)})
+
+
+_TIME = "Time"
+_GROUPS = "Groups (strata)"
+_RESIDUALS = "Residuals (for spread and correlation)"
+_VIEWS = "Spread and correlation views"
 
 
 @dataclass(frozen=True)
 class Settings:
-    """Every analysis choice (see README "Settings" for meanings and defaults)."""
+    """Every analysis choice (see README "Settings" for meanings and defaults). Each field is
+    declared once here, with its :class:`Setting` (see DEVELOPERS.md "Adding a setting")."""
 
-    origin: str = "as-is"
-    unit: str = "months"
-    time_min: float | None = None
-    time_max: float | None = None
-    min_visits: int = 3
-    require_covariate: bool = True
-    covariate: str | None = None
-    duplicates: str = "reject"
-    date_order: str = "auto"
-    transform: str = "none"
-    center: str | float = "none"
-    stratify_by: str | None = None
-    strata_method: str = "quantile"
-    n_strata: int = 4
-    breaks: tuple[float, ...] = ()
-    detrend: str = "spline"
-    spline_df: int = 4
-    lowess_frac: float = 0.3
-    detrend_within_strata: bool = False
-    variogram_bins: int = 10
-    variogram_max_lag: float | None = None
-    lag_width: float | None = None
-    data_cut: str | None = None
+    origin: str = setting(
+        "as-is", "choice", choices=opt.ORIGINS, label="Time origin", help="time origin",
+        stage="cohort", flag="--origin", group=_TIME, choice_labels={
+            "as-is": "Time column as given (already time since origin)",
+            "event-date": "Since each subject's event date",
+            "first-visit": "Since each subject's first visit"})
+    unit: str = setting(
+        "months", "choice", choices=opt.UNITS, label="Time unit", help="time unit",
+        stage="cohort", flag="--unit", group=_TIME)
+    time_min: float | None = setting(
+        None, "number", optional=True, label="Window from", default_text="none",
+        help="drop visits before this time since origin", stage="cohort", flag="--time-min",
+        group=_TIME, pair="window", placeholder="start")
+    time_max: float | None = setting(
+        None, "number", optional=True, label="Window to", default_text="none",
+        help="drop visits after this time since origin", stage="cohort", flag="--time-max",
+        group=_TIME, pair="window", placeholder="end")
+    min_visits: int = setting(
+        3, "count", lo=1, hi=1000, label="Fewest visits per subject",
+        help="minimum visits per subject", stage="cohort", flag="--min-visits",
+        group="Inclusion")
+    require_covariate: bool = setting(
+        True, "switch", label="Require the baseline covariate",
+        help="drop subjects without the primary covariate", stage="cohort",
+        flag="--require-covariate", off_flag="--keep-missing-covariate",
+        off_help="keep subjects without the primary covariate", group="Inclusion",
+        check_text="Drop subjects without the baseline covariate")
+    covariate: str | None = setting(
+        None, "column", label="Baseline covariate", default_text="first covariate",
+        help="which baseline covariate is transformed and enters the interaction",
+        stage="cohort", flag="--covariate-primary", group="Baseline covariate",
+        placeholder="first covariate")
+    duplicates: str = setting(
+        "reject", "choice", choices=opt.DUPLICATE_POLICIES, label="Two visits at the same time",
+        help="repeated (subject, time) rows: reject or average", stage="cohort",
+        flag="--duplicates", group=_TIME,
+        choice_labels={"reject": "stop with a message", "average": "average them"})
+    date_order: str = setting(
+        "auto", "choice", choices=opt.DATE_ORDERS, label="Dates written",
+        help="how to read dates such as 03/04/2021: auto (stop when unclear), day-first or "
+             "month-first", stage="cohort", flag="--date-order",
+        hint="For dates with the year last, e.g. 03/04/2021.", choice_labels={
+            "auto": "as the data show", "day-first": "day first (31.12.2021, 31/12/2021)",
+            "month-first": "month first (12/31/2021)"})
+    transform: str = setting(
+        "none", "choice", choices=opt.TRANSFORMS, label="Transform",
+        help="covariate transform", stage="strata", flag="--transform",
+        group="Baseline covariate", choice_labels={
+            "none": "none", "log": "natural log", "log2": "log base 2", "log10": "log base 10"})
+    center: str | float = setting(
+        "none", "center", choices=opt.CENTER_WORDS, label="Centre at",
+        help="covariate centring: none, mean, median or a number", stage="strata",
+        flag="--center", group="Baseline covariate", hint="On the transformed scale.",
+        choice_labels={"none": "no centring", "mean": "cohort mean", "median": "cohort median",
+                       "value": "a value I give"})
+    stratify_by: str | None = setting(
+        None, "column", label="Group subjects by", default_text="primary covariate",
+        help="covariate to cut into strata", stage="strata", flag="--stratify-by",
+        group=_GROUPS, placeholder="the baseline covariate")
+    strata_method: str = setting(
+        "quantile", "choice", choices=opt.STRATA_METHODS, label="How to cut groups",
+        help="how to cut strata", stage="strata", flag="--strata-method", group=_GROUPS,
+        radio=True, choice_labels={"quantile": "equal counts (quantiles)",
+                                   "equal-width": "equal widths", "custom": "my own break points"})
+    n_strata: int = setting(
+        4, "count", lo=1, hi=50, label="Number of groups", help="number of strata",
+        stage="strata", flag="--strata", group=_GROUPS)
+    breaks: tuple[float, ...] = setting(
+        (), "breaks", label="Break points", help="custom inner break points, e.g. 10,20,40",
+        default_text="none", stage="strata", flag="--breaks", group=_GROUPS,
+        flag_sets={"strata_method": "custom"},
+        needed_text="Enter the inner break points for your own groups, e.g. 10, 20, 40.",
+        placeholder="e.g. 10, 20, 40", hint="Inner cut points in the covariate's own units.")
+    detrend: str = setting(
+        "spline", "choice", choices=opt.DETRENDS, label="Mean curve removed",
+        help="mean model removed before residual views", stage="residuals", flag="--detrend",
+        group=_RESIDUALS, choice_labels={
+            "none": "none (raw response)", "linear": "straight line in time",
+            "spline": "smooth spline in time", "lowess": "lowess smooth"})
+    spline_df: int = setting(
+        4, "count", lo=1, hi=20, label="Spline degrees of freedom",
+        help="degrees of freedom of the detrending spline", stage="residuals",
+        flag="--spline-df", group=_RESIDUALS, pair="smooth")
+    lowess_frac: float = setting(
+        0.3, "number", lo=0, hi=1, lo_open=True, label="Lowess span",
+        help="lowess span for --detrend lowess", stage="residuals", flag="--lowess-frac",
+        group=_RESIDUALS, pair="smooth", panel_min=0.01)
+    detrend_within_strata: bool = setting(
+        False, "switch", label="Separate curve per group",
+        help="fit the detrending curve per stratum", stage="residuals",
+        flag="--detrend-within-strata", group=_RESIDUALS,
+        check_text="Separate mean curve for each group")
+    variogram_bins: int = setting(
+        10, "count", lo=1, hi=200, label="Time-apart bins", help="semivariogram lag bins",
+        stage="variogram", flag="--variogram-bins", group=_VIEWS, pair="variogram")
+    variogram_max_lag: float | None = setting(
+        None, "number", lo=0, lo_open=True, optional=True, label="Largest time apart",
+        default_text="all lags", help="largest lag binned", stage="variogram",
+        flag="--variogram-max-lag", group=_VIEWS, pair="variogram", placeholder="all")
+    lag_width: float | None = setting(
+        None, "number", lo=0, lo_open=True, optional=True, label="Lag window width",
+        default_text="automatic", help="window width for lag correlations", stage="lagcorr",
+        flag="--lag-width", group=_VIEWS, placeholder="auto",
+        hint="Width of each time-apart window, in time units.")
+    data_cut: str | None = setting(
+        None, "date", label="Data cut (date)", default_text="latest visit date",
+        help="date the data end, YYYY-MM-DD, for the dropout view", stage="summaries",
+        flag="--data-cut", group=_TIME, placeholder="latest visit date",
+        hint="YYYY-MM-DD: when the data end, for loss to follow-up.")
 
     def __post_init__(self):
         object.__setattr__(self, "breaks", _breaks(self.breaks))
@@ -162,59 +266,19 @@ class Settings:
 
     # -- validation -------------------------------------------------------
     def validate(self) -> None:
-        _choice("origin", self.origin, opt.ORIGINS)
-        _choice("unit", self.unit, opt.UNITS)
-        _choice("duplicates", self.duplicates, opt.DUPLICATE_POLICIES)
-        _choice("date_order", self.date_order, opt.DATE_ORDERS)
-        _choice("transform", self.transform, opt.TRANSFORMS)
-        _choice("strata_method", self.strata_method, opt.STRATA_METHODS)
-        _choice("detrend", self.detrend, opt.DETRENDS)
-        for name in ("covariate", "stratify_by"):
-            v = getattr(self, name)
-            if v is not None and not isinstance(v, str):
-                raise SettingsError(f"{name} == {_short(v)}, must be a column name or empty",
-                                    field=name)
-        for name in ("require_covariate", "detrend_within_strata"):
-            if not isinstance(getattr(self, name), bool):
-                raise SettingsError(f"{name} == {_short(getattr(self, name))}, must be true or false",
-                                    field=name)
-        if isinstance(self.center, str) and self.center not in opt.CENTER_WORDS:
-            raise SettingsError(
-                f"center == {_short(self.center)}, must be one of {list(opt.CENTER_WORDS)} or a number",
-                field="center")
-        if not isinstance(self.center, (str, float)) or (
-                isinstance(self.center, float) and not np.isfinite(self.center)):
-            raise SettingsError(f"center == {_short(self.center)}, must be one of "
-                                f"{list(opt.CENTER_WORDS)} or a finite number", field="center")
-        for name, hi in COUNT_LIMITS.items():
-            _int_between(name, getattr(self, name), 1, hi)
-        for name in ("time_min", "time_max", "lowess_frac", "lag_width", "variogram_max_lag"):
-            _number_or_none(name, getattr(self, name))
-        if self.lowess_frac is None:
-            raise SettingsError("lowess_frac == None, must be a number in (0, 1]",
-                                field="lowess_frac")
-        if not 0 < self.lowess_frac <= 1:
-            raise SettingsError(f"lowess_frac == {self.lowess_frac}, must be in (0, 1]",
-                                field="lowess_frac")
-        if self.lag_width is not None and not self.lag_width > 0:
-            raise SettingsError(f"lag_width == {self.lag_width}, must be > 0", field="lag_width")
-        if self.variogram_max_lag is not None and not self.variogram_max_lag > 0:
-            raise SettingsError(f"variogram_max_lag == {self.variogram_max_lag}, must be > 0",
-                                field="variogram_max_lag")
+        """Each field against its declaration, then the rules that join fields."""
+        for name, decl in DECLARED.items():
+            check_value(name, getattr(self, name), decl)
         if (self.time_min is not None and self.time_max is not None
                 and self.time_min >= self.time_max):
             raise SettingsError(
                 f"time window [{self.time_min}, {self.time_max}] is empty: time_min must be < time_max",
                 field="time_min")
-        if self.data_cut is not None:
-            _date_text("data_cut", self.data_cut)
-        if len(self.breaks) > COUNT_LIMITS["n_strata"] - 1:
+        most = DECLARED["n_strata"].hi
+        if len(self.breaks) > most - 1:
             raise SettingsError(
                 f"breaks: {len(self.breaks)} break points make {len(self.breaks) + 1} groups; "
-                f"at most {COUNT_LIMITS['n_strata'] - 1} break points "
-                f"({COUNT_LIMITS['n_strata']} groups) are allowed", field="breaks")
-        if not all(np.isfinite(self.breaks)):
-            raise SettingsError(f"breaks {list(self.breaks)} must be finite numbers", field="breaks")
+                f"at most {most - 1} break points ({most} groups) are allowed", field="breaks")
         if self.strata_method == "custom":
             if not self.breaks:
                 raise SettingsError("strata_method == 'custom' needs breaks, e.g. breaks=(1.5, 3.0)",
@@ -233,13 +297,13 @@ class Settings:
     def from_dict(cls, d: dict[str, Any]) -> "Settings":
         if not isinstance(d, dict):
             raise SettingsError(f"settings must be a JSON object of name: value pairs, "
-                                f"not {type(d).__name__}")
+                                f"not {type(d).__name__}", field="settings")
         known = {f.name for f in fields(cls)}
         extra = set(d) - known
         if extra:
             raise SettingsError(
                 f"unknown setting(s) {_short(sorted(map(str, extra)))}; known settings are "
-                f"{sorted(known)}")
+                f"{sorted(known)}", field="settings")
         return cls(**dict(d))
 
     def to_json(self) -> str:
@@ -257,21 +321,101 @@ class Settings:
         cached stage result carries, so that it never reports a cache neighbour's choices)."""
         return Settings(**{n: getattr(self, n) for n in names})
 
-    # -- cache keys -------------------------------------------------------
-    def fields_for(self, stage: str) -> tuple[str, ...]:
-        """All setting names that ``stage`` depends on (its own and its upstream stages')."""
-        if stage not in STAGE_DEPENDS:
-            raise KeyError(f"unknown stage {stage!r}; stages are {sorted(STAGE_DEPENDS)}")
-        names: list[str] = []
-        for s in (*STAGE_DEPENDS[stage], stage):
-            names.extend(STAGE_FIELDS.get(s, ()))
-        return tuple(names)
 
-    def key_for(self, stage: str) -> str:
-        """Short stable hash of the settings ``stage`` depends on."""
-        d = self.to_dict()
-        sub = {k: d[k] for k in self.fields_for(stage)}
-        return hashlib.sha1(json.dumps(sub, sort_keys=True).encode()).hexdigest()[:16]
+#: each setting's declaration, in field order
+DECLARED: dict[str, Setting] = {f.name: f.metadata["setting"] for f in fields(Settings)}
+
+#: Upper limits of the count settings, checked before anything is allocated (a shared link or
+#: a flag can otherwise ask for millions of bins or groups). Generous for real use: more than
+#: 200 lag bins or 50 groups cannot be read on a figure, a natural spline in time with more
+#: than 20 df follows noise, and no cohort rule needs more than 1000 visits per subject.
+#: Limits that depend on the data (groups <= subjects, spline df < distinct times) are checked
+#: by the pipeline (analysis.pipeline.check_data_limits).
+COUNT_LIMITS: dict[str, int] = {n: d.hi for n, d in DECLARED.items() if d.kind == "count"}
+
+#: Which settings each stage of the analysis reads (the stages a result depends on are in
+#: analysis.pipeline.Workbench.stage_fields).
+STAGE_FIELDS: dict[str, tuple[str, ...]] = {}
+for _name, _decl in DECLARED.items():
+    STAGE_FIELDS[_decl.stage] = (*STAGE_FIELDS.get(_decl.stage, ()), _name)
+
+
+def default_text(name: str) -> str:
+    """A setting's default in words (command-line help, README table)."""
+    decl = DECLARED[name]
+    if decl.default_text is not None:
+        return decl.default_text
+    value = _DEFAULTS[name]
+    if isinstance(value, bool):
+        return "on" if value else "off"
+    return f"{value:g}" if isinstance(value, float) else str(value)
+
+
+_DEFAULTS: dict[str, Any] = {f.name: f.default for f in fields(Settings)}
+
+
+def check_value(name: str, value, decl: Setting | None = None) -> None:
+    """Raise SettingsError (with ``field=name``) unless ``value`` fits the declaration of
+    setting ``name``; estimators call it to guard direct use with the same words."""
+    decl = decl or DECLARED[name]
+    kind = decl.kind
+    if kind == "choice":
+        _choice(name, value, decl.choices)
+    elif kind == "count":
+        _int_between(name, value, int(decl.lo), int(decl.hi))
+    elif kind == "number":
+        if value is None and decl.optional:
+            return
+        if value is None:
+            raise SettingsError(f"{name} == None, must be a number in {_interval(decl)}",
+                                field=name)
+        _number_or_none(name, value)
+        lo_ok = decl.lo is None or (value > decl.lo if decl.lo_open else value >= decl.lo)
+        if not lo_ok or decl.hi is not None and not value <= decl.hi:
+            word = _interval(decl)
+            raise SettingsError(f"{name} == {value}, must be "
+                                f"{word if word[0] in '<>' else 'in ' + word}", field=name)
+    elif kind == "switch":
+        if not isinstance(value, bool):
+            raise SettingsError(f"{name} == {_short(value)}, must be true or false", field=name)
+    elif kind == "column":
+        if value is not None and not isinstance(value, str):
+            raise SettingsError(f"{name} == {_short(value)}, must be a column name or empty",
+                                field=name)
+    elif kind == "date":
+        if value is not None:
+            _date_text(name, value)
+    elif kind == "center":
+        if isinstance(value, str) and value not in decl.choices:
+            raise SettingsError(f"{name} == {_short(value)}, must be one of "
+                                f"{list(decl.choices)} or a number", field=name)
+        if not isinstance(value, (str, float)) or (
+                isinstance(value, float) and not np.isfinite(value)):
+            raise SettingsError(f"{name} == {_short(value)}, must be one of "
+                                f"{list(decl.choices)} or a finite number", field=name)
+    elif kind == "breaks":
+        if not all(np.isfinite(value)):
+            raise SettingsError(f"{name} {list(value)} must be finite numbers", field=name)
+
+
+def check_choice(value, choices: tuple) -> None:
+    """Raise SettingsError unless ``value`` is one of ``choices``, an options tuple that one
+    setting declares; the message and ``field`` name that setting (estimators' guards)."""
+    name = next(n for n, d in DECLARED.items() if d.choices is choices)
+    _choice(name, value, choices)
+
+
+def _interval(decl: Setting) -> str:
+    if decl.hi is None:
+        return f"{'>' if decl.lo_open else '>='} {decl.lo:g}"
+    return f"{'(' if decl.lo_open else '['}{decl.lo:g}, {decl.hi:g}]"
+
+
+def json_key(value, length: int | None = None) -> str:
+    """The cache key of a JSON-able value: sha1 of its JSON with sorted keys (anything JSON
+    cannot write is written as its ``str``), cut to ``length`` hex digits."""
+    raw = json.dumps(value, sort_keys=True, default=str)
+    return hashlib.sha1(raw.encode()).hexdigest()[:length]
 
 
 def _short(value, limit: int = 200) -> str:

@@ -21,6 +21,7 @@ import pandas as pd
 
 from . import options as opt
 from .errors import DataError, SettingsError
+from .settings import check_choice
 
 #: separator between the ends of a range in a stratum label (spaced en dash)
 RANGE_SEP = " – "
@@ -126,8 +127,7 @@ def transform_values(x, transform: str, *, name: str = "covariate") -> np.ndarra
         A log transform and some value <= 0 (the message gives how many and
         the smallest one).
     """
-    if transform not in opt.TRANSFORMS:
-        raise SettingsError(f"transform == {transform!r}, must be one of {list(opt.TRANSFORMS)}")
+    check_choice(transform, opt.TRANSFORMS)
     x = np.asarray(x, dtype=float)
     if transform == "none":
         return x.copy()
@@ -170,11 +170,13 @@ def center_values(x, center, *, name: str = "covariate") -> tuple[np.ndarray, fl
     """
     x = np.asarray(x, dtype=float)
     if isinstance(center, bool):
-        raise SettingsError(f"center == {center!r}, must be one of {list(opt.CENTER_WORDS)} or a number")
+        raise SettingsError(f"center == {center!r}, must be one of {list(opt.CENTER_WORDS)} or a number",
+                            field="center")
     if isinstance(center, str):
         if center not in opt.CENTER_WORDS:
             raise SettingsError(
-                f"center == {center!r}, must be one of {list(opt.CENTER_WORDS)} or a number")
+                f"center == {center!r}, must be one of {list(opt.CENTER_WORDS)} or a number",
+                field="center")
         if center == "none":
             return x.copy(), 0.0
         ok = x[~np.isnan(x)]
@@ -185,7 +187,7 @@ def center_values(x, center, *, name: str = "covariate") -> tuple[np.ndarray, fl
     else:
         value = float(center)
         if not math.isfinite(value):
-            raise SettingsError(f"center == {center!r}, must be a finite number")
+            raise SettingsError(f"center == {center!r}, must be a finite number", field="center")
     return x - value, value
 
 
@@ -230,12 +232,10 @@ def cut_strata(values, *, method: str, n: int = 4, breaks=(), name: str = "covar
     which is closed on both sides. Labels print the edges with the fewest
     decimals that keep neighbouring edges distinct.
     """
-    if method not in opt.STRATA_METHODS:
-        raise SettingsError(f"strata_method == {method!r}, must be one of {list(opt.STRATA_METHODS)}")
+    check_choice(method, opt.STRATA_METHODS)
     if isinstance(n, bool) or not isinstance(n, (int, np.integer)) or n < 1:
-        raise SettingsError(f"n_strata == {n!r}, must be an integer >= 1")
-    if transform not in opt.TRANSFORMS:
-        raise SettingsError(f"transform == {transform!r}, must be one of {list(opt.TRANSFORMS)}")
+        raise SettingsError(f"n_strata == {n!r}, must be an integer >= 1", field="n_strata")
+    check_choice(transform, opt.TRANSFORMS)
     v = np.asarray(values, dtype=float)
     if v.ndim != 1:
         raise DataError(f"'{name}': expected one value per subject (1-D), got shape {v.shape}",
@@ -262,16 +262,16 @@ def cut_strata(values, *, method: str, n: int = 4, breaks=(), name: str = "covar
     else:
         b = np.asarray(tuple(breaks), dtype=float)
         if b.size == 0:
-            raise SettingsError("strata_method == 'custom' needs breaks, e.g. breaks=(1.5, 3.0)")
+            raise SettingsError("the custom method needs breaks, e.g. breaks=(1.5, 3.0)",
+                                field="breaks")
         if np.any(np.diff(b) <= 0):
-            raise SettingsError(f"breaks {b.tolist()} must be strictly increasing")
+            raise SettingsError(f"breaks {b.tolist()} must be strictly increasing", field="breaks")
         for x in b:
             if not lo < x < hi:
                 raise SettingsError(
                     f"break {_compact(float(x), 6)} is outside the range of '{name}' "
                     f"({_compact(lo, 6)} to {_compact(hi, 6)}); breaks must lie strictly "
-                    f"between the smallest and largest value"
-                )
+                    f"between the smallest and largest value", field="breaks")
         edges = np.concatenate(([lo], b, [hi]))
     edges = edges.astype(float)
     if cut_v is v:

@@ -15,43 +15,20 @@ from pathlib import Path
 
 from analysis import options as opt
 from analysis.errors import CohortError, SettingsError
-from analysis.settings import Roles, Settings
+from analysis.settings import DECLARED, Roles, Settings, default_text
 
 COMMANDS = ("serve", "summarize", "fit", "report", "plan")
 
-# (flag, Settings field, type, choices, help)
-SETTING_FLAGS: tuple[tuple[str, str, object, tuple | None, str], ...] = (
-    ("--origin", "origin", str, opt.ORIGINS, "time origin [as-is]"),
-    ("--unit", "unit", str, opt.UNITS, "time unit [months]"),
-    ("--time-min", "time_min", float, None, "drop visits before this time since origin"),
-    ("--time-max", "time_max", float, None, "drop visits after this time since origin"),
-    ("--min-visits", "min_visits", int, None, "minimum visits per subject [3]"),
-    ("--covariate-primary", "covariate", str, None,
-     "which baseline covariate is transformed and enters the interaction [first --covariate]"),
-    ("--duplicates", "duplicates", str, opt.DUPLICATE_POLICIES,
-     "repeated (subject, time) rows: reject or average [reject]"),
-    ("--date-order", "date_order", str, opt.DATE_ORDERS,
-     "how to read dates such as 03/04/2021: auto (stop when unclear), day-first or month-first "
-     "[auto]"),
-    ("--transform", "transform", str, opt.TRANSFORMS, "covariate transform [none]"),
-    ("--center", "center", str, None, "covariate centring: none, mean, median or a number [none]"),
-    ("--stratify-by", "stratify_by", str, None, "covariate to cut into strata [primary covariate]"),
-    ("--strata-method", "strata_method", str, opt.STRATA_METHODS, "how to cut strata [quantile]"),
-    ("--strata", "n_strata", int, None, "number of strata [4]"),
-    ("--breaks", "breaks", str, None, "custom inner break points, e.g. 10,20,40"),
-    ("--detrend", "detrend", str, opt.DETRENDS, "mean model removed before residual views [spline]"),
-    ("--spline-df", "spline_df", int, None, "degrees of freedom of the detrending spline [4]"),
-    ("--lowess-frac", "lowess_frac", float, None, "lowess span for --detrend lowess [0.3]"),
-    ("--variogram-bins", "variogram_bins", int, None, "semivariogram lag bins [10]"),
-    ("--variogram-max-lag", "variogram_max_lag", float, None, "largest lag binned [all]"),
-    ("--lag-width", "lag_width", float, None, "window width for lag correlations [automatic]"),
-    ("--data-cut", "data_cut", str, None,
-     "date the data end, YYYY-MM-DD, for the dropout view [latest visit date]"),
-)
+#: (flag, Settings field, type, choices, help) of every setting that takes a value, read from
+#: its declaration (analysis.settings); the help ends with the default in brackets
+SETTING_FLAGS: tuple[tuple[str, str, object, tuple | None, str], ...] = tuple(
+    (d.flag, name, {"count": int, "number": float}.get(d.kind, str),
+     d.choices if d.kind == "choice" else None, f"{d.help} [{default_text(name)}]")
+    for name, d in DECLARED.items() if d.kind != "switch")
 
 
 #: the command-line flag of each Settings field, for messages
-_FLAG_OF: dict[str, str] = {field: flag for flag, field, *_ in SETTING_FLAGS}
+_FLAG_OF: dict[str, str] = {name: d.flag for name, d in DECLARED.items()}
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -161,12 +138,13 @@ def _add_settings(p: argparse.ArgumentParser) -> None:
                    help="settings as JSON (a summarize output works too); flags override it")
     for flag, field, typ, choices, text in SETTING_FLAGS:
         g.add_argument(flag, dest=f"set_{field}", type=typ, choices=choices, default=None, help=text)
-    g.add_argument("--require-covariate", dest="set_require_covariate", action="store_true",
-                   default=None, help="drop subjects without the primary covariate [on]")
-    g.add_argument("--keep-missing-covariate", dest="set_require_covariate",
-                   action="store_false", help="keep subjects without the primary covariate")
-    g.add_argument("--detrend-within-strata", dest="set_detrend_within_strata",
-                   action="store_true", default=None, help="fit the detrending curve per stratum")
+    for name, d in DECLARED.items():
+        if d.kind == "switch":
+            g.add_argument(d.flag, dest=f"set_{name}", action="store_true", default=None,
+                           help=f"{d.help} [{default_text(name)}]")
+            if d.off_flag:
+                g.add_argument(d.off_flag, dest=f"set_{name}", action="store_false",
+                               help=d.off_help)
 
 
 def resolve(args: argparse.Namespace) -> tuple[object, Roles | None, Settings]:
@@ -180,13 +158,15 @@ def resolve(args: argparse.Namespace) -> tuple[object, Roles | None, Settings]:
             raise CohortError(f"--settings {args.settings}: cannot read JSON ({exc})") from None
         if not isinstance(loaded, dict):
             raise SettingsError(f"--settings {args.settings}: expected a JSON object of "
-                                f"setting: value pairs, found a {_json_kind(loaded)}")
+                                f"setting: value pairs, found a {_json_kind(loaded)}",
+                                field="settings")
         if "settings" in loaded:
             base_settings = loaded["settings"]
             base_roles = loaded.get("roles")
             if not isinstance(base_settings, dict):
                 raise SettingsError(f"--settings {args.settings}: 'settings' must be a JSON "
-                                    f"object, found a {_json_kind(base_settings)}")
+                                    f"object, found a {_json_kind(base_settings)}",
+                                    field="settings")
             if base_roles is not None and not isinstance(base_roles, dict):
                 raise SettingsError(f"--settings {args.settings}: 'roles' must be a JSON object "
                                     f"of role: column pairs, found a {_json_kind(base_roles)}",
@@ -229,19 +209,17 @@ def resolve(args: argparse.Namespace) -> tuple[object, Roles | None, Settings]:
         raise CohortError("name the column roles: --subject COL --time COL --response COL")
 
     settings_dict = dict(base_settings)
-    for _, field, _, _, _ in SETTING_FLAGS:
-        value = getattr(args, f"set_{field}")
+    for name in DECLARED:
+        value = getattr(args, f"set_{name}")
         if value is not None:
-            settings_dict[field] = value
-    for field in ("require_covariate", "detrend_within_strata"):
-        value = getattr(args, f"set_{field}")
-        if value is not None:
-            settings_dict[field] = value
-    if "breaks" in settings_dict and isinstance(settings_dict["breaks"], str):
-        settings_dict["breaks"] = _parse_breaks(settings_dict["breaks"])
-        settings_dict.setdefault("strata_method", "custom")
-    if isinstance(settings_dict.get("center"), str):
-        settings_dict["center"] = _parse_center(settings_dict["center"])
+            settings_dict[name] = value
+    for name, d in DECLARED.items():
+        if d.kind == "breaks" and isinstance(settings_dict.get(name), str):
+            settings_dict[name] = _parse_breaks(settings_dict[name])
+            for other, value in d.flag_sets.items():
+                settings_dict.setdefault(other, value)
+        if d.kind == "center" and isinstance(settings_dict.get(name), str):
+            settings_dict[name] = _parse_center(settings_dict[name])
     return data, roles, Settings.from_dict(settings_dict)
 
 

@@ -6,40 +6,28 @@ and back again when a link restores a view.
 """
 from __future__ import annotations
 
-from dataclasses import fields
-
 from analysis.errors import CohortError
-from analysis.settings import Roles, Settings
+from analysis.settings import DECLARED, Roles, Settings
 
 from . import ids
 from .text import short
 
 ON = "on"
 
-ORIGIN_LABELS = {
-    "as-is": "Time column as given (already time since origin)",
-    "event-date": "Since each subject's event date",
-    "first-visit": "Since each subject's first visit",
-}
-TRANSFORM_LABELS = {"none": "none", "log": "natural log", "log2": "log base 2", "log10": "log base 10"}
-STRATA_METHOD_LABELS = {"quantile": "equal counts (quantiles)", "equal-width": "equal widths",
-                        "custom": "my own break points"}
-DETREND_LABELS = {"none": "none (raw response)", "linear": "straight line in time",
-                  "spline": "smooth spline in time", "lowess": "lowess smooth"}
-DUPLICATE_LABELS = {"reject": "stop with a message", "average": "average them"}
-DATE_ORDER_LABELS = {"auto": "as the data show",
-                     "day-first": "day first (31.12.2021, 31/12/2021)",
-                     "month-first": "month first (12/31/2021)"}
-CENTER_CHOICES = {"none": "no centring", "mean": "cohort mean", "median": "cohort median",
-                  "value": "a value I give"}
-
+#: the panel's label of each setting (as declared in analysis.settings)
+FIELD_LABELS = {name: decl.label for name, decl in DECLARED.items()}
 #: controls whose value is a number typed by the user (None when blank)
-NUMBER_FIELDS = ("time_min", "time_max", "min_visits", "n_strata", "spline_df", "lowess_frac",
-                 "variogram_bins", "variogram_max_lag", "lag_width")
-INT_FIELDS = ("min_visits", "n_strata", "spline_df", "variogram_bins")
-CHECK_FIELDS = ("require_covariate", "detrend_within_strata")
+NUMBER_FIELDS = tuple(n for n, d in DECLARED.items() if d.kind in ("count", "number"))
+INT_FIELDS = tuple(n for n, d in DECLARED.items() if d.kind == "count")
+CHECK_FIELDS = tuple(n for n, d in DECLARED.items() if d.kind == "switch")
 #: fields that must have a value (blank means "use the default")
-REQUIRED_NUMBERS = ("min_visits", "n_strata", "spline_df", "lowess_frac", "variogram_bins")
+REQUIRED_NUMBERS = tuple(n for n in NUMBER_FIELDS if not DECLARED[n].optional)
+
+
+def choice_labels(name: str) -> dict:
+    """The page's wording of each choice of setting ``name``, in the page's order."""
+    decl = DECLARED[name]
+    return dict(decl.choice_labels or {c: c for c in decl.choices})
 
 
 def control_values(settings: Settings) -> dict:
@@ -48,11 +36,12 @@ def control_values(settings: Settings) -> dict:
     out = {}
     for f in ids.SETTING_FIELDS:
         v = d[f]
-        if f in CHECK_FIELDS:
+        kind = DECLARED[f].kind
+        if kind == "switch":
             out[f] = [ON] if v else []
-        elif f == "breaks":
+        elif kind == "breaks":
             out[f] = ", ".join(_num(b) for b in v)
-        elif f == "center":
+        elif kind == "center":
             out[f] = v if isinstance(v, str) else "value"
         else:
             out[f] = v
@@ -78,22 +67,22 @@ def settings_from_controls(values: dict, *, fallback: Settings | None = None
             messages[f] = str(exc)
     if messages:
         return None, messages
-    if d.get("strata_method") == "custom" and not d.get("breaks"):
-        # the choice is fine; what is missing is the break points, so say it beside them
-        return None, {"breaks": "Enter the inner break points for your own groups, "
-                                "e.g. 10, 20, 40."}
     try:
         return Settings.from_dict(d), {}
     except CohortError as exc:
         field = getattr(exc, "field", None)
+        if field in DECLARED and not d[field] and DECLARED[field].needed_text:
+            # another choice needs this blank one (custom groups need break points)
+            return None, {field: DECLARED[field].needed_text}
         return None, {field if field in ids.SETTING_FIELDS else ids.SETTING_FIELDS[0]:
                       plain_message(str(exc))}
 
 
 def _field_value(f: str, v, values: dict, fallback: Settings):
-    if f in CHECK_FIELDS:
+    kind = DECLARED[f].kind
+    if kind == "switch":
         return bool(v) and ON in v
-    if f in NUMBER_FIELDS:
+    if kind in ("count", "number"):
         if v is None or v == "":
             if f in REQUIRED_NUMBERS:
                 raise ValueError("enter a number")
@@ -102,12 +91,12 @@ def _field_value(f: str, v, values: dict, fallback: Settings):
             num = float(v)
         except (TypeError, ValueError):
             raise ValueError(f"expected a number, got {v!r}") from None
-        if f in INT_FIELDS:
+        if kind == "count":
             if not num.is_integer():
                 raise ValueError(f"expected a whole number, got {v}")
             return int(num)
         return num
-    if f == "breaks":
+    if kind == "breaks":
         text = (v or "").strip()
         if not text:
             return ()
@@ -122,16 +111,16 @@ def _field_value(f: str, v, values: dict, fallback: Settings):
                 raise ValueError(f"'{part}' is not a number; write break points like 10, 20, 40"
                                  ) from None
         return tuple(out)
-    if f == "center":
+    if kind == "center":
         if v == "value":
             cv = values.get("center_value")
             if cv is None or cv == "":
                 raise ValueError("enter the value to centre at")
             return float(cv)
         return v or "none"
-    if f in ("covariate", "stratify_by"):
+    if kind == "column":
         return v or None
-    if f == "data_cut":
+    if kind == "date":
         return (v or "").strip() or None
     return v if v is not None else getattr(fallback, f)
 
@@ -143,33 +132,6 @@ def plain_message(message: str) -> str:
     for f in ids.SETTING_FIELDS:
         message = message.replace(f, f"'{FIELD_LABELS[f].lower()}'")
     return message
-
-
-FIELD_LABELS = {
-    "origin": "Time origin",
-    "unit": "Time unit",
-    "time_min": "Window from",
-    "time_max": "Window to",
-    "min_visits": "Fewest visits per subject",
-    "require_covariate": "Require the baseline covariate",
-    "covariate": "Baseline covariate",
-    "duplicates": "Two visits at the same time",
-    "date_order": "Dates written",
-    "transform": "Transform",
-    "center": "Centre at",
-    "stratify_by": "Group subjects by",
-    "strata_method": "How to cut groups",
-    "n_strata": "Number of groups",
-    "breaks": "Break points",
-    "detrend": "Mean curve removed",
-    "spline_df": "Spline degrees of freedom",
-    "lowess_frac": "Lowess span",
-    "detrend_within_strata": "Separate curve per group",
-    "variogram_bins": "Time-apart bins",
-    "variogram_max_lag": "Largest time apart",
-    "lag_width": "Lag window width",
-    "data_cut": "Data cut (date)",
-}
 
 
 def _num(v: float) -> str:
@@ -235,7 +197,3 @@ def role_options(described: list[dict]) -> list[dict]:
 
 def choice_options(labels: dict) -> list[dict]:
     return [{"label": text, "value": value} for value, text in labels.items()]
-
-
-def settings_field_names() -> tuple[str, ...]:
-    return tuple(f.name for f in fields(Settings))

@@ -17,6 +17,7 @@ from dash import Input, Output, State, ctx, no_update
 
 from analysis.errors import CohortError
 from analysis.loading import describe_columns, read_table
+from analysis.settings import DECLARED
 
 from . import controls as ctl
 from . import ids, urlstate
@@ -26,12 +27,10 @@ from .text import clip_message, echo, option, renamed_note, short, shorten_colum
 PREVIEW_ROWS = 6
 _SETTING_KEYS = (*ids.SETTING_FIELDS, "center_value")
 _SETTING_IDS = {**ids.SETTING_INPUT, "center_value": ids.SETTING_CENTER_VALUE}
+#: settings whose dropdown lists the chosen covariate columns
+_COLUMN_SETTINGS = tuple(n for n, d in DECLARED.items() if d.kind == "column")
 _VIEW_IDS = {"draw": ids.COURSE_DRAW, "seed": ids.COURSE_SEED, "order": ids.LINES_ORDER}
 _CLICK_GRAPHS = ids.SUBJECT_CLICK_GRAPHS
-
-
-def _setting_prop(key: str) -> str:
-    return "value"
 
 
 def register(app, context: AppContext) -> None:
@@ -49,7 +48,7 @@ def register(app, context: AppContext) -> None:
         settings={k: Output(_SETTING_IDS[k], "value") for k in _SETTING_KEYS},
         view={k: Output(i, "value") for k, i in _VIEW_IDS.items()},
         covariate_options={f: Output(ids.SETTING_INPUT[f], "options")
-                           for f in ("covariate", "stratify_by")},
+                           for f in _COLUMN_SETTINGS},
         stratum=Output(ids.LINK_STRATA, "value"),
         subject=Output(ids.STORE_SUBJECT, "data"),
     )
@@ -104,7 +103,7 @@ def register(app, context: AppContext) -> None:
         elif trig in ids.ROLE_INPUT.values():
             _fit_covariate_choices(roles, settings, out, now)
             opts = _covariate_options(roles.get("covariates"))
-            out["covariate_options"] = {"covariate": opts, "stratify_by": opts}
+            out["covariate_options"] = {f: opts for f in _COLUMN_SETTINGS}
         elif trig in _CLICK_GRAPHS:
             picked = clicked_subject(clicks.get(trig))
             if picked is None or not _analysed_subject(context, data, roles, settings, picked):
@@ -198,7 +197,7 @@ def _show_dataset(context: AppContext, key: str, roles, out: dict, name: str | N
     # with their values in the same response, so the dropdowns never drop a choice
     # that their options do not list yet
     opts = _covariate_options(out["roles"]["covariates"])
-    out["covariate_options"] = {"covariate": opts, "stratify_by": opts}
+    out["covariate_options"] = {f: opts for f in _COLUMN_SETTINGS}
     out["preview"], out["preview_cols"] = preview(dataset.frame, described)
     out["upload_msg"] = ""
 
@@ -207,7 +206,7 @@ def _fit_covariate_choices(roles: dict, settings: dict, out: dict, now: dict) ->
     """When the covariate list changes, forget covariate choices that are no longer in it."""
     covs = set(roles.get("covariates") or [])
     changed = dict(settings)
-    for f in ("covariate", "stratify_by"):
+    for f in _COLUMN_SETTINGS:
         if settings.get(f) and settings[f] not in covs:
             changed[f] = None
             out["settings"][f] = None

@@ -1,6 +1,8 @@
 """Component ids, one constant each (kebab-case, prefixed by the section they belong to)."""
 from __future__ import annotations
 
+from analysis.settings import DECLARED
+
 # -- page-wide --------------------------------------------------------------
 PAGE_URL = "page-url"
 PAGE_TITLE = "page-title"
@@ -12,9 +14,7 @@ PAGE_ALERT = "page-alert"
 STORE_DATA = "store-data"            # {"key": str, "name": str}
 STORE_ROLES = "store-roles"          # Roles.to_dict() or None
 STORE_SETTINGS = "store-settings"    # Settings.to_dict() (valid) 
-STORE_VIEW = "store-view"            # {"draw": int, "seed": int, "order": str}
 STORE_SUBJECT = "store-subject"      # selected subject id (str) or None
-STORE_STRATUM = "store-stratum"      # selected stratum label (str) or None
 
 # -- data section ------------------------------------------------------------
 DATA_UPLOAD = "data-upload"
@@ -31,12 +31,7 @@ ROLE_MSG = {r: f"roles-{r.replace('_', '-')}-msg" for r in ROLE_FIELDS}
 ROLES_STATUS = "roles-status"
 
 # -- settings panel: one control + one message per Settings field ------------
-SETTING_FIELDS = (
-    "origin", "unit", "time_min", "time_max", "min_visits", "require_covariate",
-    "covariate", "duplicates", "date_order", "transform", "center", "stratify_by", "strata_method",
-    "n_strata", "breaks", "detrend", "spline_df", "lowess_frac", "detrend_within_strata",
-    "variogram_bins", "variogram_max_lag", "lag_width", "data_cut",
-)
+SETTING_FIELDS = tuple(DECLARED)     # every declared setting, in field order
 SETTING_INPUT = {f: f"settings-{f.replace('_', '-')}" for f in SETTING_FIELDS}
 SETTING_MSG = {f: f"settings-{f.replace('_', '-')}-msg" for f in SETTING_FIELDS}
 SETTINGS_STATUS = "settings-status"
@@ -49,7 +44,6 @@ STRATA_SIZE_NOTE = "strata-size-note"   # small-group warning beside the group c
 
 # -- stratum chips and the selected-subject card ---------------------------------
 LINK_STRATA = "link-strata"
-LINK_STRATUM_CHIP = "link-stratum-chip"   # pattern-matching type: {"type": ..., "index": label}
 LINK_CLEAR = "link-clear"
 LINK_CARD = "link-card"
 

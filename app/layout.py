@@ -6,8 +6,7 @@ from __future__ import annotations
 
 from dash import dash_table, dcc, html
 
-from analysis import options as opt
-from analysis.settings import Settings
+from analysis.settings import DECLARED, Settings
 
 from . import controls as ctl
 from . import ids
@@ -190,13 +189,7 @@ def data_section(settings: Settings | None = None,
                          for r, label, multi, hint in role_rows[:2]],
                        # read with the time role: how year-last dates in the time and
                        # event-date columns are read
-                       field(ctl.FIELD_LABELS["date_order"],
-                             dcc.Dropdown(id=ids.SETTING_INPUT["date_order"],
-                                          options=ctl.choice_options(ctl.DATE_ORDER_LABELS),
-                                          value=(settings or Settings()).date_order,
-                                          clearable=False, searchable=False),
-                             ids.SETTING_MSG["date_order"],
-                             "For dates with the year last, e.g. 03/04/2021."),
+                       setting_field("date_order", ctl.control_values(settings or Settings())),
                        *[field(label, dcc.Dropdown(id=ids.ROLE_INPUT[r], multi=multi, options=[],
                                                    placeholder="choose a column…",
                                                    clearable=True),
@@ -216,92 +209,69 @@ def data_section(settings: Settings | None = None,
 
 # ------------------------------------------------------------------ settings panel
 def settings_panel(settings: Settings) -> html.Div:
+    """Every setting with a panel group, grouped as declared (analysis.settings), in field
+    order; consecutive fields with the same ``pair`` sit side by side."""
     v = ctl.control_values(settings)
-    lab = ctl.FIELD_LABELS
-    S, M = ids.SETTING_INPUT, ids.SETTING_MSG
+    groups: dict[str, list] = {}
+    for name, decl in DECLARED.items():
+        if decl.group is None:
+            continue
+        items = groups.setdefault(decl.group, [])
+        block = setting_field(name, v)
+        last = items[-1] if items else None
+        if decl.pair and isinstance(last, tuple) and last[0] == decl.pair:
+            last[1].append(block)
+        else:
+            items.append((decl.pair, [block]) if decl.pair else block)
+        if name in _AFTER:
+            items.append(_AFTER[name]())
 
-    def dd(f, options, clearable=False, placeholder=None):
-        return dcc.Dropdown(id=S[f], options=options, value=v[f], clearable=clearable,
-                            searchable=False, placeholder=placeholder)
+    def unpair(item):
+        return html.Div(className="cl-pair", children=item[1]) if isinstance(item, tuple) else item
 
-    def check(f, text):
-        return dcc.Checklist(id=S[f], options=[{"label": text, "value": ctl.ON}], value=v[f],
-                             className="cl-check")
-
-    group = lambda title, *children: html.Fieldset(className="cl-group", children=[  # noqa: E731
-        html.Legend(title), *children])
     return html.Div(className="cl-settings", children=[
         html.H2("Analysis choices"),
         html.Div(id=ids.SETTINGS_STATUS, className="cl-status"),
         message(ids.SETTINGS_DATA_MSG),
-        group("Time",
-              field(lab["origin"], dd("origin", ctl.choice_options(ctl.ORIGIN_LABELS)), M["origin"]),
-              field(lab["unit"], dd("unit", [{"label": u, "value": u} for u in opt.UNITS]),
-                    M["unit"]),
-              html.Div(className="cl-pair", children=[
-                  field(lab["time_min"], number(S["time_min"], v["time_min"],
-                                                placeholder="start"), M["time_min"]),
-                  field(lab["time_max"], number(S["time_max"], v["time_max"],
-                                                placeholder="end"), M["time_max"]),
-              ]),
-              field(lab["duplicates"], dd("duplicates", ctl.choice_options(ctl.DUPLICATE_LABELS)),
-                    M["duplicates"]),
-              field(lab["data_cut"], dcc.Input(id=S["data_cut"], type="text", value=v["data_cut"],
-                                               debounce=True, placeholder="latest visit date",
-                                               className="cl-input"),
-                    M["data_cut"], "YYYY-MM-DD: when the data end, for loss to follow-up.")),
-        group("Inclusion",
-              field(lab["min_visits"], number(S["min_visits"], v["min_visits"], step=1, min_=1),
-                    M["min_visits"]),
-              field("", check("require_covariate", "Drop subjects without the baseline covariate"),
-                    M["require_covariate"])),
-        group("Baseline covariate",
-              field(lab["covariate"], dd("covariate", [], clearable=True,
-                                         placeholder="first covariate"), M["covariate"]),
-              field(lab["transform"], dd("transform", ctl.choice_options(ctl.TRANSFORM_LABELS)),
-                    M["transform"]),
-              field(lab["center"], html.Div(className="cl-pair", children=[
-                  dd("center", ctl.choice_options(ctl.CENTER_CHOICES)),
-                  number(ids.SETTING_CENTER_VALUE, v["center_value"], placeholder="value"),
-              ]), M["center"], "On the transformed scale.")),
-        group("Groups (strata)",
-              field(lab["stratify_by"], dd("stratify_by", [], clearable=True,
-                                           placeholder="the baseline covariate"),
-                    M["stratify_by"]),
-              field(lab["strata_method"], dcc.RadioItems(
-                  id=S["strata_method"], options=ctl.choice_options(ctl.STRATA_METHOD_LABELS),
-                  value=v["strata_method"], className="cl-radio"), M["strata_method"]),
-              field(lab["n_strata"], number(S["n_strata"], v["n_strata"], step=1, min_=1),
-                    M["n_strata"]),
-              html.Div(id=ids.STRATA_SIZE_NOTE, className="cl-warn-note", role="status"),
-              field(lab["breaks"], dcc.Input(id=S["breaks"], type="text", value=v["breaks"],
-                                             debounce=True, placeholder="e.g. 10, 20, 40",
-                                             className="cl-input"),
-                    M["breaks"], "Inner cut points in the covariate's own units.")),
-        group("Residuals (for spread and correlation)",
-              field(lab["detrend"], dd("detrend", ctl.choice_options(ctl.DETREND_LABELS)),
-                    M["detrend"]),
-              html.Div(className="cl-pair", children=[
-                  field(lab["spline_df"], number(S["spline_df"], v["spline_df"], step=1, min_=1),
-                        M["spline_df"]),
-                  field(lab["lowess_frac"], number(S["lowess_frac"], v["lowess_frac"],
-                                                   min_=0.01), M["lowess_frac"]),
-              ]),
-              field("", check("detrend_within_strata", "Separate mean curve for each group"),
-                    M["detrend_within_strata"])),
-        group("Spread and correlation views",
-              html.Div(className="cl-pair", children=[
-                  field(lab["variogram_bins"], number(S["variogram_bins"], v["variogram_bins"],
-                                                      step=1, min_=1), M["variogram_bins"]),
-                  field(lab["variogram_max_lag"], number(S["variogram_max_lag"],
-                                                         v["variogram_max_lag"],
-                                                         placeholder="all"),
-                        M["variogram_max_lag"]),
-              ]),
-              field(lab["lag_width"], number(S["lag_width"], v["lag_width"], placeholder="auto"),
-                    M["lag_width"], "Width of each time-apart window, in time units.")),
+        *[html.Fieldset(className="cl-group", children=[html.Legend(title),
+                                                         *map(unpair, items)])
+          for title, items in groups.items()],
         html.Button("Back to start-up choices", id=ids.SETTINGS_RESET, className="cl-btn"),
     ])
+
+
+#: what the panel shows after a setting's field (not itself a setting)
+_AFTER = {"n_strata": lambda: html.Div(id=ids.STRATA_SIZE_NOTE, className="cl-warn-note",
+                                       role="status")}
+
+
+def setting_field(name: str, v: dict) -> html.Div:
+    """One setting's label, control, hint and message, as its declaration asks."""
+    decl = DECLARED[name]
+    id_, kind = ids.SETTING_INPUT[name], decl.kind
+    if kind == "switch":
+        control = dcc.Checklist(id=id_, options=[{"label": decl.check_text, "value": ctl.ON}],
+                                value=v[name], className="cl-check")
+        return field("", control, ids.SETTING_MSG[name], decl.hint)
+    options = ctl.choice_options(ctl.choice_labels(name)) if decl.choice_labels or \
+        decl.choices else []
+    if kind == "choice" and decl.radio:
+        control = dcc.RadioItems(id=id_, options=options, value=v[name], className="cl-radio")
+    elif kind in ("choice", "column", "center"):
+        control = dcc.Dropdown(id=id_, options=options, value=v[name],
+                               clearable=kind == "column", searchable=False,
+                               placeholder=decl.placeholder)
+        if kind == "center":
+            control = html.Div(className="cl-pair", children=[
+                control, number(ids.SETTING_CENTER_VALUE, v["center_value"], placeholder="value")])
+    elif kind in ("count", "number"):
+        control = number(id_, v[name], step=1 if kind == "count" else "any",
+                         min_=decl.lo if kind == "count" else decl.panel_min,
+                         placeholder=decl.placeholder)
+    else:                                 # date, breaks: typed text
+        control = dcc.Input(id=id_, type="text", value=v[name], debounce=True,
+                            placeholder=decl.placeholder, className="cl-input")
+    return field(decl.label, control, ids.SETTING_MSG[name], decl.hint)
 
 
 # ------------------------------------------------------------------ views

@@ -10,9 +10,8 @@ import math
 from dataclasses import dataclass, field, fields
 from urllib.parse import parse_qs, urlencode
 
-from analysis import options as opt
 from analysis.errors import CohortError
-from analysis.settings import Roles, Settings
+from analysis.settings import DECLARED, Roles, Settings
 
 #: view choices that are not analysis settings (kept in the URL too)
 VIEW_DEFAULTS: dict = {"draw": 40, "seed": 1, "order": "slope"}
@@ -21,14 +20,6 @@ MAX_DRAW = 500
 
 _ROLE_PARAMS = {"subject": "col-subject", "time": "col-time", "response": "col-response",
                 "event_date": "col-event", "covariates": "col-cov", "followup_end": "col-fu-end"}
-_FLOAT_OR_NONE = {"time_min", "time_max", "variogram_max_lag", "lag_width"}
-_INTS = {"min_visits": 1, "n_strata": 1, "spline_df": 1, "variogram_bins": 1}
-_BOOLS = {"require_covariate", "detrend_within_strata"}
-_CHOICES = {"origin": opt.ORIGINS, "unit": opt.UNITS, "duplicates": opt.DUPLICATE_POLICIES,
-            "date_order": opt.DATE_ORDERS,
-            "transform": opt.TRANSFORMS, "strata_method": opt.STRATA_METHODS,
-            "detrend": opt.DETRENDS}
-_NAMES_OR_NONE = {"covariate", "stratify_by", "data_cut"}  # data_cut: a date, checked by Settings
 
 
 def param_name(field_name: str) -> str:
@@ -84,7 +75,7 @@ def encode(*, data_key: str | None, roles: Roles | None, settings: Settings,
 def _format_value(name: str, value) -> str:
     if value is None:
         return "none"
-    if name == "breaks":
+    if DECLARED[name].kind == "breaks":
         return ",".join(_num(v) for v in value)
     if isinstance(value, bool):
         return "1" if value else "0"
@@ -167,40 +158,42 @@ def _decode_roles(params: dict, base_roles: Roles | None, problems: list) -> Rol
 
 
 def _parse_setting(name: str, text: str):
+    """A link parameter's value as its declaration reads it (ranges are left to Settings, but
+    for the smallest count)."""
     text = text.strip()
-    if name in _CHOICES:
-        if text not in _CHOICES[name]:
-            raise ValueError(f"expected one of {', '.join(_CHOICES[name])}")
+    decl = DECLARED[name]
+    kind = decl.kind
+    if kind == "choice":
+        if text not in decl.choices:
+            raise ValueError(f"expected one of {', '.join(decl.choices)}")
         return text
-    if name in _INTS:
+    if kind == "count":
         try:
             value = int(text)
         except ValueError:
             raise ValueError("expected a whole number") from None
-        if value < _INTS[name]:
-            raise ValueError(f"expected a whole number >= {_INTS[name]}")
+        if value < decl.lo:
+            raise ValueError(f"expected a whole number >= {decl.lo:g}")
         return value
-    if name in _BOOLS:
+    if kind == "switch":
         if text.lower() in ("1", "true", "yes", "on"):
             return True
         if text.lower() in ("0", "false", "no", "off"):
             return False
         raise ValueError("expected 1 or 0")
-    if name in _FLOAT_OR_NONE:
-        if text.lower() in ("", "none"):
+    if kind == "number":
+        if decl.optional and text.lower() in ("", "none"):
             return None
         return _finite(text)
-    if name == "lowess_frac":
-        return _finite(text)
-    if name in _NAMES_OR_NONE:
+    if kind in ("column", "date"):            # a date is checked by Settings
         return None if text.lower() in ("", "none") else text
-    if name == "center":
-        return text if text in opt.CENTER_WORDS else _finite(text)
-    if name == "breaks":
+    if kind == "center":
+        return text if text in decl.choices else _finite(text)
+    if kind == "breaks":
         if not text:
             return ()
         return tuple(_finite(t) for t in text.split(","))
-    raise ValueError("unknown setting")  # pragma: no cover - every field is handled above
+    raise ValueError("unknown setting")  # pragma: no cover - every kind is handled above
 
 
 def _finite(text: str) -> float:

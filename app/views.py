@@ -7,7 +7,6 @@ semivariogram.
 """
 from __future__ import annotations
 
-import hashlib
 import json
 
 import numpy as np
@@ -15,6 +14,7 @@ from dash import Input, Output, State, html
 from dash.exceptions import PreventUpdate
 
 from analysis.pipeline import Workbench
+from analysis.settings import json_key
 
 from . import draw, ids
 from .session import AppContext, NeedsInput, attempt
@@ -33,8 +33,7 @@ def render_key(context: AppContext, stage: str, data, roles, settings, *extra) -
         return "unusable:" + json.dumps([data, roles, settings, extra], default=str)
     d = s.to_dict()
     sub = {k: d[k] for k in Workbench.stage_fields(stage, s)}
-    raw = json.dumps([dataset.key, r.to_dict(), stage, sub, extra], sort_keys=True, default=str)
-    return hashlib.sha1(raw.encode()).hexdigest()
+    return json_key([dataset.key, r.to_dict(), stage, sub, extra])
 
 
 def _skip_if_same(key: str, last: str | None) -> None:

@@ -37,10 +37,69 @@ def test_unknown_setting_is_named():
 
 
 def test_stage_keys_change_only_with_their_own_fields():
+    # reference: the stage tables of Workbench.stage_fields (the one place stage keys are made)
+    from analysis.pipeline import Workbench
+
+    wb = Workbench()
     s = Settings()
+
+    def key(stage, settings):
+        return wb._key(stage, _Data(), None, settings)
+
     more_bins = s.replace(variogram_bins=20)
-    assert more_bins.key_for("subject_fits") == s.key_for("subject_fits")
-    assert more_bins.key_for("residuals") == s.key_for("residuals")
-    assert more_bins.key_for("variogram") != s.key_for("variogram")
+    assert key("subject_fits", more_bins) == key("subject_fits", s)
+    assert key("residuals", more_bins) == key("residuals", s)
+    assert key("variogram", more_bins) != key("variogram", s)
     fewer_visits = s.replace(min_visits=2)
-    assert fewer_visits.key_for("subject_fits") != s.key_for("subject_fits")
+    assert key("subject_fits", fewer_visits) != key("subject_fits", s)
+
+
+class _Data:
+    key = "same-data"
+
+
+def test_json_key_is_sha1_of_sorted_json():
+    # reference: hashlib.sha1 over json.dumps(sort_keys=True), computed here independently
+    import hashlib
+    import json
+
+    from analysis.settings import json_key
+
+    value = {"b": [1, 2.5], "a": None}
+    expect = hashlib.sha1(json.dumps(value, sort_keys=True).encode()).hexdigest()
+    assert json_key(value) == expect and json_key(value, 16) == expect[:16]
+
+
+class _Odd:
+    """A value no setting accepts (not a number, text, true/false or list)."""
+
+
+@pytest.mark.parametrize("name", sorted(Settings.__dataclass_fields__))
+def test_every_bad_value_names_its_setting(name):
+    # reference: the field names of the Settings dataclass itself; each refuses a foreign object
+    with pytest.raises(SettingsError) as info:
+        Settings(**{name: _Odd()})
+    assert info.value.field == name
+
+
+def test_unknown_or_malformed_settings_name_the_settings():
+    for bad in ({"bins": 3}, ["min_visits", 3]):
+        with pytest.raises(SettingsError) as info:
+            Settings.from_dict(bad)
+        assert info.value.field == "settings"
+
+
+@pytest.mark.parametrize("field, call", [
+    ("strata_method", lambda: __import__("analysis.strata", fromlist=["x"]).cut_strata(
+        [1.0, 2.0, 3.0], method="thirds")),
+    ("transform", lambda: __import__("analysis.strata", fromlist=["x"]).transform_values(
+        [1.0, 2.0], "thirds")),
+])
+def test_estimator_guards_say_what_settings_say(field, call):
+    # reference: the message Settings itself gives for the same bad value
+    with pytest.raises(SettingsError) as direct:
+        call()
+    with pytest.raises(SettingsError) as via_settings:
+        Settings(**{field: "thirds"})
+    assert direct.value.field == field
+    assert str(direct.value) == str(via_settings.value)
