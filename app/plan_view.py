@@ -115,9 +115,10 @@ def plan_section() -> html.Section:
                        controls,
                        html.Div(id=GENERAL_MSG, className="cl-msg", role="alert"),
                        html.Div(id=ANSWER, className="cl-effect", role="status"),
-                       html.Div(className="cl-graph", children=dcc.Graph(
-                           id=GRAPH, config=GRAPH_CONFIG, style={"height": "420px"},
-                           figure=_blank())),
+                       html.Div(className="cl-graph", children=dcc.Loading(
+                           type="circle", delay_show=500, children=dcc.Graph(
+                               id=GRAPH, config=GRAPH_CONFIG, style={"height": "420px"},
+                               figure=_blank()))),
                        html.H3("Subjects needed under each fitted covariance"),
                        html.Div(id=TABLE),
                        html.Div(id=ASSUMPTIONS),
