@@ -17,6 +17,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .errors import ModelError
+from .jsonsafe import json_safe
 from .options import TRANSFORM_STEP, TRANSFORMS
 
 #: The caution every statement ends with.
@@ -200,13 +201,7 @@ class InteractionSummary:
 
     def to_json(self) -> dict:
         """Plain dict (JSON-safe; NaN → None)."""
-        out = {}
-        for k, v in self.__dict__.items():
-            if isinstance(v, float):
-                out[k] = v if np.isfinite(v) else None
-            else:
-                out[k] = v
-        return out
+        return json_safe(self.__dict__)
 
 
 def interaction_summary(fit, *, term: str, transform: str, covariate_label: str,

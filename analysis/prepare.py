@@ -24,7 +24,7 @@ from .loading import (NON_FINITE_TEXT, column_kind, date_fraction, decimal_comma
                       nested_cells, read_dates)
 from .panel import Panel
 from .settings import Roles, Settings
-from .strata import Strata, categorical_strata, center_values, cut_strata, transform_values
+from .strata import MISSING_LABEL, Strata, categorical_strata, center_values, cut_strata, transform_values
 
 # --------------------------------------------------------------------------- results
 @dataclass(frozen=True)
@@ -242,7 +242,7 @@ class PreparedCohort:
         """Long table in panel row order: subject, time, response, stratum, stratum_label."""
         p = self.panel
         codes = self.strata.codes[p.codes]
-        labels = np.asarray(self.strata.labels + ("No value",), dtype=object)
+        labels = np.asarray(self.strata.labels + (MISSING_LABEL,), dtype=object)
         return pd.DataFrame({
             "subject": self.subject_ids[p.codes],
             "time": p.time,
@@ -408,7 +408,7 @@ def stratify(selection: CohortSelection, settings: Settings) -> PreparedCohort:
                             transform=settings.transform if by == primary else "none")
     else:
         strata = categorical_strata(base[by].to_numpy(object), name=by)
-    labels = np.asarray(tuple(strata.labels) + ("No value",), dtype=object)
+    labels = np.asarray(tuple(strata.labels) + (MISSING_LABEL,), dtype=object)
     base["stratum"] = strata.codes
     base["stratum_label"] = labels[strata.codes]
     warnings.extend(getattr(strata, "notes", ()))

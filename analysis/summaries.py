@@ -11,7 +11,9 @@ import numpy as np
 import pandas as pd
 from statsmodels.nonparametric.smoothers_lowess import lowess as _sm_lowess
 
+from .confidence import CONFIDENCE_LEVEL, z_quantile
 from .errors import DataError, SettingsError
+from .jsonsafe import json_safe
 from .panel import Panel
 from .strata import MISSING_LABEL, Strata, cut_strata
 
@@ -128,7 +130,7 @@ LAST_VISIT = "last visit"
 #: one gap, every subject who missed the visit just before the data end would count as leaving)
 OVERDUE_GAPS = 2.0
 #: two-sided level of the retention band
-BAND_LEVEL = 0.95
+BAND_LEVEL = CONFIDENCE_LEVEL
 BAND_METHOD = ("95% pointwise band from Greenwood's variance on the log(−log) scale, "
                "after Kalbfleisch & Prentice")
 RETENTION_COLUMNS = ("stratum", "label", "time", "retained", "lo", "hi", "at_risk", "left")
@@ -216,10 +218,10 @@ class Dropout:
     def to_json(self) -> dict:
         """Plain dict (NaN as None) of the horizon, the rule, the counts and the tables."""
         return {
-            "horizon": _plain(self.horizon),
+            "horizon": json_safe(self.horizon),
             "horizon_rule": self.horizon_rule,
             "classified": self.classified,
-            "typical_gap": _plain(self.typical_gap),
+            "typical_gap": json_safe(self.typical_gap),
             "status_rule": self.status_rule,
             "followup_source": self.followup_source,
             "band": BAND_METHOD,
@@ -273,7 +275,7 @@ def retention_curve(time, left) -> pd.DataFrame:
     s = np.cumprod(1.0 - de / ne)
     with np.errstate(divide="ignore", invalid="ignore"):
         gw = np.cumsum(np.where(ne > de, de / (ne * (ne - de)), np.inf))
-        z = _z(BAND_LEVEL)
+        z = z_quantile(BAND_LEVEL)
         log_s = np.log(s)
         theta = np.log(-log_s)
         se = np.sqrt(gw) / np.abs(log_s)
@@ -449,12 +451,6 @@ def cohort_dropout(cohort, *, data_cut: str | None = None, horizon: float | None
                            followup_source=source, notes=notes, time_unit=cohort.settings.unit)
 
 
-def _z(level: float) -> float:
-    from scipy.stats import norm
-
-    return float(norm.ppf(0.5 + level / 2.0))
-
-
 def _profiles(panel: Panel, last_time: np.ndarray, n_bins: int) -> pd.DataFrame:
     """Mean response per (dropout cohort, time bin), via one bincount."""
     cohorts = cut_strata(last_time, method="quantile", n=4, name="last visit")
@@ -522,16 +518,6 @@ def _num(x: float) -> str:
     return f"{x:.4g}"
 
 
-def _plain(v):
-    if isinstance(v, (np.integer,)):
-        return int(v)
-    if isinstance(v, (np.bool_,)):
-        return bool(v)
-    if isinstance(v, (float, np.floating)):
-        return None if math.isnan(v) else float(v)
-    return v
-
-
 def _records(frame: pd.DataFrame) -> list[dict]:
-    cols = {c: [_plain(v) for v in frame[c].tolist()] for c in frame.columns}
+    cols = {c: json_safe(frame[c].tolist()) for c in frame.columns}
     return [{c: cols[c][i] for c in frame.columns} for i in range(len(frame))]

@@ -27,6 +27,7 @@ import pandas as pd
 import plotly.graph_objects as go
 from plotly.subplots import make_subplots
 
+from analysis.confidence import z_quantile
 from analysis.summaries import ALL_LABEL, FOLLOWED, LAST_VISIT, LEFT_EARLY
 
 from . import palette as pal
@@ -942,7 +943,7 @@ def dropout_figure(dropout, *, look: CohortLook, highlight_stratum=None) -> go.F
     for group, (symbol, shift) in shapes.items():
         g = tab[(tab["followup"] == group) & (tab["n"] > 0)]
         labs = g["label"].astype(str).to_numpy()
-        half = 1.96 * g["sd"].to_numpy(float) / np.sqrt(g["n"].to_numpy(float))
+        half = z_quantile() * g["sd"].to_numpy(float) / np.sqrt(g["n"].to_numpy(float))
         colours = [pal.REFERENCE_COLOR if lab == ALL_LABEL else look.colour(lab) for lab in labs]
         opac = [1.0 if lab == ALL_LABEL else _strength(look, lab, highlight_stratum)
                 for lab in labs]
