@@ -22,6 +22,7 @@ from . import options as opt
 from .errors import DataError, SettingsError, clip, row_list, rows_hold
 from .loading import (NON_FINITE_TEXT, column_kind, date_fraction, decimal_comma_numbers,
                       nested_cells, read_dates)
+from .numbers import plain_number
 from .panel import Panel
 from .settings import Roles, Settings
 from .strata import MISSING_LABEL, Strata, categorical_strata, center_values, cut_strata, transform_values
@@ -332,7 +333,8 @@ def select_cohort(df: pd.DataFrame, roles: Roles, settings: Settings) -> CohortS
         lo = -np.inf if settings.time_min is None else settings.time_min
         hi = np.inf if settings.time_max is None else settings.time_max
         work = work[((work["time"] >= lo) & (work["time"] <= hi)).to_numpy()]
-        tracker.record(f"Visits inside the time window [{_fmt(lo)}, {_fmt(hi)}] {settings.unit}",
+        tracker.record(f"Visits inside the time window [{plain_number(lo)}, {plain_number(hi)}] "
+                       f"{settings.unit}",
                        work["subject"].to_numpy())
 
     # one sort by (subject, time); every later step keeps this order
@@ -714,7 +716,3 @@ def _time_label(roles: Roles, settings: Settings) -> str:
     if settings.origin == "first-visit":
         return f"{unit} since first visit"
     return f"{roles.time} ({settings.unit})"
-
-
-def _fmt(v: float) -> str:
-    return "−∞" if v == -np.inf else "∞" if v == np.inf else f"{v:g}"

@@ -14,6 +14,7 @@ from statsmodels.nonparametric.smoothers_lowess import lowess as _sm_lowess
 from .confidence import CONFIDENCE_LEVEL, z_quantile
 from .errors import DataError, SettingsError
 from .jsonsafe import json_safe
+from .numbers import plain_number
 from .panel import Panel
 from .strata import MISSING_LABEL, Strata, cut_strata
 
@@ -366,12 +367,12 @@ def dropout_summary(panel: Panel, strata: Strata, *, horizon: float | None = Non
     if horizon is None:
         horizon = DEFAULT_HORIZON_SHARE * t_max
         rule = (f"horizon = {DEFAULT_HORIZON_SHARE:.0%} of the longest follow-up "
-                f"({_num(horizon)}; descriptive convention)")
+                f"({plain_number(horizon, '.4g')}; descriptive convention)")
     else:
         horizon = float(horizon)
         if not math.isfinite(horizon):
             raise SettingsError(f"horizon == {horizon}, must be a finite time")
-        rule = f"horizon = {_num(horizon)} (chosen)"
+        rule = f"horizon = {plain_number(horizon, '.4g')} (chosen)"
     ids = np.arange(m) if subject_ids is None else np.asarray(subject_ids)
     if ids.shape != (m,):
         raise DataError(f"subject_ids has {ids.size} entries, expected one per subject ({m})")
@@ -394,8 +395,8 @@ def dropout_summary(panel: Panel, strata: Strata, *, horizon: float | None = Non
         times = np.where(left, last_time, np.minimum(pot, horizon))
         events = left
         status_rule = (
-            f"left early = last visit more than {_num(overdue_gaps)} typical gaps "
-            f"({_num(overdue_gaps)} × {gap:.3g} = {slack:.3g} {time_unit}".rstrip()
+            f"left early = last visit more than {plain_number(overdue_gaps, '.4g')} typical gaps "
+            f"({plain_number(overdue_gaps, '.4g')} × {gap:.3g} = {slack:.3g} {time_unit}".rstrip()
             + "; typical gap = median time "
             "between a subject's consecutive visits) before the horizon and before the end of "
             "the subject's potential follow-up; censored = potential follow-up ends before the "
@@ -512,10 +513,6 @@ def _mean(x: np.ndarray) -> float:
     x = np.asarray(x, dtype=float)
     x = x[~np.isnan(x)]
     return float(x.mean()) if x.size else math.nan
-
-
-def _num(x: float) -> str:
-    return f"{x:.4g}"
 
 
 def _records(frame: pd.DataFrame) -> list[dict]:
