@@ -21,6 +21,7 @@ import pandas as pd
 
 from . import options as opt
 from .errors import DataError, SettingsError
+from .lagbins import edge_bin, equal_width_edges
 from .numbers import MINUS, compact, fixed  # noqa: F401  (MINUS: the minus of labels, importable here as before)
 
 #: separator between the ends of a range in a stratum label (spaced en dash)
@@ -251,11 +252,11 @@ def cut_strata(values, *, method: str, n: int = 4, breaks=(), name: str = "covar
     cut_v = v
     if method == "equal-width" and transform != "none":
         cut_v = transform_values(v, transform, name=name)
-        cut_edges = np.linspace(float(cut_v[ok].min()), float(cut_v[ok].max()), int(n) + 1)
+        cut_edges = equal_width_edges(float(cut_v[ok].min()), float(cut_v[ok].max()), n)
         edges = _untransform(cut_edges, transform)
         edges[0], edges[-1] = lo, hi
     elif method == "equal-width":
-        edges = np.linspace(lo, hi, int(n) + 1)
+        edges = equal_width_edges(lo, hi, n)
     elif method == "quantile":
         edges = np.quantile(v[ok], np.linspace(0.0, 1.0, int(n) + 1))
     else:
@@ -290,7 +291,7 @@ def cut_strata(values, *, method: str, n: int = 4, breaks=(), name: str = "covar
         edges, cut_edges = edges[first], unique
     k = edges.size - 1
     codes = np.full(v.shape, -1, dtype=np.int64)
-    codes[ok] = np.clip(np.searchsorted(cut_edges, cut_v[ok], side="right") - 1, 0, k - 1)
+    codes[ok] = edge_bin(cut_v[ok], cut_edges)
     labels = _range_labels(edges, unit_label)
     counts = np.bincount(codes[ok], minlength=k)
     for j in np.flatnonzero(counts == 0):

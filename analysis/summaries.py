@@ -14,6 +14,7 @@ from statsmodels.nonparametric.smoothers_lowess import lowess as _sm_lowess
 from .confidence import CONFIDENCE_LEVEL, z_quantile
 from .errors import DataError, SettingsError
 from .jsonsafe import json_safe
+from .lagbins import edge_bin, equal_width_edges
 from .numbers import plain_number
 from .panel import Panel
 from .strata import MISSING_LABEL, Strata, cut_strata
@@ -458,9 +459,9 @@ def _profiles(panel: Panel, last_time: np.ndarray, n_bins: int) -> pd.DataFrame:
     k = len(cohorts.labels)
     t = panel.time
     lo, hi = float(t.min()), float(t.max())
-    edges = np.linspace(lo, hi, n_bins + 1) if hi > lo else np.array([lo, lo + 1.0])
+    edges = equal_width_edges(lo, hi, n_bins)
     nb = edges.size - 1
-    b = np.clip(np.searchsorted(edges, t, side="right") - 1, 0, nb - 1)
+    b = edge_bin(t, edges)
     key = cohorts.codes[panel.codes] * nb + b
     n = np.bincount(key, minlength=k * nb)
     total = np.bincount(key, weights=panel.y, minlength=k * nb)

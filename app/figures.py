@@ -28,6 +28,7 @@ import plotly.graph_objects as go
 from plotly.subplots import make_subplots
 
 from analysis.confidence import z_quantile
+from analysis.lagbins import edge_bin, equal_width_edges
 from analysis.summaries import ALL_LABEL, FOLLOWED, LAST_VISIT, LEFT_EARLY
 
 from . import palette as pal
@@ -273,9 +274,9 @@ def group_means(full: pd.DataFrame, *, strata: Sequence[str], n_bins: int = MEAN
         return pd.DataFrame(columns=cols)
     t, y, lab = t[ok], y[ok], lab[ok]
     lo, hi = float(t.min()), float(t.max())
-    edges = np.linspace(lo, hi, n_bins + 1) if hi > lo else np.array([lo, lo + 1.0])
+    edges = equal_width_edges(lo, hi, n_bins)
     nb = edges.size - 1
-    b = np.clip(np.searchsorted(edges, t, side="right") - 1, 0, nb - 1)
+    b = edge_bin(t, edges)
     codes = pd.Categorical(lab, categories=list(strata)).codes.astype(np.int64)
     keep = codes >= 0
     key = codes[keep] * nb + b[keep]

@@ -57,3 +57,14 @@ def test_plain_number_keeps_python_format_with_ascii_minus():
         assert plain_number(v) == format(v, "g")
         assert plain_number(v, ".4g") == format(v, ".4g")
     assert plain_number(-math.inf) == MINUS + "∞"
+
+
+def test_edge_bin_side_rule_and_equal_width_edges():
+    # hand-worked: edges 0, 1, 2, 3; an inner edge value goes to the bin above it, the last
+    # edge stays in the last bin, values outside are clipped
+    from analysis.lagbins import edge_bin, equal_width_edges
+
+    edges = equal_width_edges(0.0, 3.0, 3)
+    assert np.array_equal(edges, np.linspace(0.0, 3.0, 4))   # reference: numpy.linspace
+    assert edge_bin([-1.0, 0.0, 0.999, 1.0, 2.5, 3.0, 9.0], edges).tolist() == [0, 0, 0, 1, 2, 2, 2]
+    assert equal_width_edges(2.0, 2.0, 5).tolist() == [2.0, 3.0]
