@@ -133,3 +133,10 @@ def edge_bin(x, edges) -> np.ndarray:
     """
     edges = np.asarray(edges, dtype=float)
     return np.clip(np.searchsorted(edges, x, side="right") - 1, 0, edges.size - 2)
+
+
+def equal_width_bins(x, n: int) -> tuple[np.ndarray, np.ndarray]:
+    """``n`` equal-width bins over the range of ``x``: (edges, bin of each value by :func:`edge_bin`)."""
+    x = np.asarray(x, dtype=float)
+    edges = equal_width_edges(float(x.min()), float(x.max()), n)
+    return edges, edge_bin(x, edges)

@@ -14,7 +14,7 @@ from statsmodels.nonparametric.smoothers_lowess import lowess as _sm_lowess
 from .confidence import CONFIDENCE_LEVEL, z_quantile
 from .errors import DataError, SettingsError
 from .jsonsafe import json_safe
-from .lagbins import edge_bin, equal_width_edges
+from .lagbins import equal_width_bins
 from .numbers import plain_number
 from .panel import Panel
 from .strata import MISSING_LABEL, Strata, cut_strata
@@ -458,10 +458,8 @@ def _profiles(panel: Panel, last_time: np.ndarray, n_bins: int) -> pd.DataFrame:
     cohorts = cut_strata(last_time, method="quantile", n=4, name="last visit")
     k = len(cohorts.labels)
     t = panel.time
-    lo, hi = float(t.min()), float(t.max())
-    edges = equal_width_edges(lo, hi, n_bins)
+    edges, b = equal_width_bins(t, n_bins)
     nb = edges.size - 1
-    b = edge_bin(t, edges)
     key = cohorts.codes[panel.codes] * nb + b
     n = np.bincount(key, minlength=k * nb)
     total = np.bincount(key, weights=panel.y, minlength=k * nb)

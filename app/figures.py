@@ -28,7 +28,7 @@ import plotly.graph_objects as go
 from plotly.subplots import make_subplots
 
 from analysis.confidence import z_quantile
-from analysis.lagbins import edge_bin, equal_width_edges
+from analysis.lagbins import equal_width_bins
 from analysis.summaries import ALL_LABEL, FOLLOWED, LAST_VISIT, LEFT_EARLY
 
 from . import palette as pal
@@ -273,10 +273,8 @@ def group_means(full: pd.DataFrame, *, strata: Sequence[str], n_bins: int = MEAN
     if not ok.any():
         return pd.DataFrame(columns=cols)
     t, y, lab = t[ok], y[ok], lab[ok]
-    lo, hi = float(t.min()), float(t.max())
-    edges = equal_width_edges(lo, hi, n_bins)
+    edges, b = equal_width_bins(t, n_bins)
     nb = edges.size - 1
-    b = edge_bin(t, edges)
     codes = pd.Categorical(lab, categories=list(strata)).codes.astype(np.int64)
     keep = codes >= 0
     key = codes[keep] * nb + b[keep]

@@ -68,3 +68,15 @@ def test_edge_bin_side_rule_and_equal_width_edges():
     assert np.array_equal(edges, np.linspace(0.0, 3.0, 4))   # reference: numpy.linspace
     assert edge_bin([-1.0, 0.0, 0.999, 1.0, 2.5, 3.0, 9.0], edges).tolist() == [0, 0, 0, 1, 2, 2, 2]
     assert equal_width_edges(2.0, 2.0, 5).tolist() == [2.0, 3.0]
+
+
+def test_equal_width_bins_over_the_range():
+    # reference: numpy.histogram puts the same counts in equal-width bins over the range
+    # (its last bin is closed too)
+    from analysis.lagbins import equal_width_bins
+
+    x = np.array([0.0, 0.5, 1.0, 1.5, 2.0, 2.0, 3.9, 4.0])
+    edges, b = equal_width_bins(x, 4)
+    counts, ref_edges = np.histogram(x, bins=4)
+    assert np.allclose(edges, ref_edges)
+    assert np.bincount(b, minlength=4).tolist() == counts.tolist()
