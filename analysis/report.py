@@ -10,7 +10,6 @@ the file works offline). Nothing here touches the disk.
 from __future__ import annotations
 
 import html
-import math
 from dataclasses import dataclass
 from datetime import datetime, timezone
 
