@@ -13,6 +13,7 @@ import pandas as pd
 from scipy import stats
 
 from .errors import ModelError
+from .jsonsafe import json_float
 
 COLUMNS = ("model", "structure", "method", "n_params", "loglik", "aic", "bic",
            "delta_aic", "delta_bic", "converged", "boundary")
@@ -127,8 +128,8 @@ class LRTResult:
         """Plain dict (JSON-safe; NaN → None)."""
         return {
             "null": self.null, "alt": self.alt, "kind": self.kind,
-            "statistic": _num(self.statistic), "df": int(self.df), "p": _num(self.p),
-            "p_naive": _num(self.p_naive),
+            "statistic": json_float(self.statistic), "df": int(self.df), "p": json_float(self.p),
+            "p_naive": json_float(self.p_naive),
             "mixture": None if self.mixture is None else [[float(w), int(k)] for w, k in self.mixture],
             "n_boundary": int(self.n_boundary), "method": self.method, "reference": self.reference,
         }
@@ -354,8 +355,3 @@ def _check_correlation(a, b, la, lb):
 
 def _label(f) -> str:
     return str(getattr(f, "label", None) or f.structure)
-
-
-def _num(v):
-    v = float(v)
-    return v if np.isfinite(v) else None

@@ -16,6 +16,7 @@ from . import options as opt
 from .errors import DataError, SettingsError
 from .settings import check_choice, check_value
 from .panel import Panel
+from .splines import natural_spline_basis, spline_knots
 
 #: points per group in the drawn mean curve
 CURVE_POINTS = 100
@@ -147,51 +148,6 @@ def detrend(panel: Panel, *, method: str, spline_df: int = 4, lowess_frac: float
                      method=method, notes=tuple(notes))
 
 
-def natural_spline_basis(x, knots) -> np.ndarray:
-    """Natural cubic spline basis (with intercept column) at ``x`` for sorted distinct ``knots``.
-
-    Parameters
-    ----------
-    x : array_like of float
-    knots : array_like of float, at least 2 distinct sorted values
-
-    Returns
-    -------
-    ndarray (len(x), len(knots))
-        Columns ``1, u, N_3..N_K`` with ``u`` the rescaled ``x`` (see ``detrend``).
-    """
-    k = np.asarray(knots, dtype=float)
-    lo, span = k[0], k[-1] - k[0]
-    u = (np.asarray(x, dtype=float) - lo) / span
-    xi = (k - lo) / span
-    cols = [np.ones_like(u), u]
-    if k.size > 2:
-        cube = np.maximum(u[:, None] - xi[None, :], 0.0) ** 3
-        d = (cube[:, :-1] - cube[:, -1:]) / (xi[-1] - xi[:-1])[None, :]
-        cols.extend((d[:, :-1] - d[:, -1:]).T)
-    return np.column_stack(cols)
-
-
-def spline_knots(time, spline_df: int) -> np.ndarray:
-    """Knots of the detrending spline: min, max and quantiles of the distinct times.
-
-    Parameters
-    ----------
-    time : array_like of float
-    spline_df : int
-        Degrees of freedom besides the intercept; ``spline_df + 1`` knots
-        before duplicate knots are merged.
-
-    Returns
-    -------
-    ndarray
-        Sorted distinct knots.
-    """
-    ut = np.unique(np.asarray(time, dtype=float))
-    inner = np.quantile(ut, np.linspace(0.0, 1.0, int(spline_df) + 1)[1:-1]) if ut.size else ut
-    return np.unique(np.concatenate(([ut.min()], inner, [ut.max()])))
-
-
 # --------------------------------------------------------------------------- helpers
 def _fit(t, y, at, method, spline_df, frac, notes):
     """Fit the mean model on (t, y) and evaluate it at ``at``; returns (values, None, text)."""
@@ -201,16 +157,17 @@ def _fit(t, y, at, method, spline_df, frac, notes):
             notes.append("all times are equal; used the mean")
         return np.full(np.shape(at), float(np.mean(y))), None, "grand mean"
     if method == "linear" or (method == "spline" and spline_df == 1):
-        return _lstsq_eval(natural_spline_basis(t, [t.min(), t.max()]),
-                           natural_spline_basis(at, [t.min(), t.max()]), y), None, \
+        return _lstsq_eval(natural_spline_basis(t, [t.min(), t.max()], intercept=True),
+                           natural_spline_basis(at, [t.min(), t.max()], intercept=True), y), None, \
             "straight line in time (pooled least squares)"
     if method == "spline":
         use_df = min(spline_df, n_unique - 1)
         if use_df < spline_df:
             notes.append(f"only {n_unique} distinct times; spline uses {use_df} df "
                          f"instead of {spline_df}")
-        knots = spline_knots(t, use_df)
-        vals = _lstsq_eval(natural_spline_basis(t, knots), natural_spline_basis(at, knots), y)
+        knots = spline_knots(t, use_df, rule="distinct")
+        vals = _lstsq_eval(natural_spline_basis(t, knots, intercept=True),
+                           natural_spline_basis(at, knots, intercept=True), y)
         text = (f"natural cubic spline in time with {knots.size - 1} df "
                 f"(knots at {', '.join(f'{k:.3g}' for k in knots)})")
         if use_df < spline_df:

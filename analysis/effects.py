@@ -17,6 +17,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from .errors import ModelError
+from .jsonsafe import json_safe
+from .numbers import format_number, parse_number  # noqa: F401  (parse_number: importable here as before)
 from .options import TRANSFORM_STEP, TRANSFORMS
 
 #: The caution every statement ends with.
@@ -121,11 +123,11 @@ def effect_statement(estimate: float, lo: float, hi: float, *, transform: str,
     steps = effect_steps(estimate, lo, hi, transform=transform)
     first = steps[0]
     text = (f"{_cap(first.step)} {cov} is associated with a change in the {response_label} slope "
-            f"of {_fmt(first.estimate)}{unit} {per} (95% CI {_fmt(first.lo)} to "
-            f"{_fmt(first.hi)}; {se_kind} SE)")
+            f"of {format_number(first.estimate)}{unit} {per} (95% CI {format_number(first.lo)} to "
+            f"{format_number(first.hi)}; {se_kind} SE)")
     for s in steps[1:]:
-        text += (f"; equivalently, {s.step} {cov}: {_fmt(s.estimate)}{unit} {per} "
-                 f"(95% CI {_fmt(s.lo)} to {_fmt(s.hi)})")
+        text += (f"; equivalently, {s.step} {cov}: {format_number(s.estimate)}{unit} {per} "
+                 f"(95% CI {format_number(s.lo)} to {format_number(s.hi)})")
     text += "."
     if lo <= 0 <= hi:
         text += (f" The interval includes 0: no clear evidence of a difference in slope "
@@ -200,13 +202,7 @@ class InteractionSummary:
 
     def to_json(self) -> dict:
         """Plain dict (JSON-safe; NaN → None)."""
-        out = {}
-        for k, v in self.__dict__.items():
-            if isinstance(v, float):
-                out[k] = v if np.isfinite(v) else None
-            else:
-                out[k] = v
-        return out
+        return json_safe(self.__dict__)
 
 
 def interaction_summary(fit, *, term: str, transform: str, covariate_label: str,
@@ -258,30 +254,6 @@ def interaction_summary(fit, *, term: str, transform: str, covariate_label: str,
 
 
 # --------------------------------------------------------------------------- formatting
-def format_number(v: float, digits: int = 3) -> str:
-    """``digits`` significant figures (trailing zeros dropped), Unicode minus, no exponent for ordinary sizes."""
-    v = float(v)
-    if v == 0:
-        return "0"
-    mag = math.floor(math.log10(abs(v)))
-    if -5 <= mag < 7:
-        decimals = max(digits - 1 - mag, 0)
-        s = f"{v:.{decimals}f}"
-        if "." in s:
-            s = s.rstrip("0").rstrip(".")
-    else:
-        s = f"{v:.{digits - 1}e}"
-    return s.replace("-", "−")
-
-
-def parse_number(text: str) -> float:
-    """Inverse of :func:`format_number` (Unicode minus accepted)."""
-    return float(text.replace("−", "-"))
-
-
-_fmt = format_number
-
-
 def _singular(unit: str) -> str:
     unit = unit.strip()
     return unit[:-1] if unit.endswith("s") and len(unit) > 1 else unit

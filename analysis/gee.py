@@ -15,8 +15,10 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
+from .confidence import t_quantile
 from .errors import ModelError
 from .panel import Panel
+from .jsonsafe import json_float
 
 #: Working correlation structures offered.
 WORKING: tuple[str, ...] = ("exchangeable", "autoregressive", "independence")
@@ -86,7 +88,7 @@ class GEEFit:
         est = np.asarray(self.beta, float)
         rse = np.sqrt(np.diag(self.robust_cov_beta))
         df = self.robust_df
-        q = stats.t.ppf(0.975, df)
+        q = t_quantile(df)
         with np.errstate(divide="ignore", invalid="ignore"):
             z = est / rse
         return pd.DataFrame({
@@ -104,11 +106,11 @@ class GEEFit:
     def to_json(self) -> dict:
         """Plain dict: name, working, fixed (term, estimate, robust_se, lo, hi, p), working_params."""
         ff = self.fixed_frame()
-        fixed = [{"term": str(r["term"]), **{k: _num(r[k]) for k in
+        fixed = [{"term": str(r["term"]), **{k: json_float(r[k]) for k in
                                               ("estimate", "robust_se", "df", "lo", "hi", "p")}}
                  for r in ff.to_dict("records")]
         return {"name": self.label, "working": self.working, "fixed": fixed,
-                "working_params": {k: _num(v) for k, v in self.working_params.items()},
+                "working_params": {k: json_float(v) for k, v in self.working_params.items()},
                 "n_subjects": int(self.n_subjects), "n_obs": int(self.n_obs),
                 "converged": bool(self.converged), "message": self.message}
 
@@ -298,8 +300,3 @@ def _time_gap_autoregressive():
                     "at one time unit")
 
     return TimeGapAutoregressive(grid=False)
-
-
-def _num(v):
-    v = float(v)
-    return v if np.isfinite(v) else None

@@ -30,3 +30,12 @@ def json_safe(obj):
     if isinstance(obj, pd.Timestamp):
         return obj.isoformat()
     return str(obj)
+
+
+def json_float(x):
+    """``x`` as a Python float, or None when it is NaN or infinite (for numeric JSON fields).
+
+    Unlike :func:`json_safe`, an integer becomes a float (``3`` → ``3.0``), so a field keeps
+    one JSON type whatever numpy type the value had.
+    """
+    return json_safe(float(x))

@@ -12,6 +12,12 @@ rule here, so a value nominally on an edge always goes to the same side:
   (:func:`merge_close`), and a set of values lies on a lattice ``k * step``
   when each is within ``EDGE_TOL * step`` of a multiple of ``step``
   (:func:`lattice_step`).
+
+Bins given by an array of edges (equal-width time bins of the dropout profiles and the
+mean-response figure, strata cut on a covariate) use :func:`edge_bin`: exact comparison
+with the edges, the same side rule (an edge value goes to the bin above it, the last bin
+keeps its right edge) but no allowance, since those edges are not on a time lattice.
+:func:`equal_width_edges` makes the equal-width edges.
 """
 from __future__ import annotations
 
@@ -109,3 +115,28 @@ def lattice_step(distinct) -> float | None:
     fits = np.all(np.abs(ratio - np.rint(ratio)) <= EDGE_TOL, axis=1)
     hit = np.flatnonzero(fits)
     return float(d[0] / q[hit[0], 0]) if hit.size else None
+
+
+def equal_width_edges(lo: float, hi: float, n: int) -> np.ndarray:
+    """``n + 1`` equally spaced edges from ``lo`` to ``hi`` (``linspace``).
+
+    When ``hi == lo`` there is one bin ``[lo, lo + 1]`` so that every value has a bin.
+    """
+    return np.linspace(lo, hi, int(n) + 1) if hi > lo else np.array([lo, lo + 1.0])
+
+
+def edge_bin(x, edges) -> np.ndarray:
+    """Bin ``k`` with ``edges[k] <= x < edges[k + 1]`` for each value, clipped to 0..len(edges)-2.
+
+    Exact comparison (no :data:`EDGE_TOL`): a value equal to an inner edge is in the bin
+    above it; values at or beyond the last edge go to the last bin, below the first to bin 0.
+    """
+    edges = np.asarray(edges, dtype=float)
+    return np.clip(np.searchsorted(edges, x, side="right") - 1, 0, edges.size - 2)
+
+
+def equal_width_bins(x, n: int) -> tuple[np.ndarray, np.ndarray]:
+    """``n`` equal-width bins over the range of ``x``: (edges, bin of each value by :func:`edge_bin`)."""
+    x = np.asarray(x, dtype=float)
+    edges = equal_width_edges(float(x.min()), float(x.max()), n)
+    return edges, edge_bin(x, edges)

@@ -20,6 +20,7 @@ import pandas as pd
 from .errors import DataError, SettingsError
 from .lagbins import EDGE_TOL, bin_count, bin_index  # noqa: F401  (EDGE_TOL: importable here as before)
 from .panel import Panel
+from .jsonsafe import json_float
 
 #: fewer subjects in both windows than this gives a NaN correlation (count kept)
 MIN_PAIRS = 3
@@ -73,11 +74,11 @@ class LagCorrelation:
         """Plain-dict form (NaN becomes None)."""
         windows = []
         for row in self.windows.to_dict("records"):
-            windows.append({c: (int(row[c]) if c in ("window", "subjects") else _num(row[c]))
+            windows.append({c: (int(row[c]) if c in ("window", "subjects") else json_float(row[c]))
                             for c in WINDOW_COLUMNS})
         return {
             "windows": windows,
-            "matrix": [[_num(x) for x in row] for row in self.matrix],
+            "matrix": [[json_float(x) for x in row] for row in self.matrix],
             "pairs": self.pairs.astype(int).tolist(),
             "width": float(self.width),
         }
@@ -216,8 +217,3 @@ def _check_width(width) -> float:
     if not (np.isfinite(w) and w > 0):
         raise SettingsError(f"width == {width!r}, must be a number > 0")
     return w
-
-
-def _num(x):
-    x = float(x)
-    return x if np.isfinite(x) else None

@@ -15,6 +15,7 @@ import pandas as pd
 
 from .errors import ModelError
 from .panel import Panel
+from .splines import natural_spline_basis, spline_knots
 
 #: Name of the intercept column.
 INTERCEPT = "intercept"
@@ -204,7 +205,9 @@ def design(panel: Panel, baseline: pd.DataFrame, model: MeanModel = MeanModel(),
     knots: tuple = ()
     if model.time:
         if model.time_spline_df and model.time_spline_df > 1:
-            basis, knots = natural_spline_basis(t, df=model.time_spline_df)
+            knots = spline_knots(t, model.time_spline_df, rule="observations")
+            basis = natural_spline_basis(t, knots)
+            knots = tuple(float(v) for v in knots)
             time_terms = tuple(f"time (spline {k + 1})" for k in range(basis.shape[1]))
             cols.extend(basis.T)
         else:
@@ -316,64 +319,6 @@ def confounder_columns(baseline: pd.DataFrame, column: str):
     others = [lv for lv in levels if lv != ref]
     block = np.column_stack([(vals == lv).astype(float) for lv in others])
     return block, [f"{column}: {lv} vs {ref}" for lv in others], str(ref)
-
-
-def natural_spline_basis(t, *, df: int, knots=None):
-    """Natural cubic spline basis in ``t`` without the constant column.
-
-    Parameters
-    ----------
-    t : array_like
-        Times.
-    df : int
-        Number of columns (>= 1); uses ``df + 1`` knots: the boundary knots at
-        min and max of ``t`` and ``df - 1`` interior knots at equally spaced quantiles.
-    knots : sequence of float, optional
-        All ``df + 1`` knots (sorted), instead of the quantile rule.
-
-    Returns
-    -------
-    basis : ndarray (n, df)
-        Columns N_2..N_{K} of the truncated-power form below (N_1 = 1 is the intercept).
-    knots : tuple of float
-
-    Notes
-    -----
-    With knots ξ_1 < … < ξ_K and s = (t − ξ_1)/(ξ_K − ξ_1) (rescaled for
-    conditioning), N_2 = s and N_{k+2} = d_k(s) − d_{K−1}(s) with
-    d_k(s) = [(s − ξ̃_k)₊³ − (s − ξ̃_K)₊³] / (ξ̃_K − ξ̃_k), k = 1..K−2.
-    The functions are cubic between knots, linear beyond the boundary knots
-    and twice continuously differentiable.
-
-    References
-    ----------
-    Hastie, Tibshirani & Friedman (2009), The Elements of Statistical Learning, eq. (5.4)–(5.5).
-    """
-    t = np.asarray(t, dtype=float)
-    df = int(df)
-    if df < 1:
-        raise ModelError(f"spline df == {df}, must be >= 1")
-    if knots is None:
-        knots = np.quantile(t, np.linspace(0.0, 1.0, df + 1))
-    knots = np.asarray(knots, dtype=float)
-    if knots.size != df + 1:
-        raise ModelError(f"a natural spline with {df} df needs {df + 1} knots, got {knots.size}")
-    if np.any(np.diff(knots) <= 0):
-        raise ModelError(f"spline knots {np.round(knots, 4).tolist()} are not distinct; time has "
-                         f"too few distinct values for {df} df — choose fewer")
-    lo, hi = knots[0], knots[-1]
-    s = (t - lo) / (hi - lo)
-    k = (knots - lo) / (hi - lo)
-    K = k.size
-    cols = [s]
-
-    def d(j):
-        return (np.clip(s - k[j], 0, None) ** 3 - np.clip(s - k[-1], 0, None) ** 3) / (k[-1] - k[j])
-
-    if K > 2:
-        dlast = d(K - 2)
-        cols.extend(d(j) - dlast for j in range(K - 2))
-    return np.column_stack(cols), tuple(float(v) for v in knots)
 
 
 def check_rank(X: np.ndarray, names) -> None:

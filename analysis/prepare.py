@@ -22,9 +22,10 @@ from . import options as opt
 from .errors import DataError, SettingsError, clip, row_list, rows_hold
 from .loading import (NON_FINITE_TEXT, column_kind, date_fraction, decimal_comma_numbers,
                       nested_cells, read_dates)
+from .numbers import plain_number
 from .panel import Panel
 from .settings import Roles, Settings
-from .strata import Strata, categorical_strata, center_values, cut_strata, transform_values
+from .strata import MISSING_LABEL, Strata, categorical_strata, center_values, cut_strata, transform_values
 
 # --------------------------------------------------------------------------- results
 @dataclass(frozen=True)
@@ -242,7 +243,7 @@ class PreparedCohort:
         """Long table in panel row order: subject, time, response, stratum, stratum_label."""
         p = self.panel
         codes = self.strata.codes[p.codes]
-        labels = np.asarray(self.strata.labels + ("No value",), dtype=object)
+        labels = np.asarray(self.strata.labels + (MISSING_LABEL,), dtype=object)
         return pd.DataFrame({
             "subject": self.subject_ids[p.codes],
             "time": p.time,
@@ -332,7 +333,8 @@ def select_cohort(df: pd.DataFrame, roles: Roles, settings: Settings) -> CohortS
         lo = -np.inf if settings.time_min is None else settings.time_min
         hi = np.inf if settings.time_max is None else settings.time_max
         work = work[((work["time"] >= lo) & (work["time"] <= hi)).to_numpy()]
-        tracker.record(f"Visits inside the time window [{_fmt(lo)}, {_fmt(hi)}] {settings.unit}",
+        tracker.record(f"Visits inside the time window [{plain_number(lo)}, {plain_number(hi)}] "
+                       f"{settings.unit}",
                        work["subject"].to_numpy())
 
     # one sort by (subject, time); every later step keeps this order
@@ -407,7 +409,7 @@ def stratify(selection: CohortSelection, settings: Settings) -> PreparedCohort:
                             transform=settings.transform if by == primary else "none")
     else:
         strata = categorical_strata(base[by].to_numpy(object), name=by)
-    labels = np.asarray(tuple(strata.labels) + ("No value",), dtype=object)
+    labels = np.asarray(tuple(strata.labels) + (MISSING_LABEL,), dtype=object)
     base["stratum"] = strata.codes
     base["stratum_label"] = labels[strata.codes]
     warnings.extend(getattr(strata, "notes", ()))
@@ -714,7 +716,3 @@ def _time_label(roles: Roles, settings: Settings) -> str:
     if settings.origin == "first-visit":
         return f"{unit} since first visit"
     return f"{roles.time} ({settings.unit})"
-
-
-def _fmt(v: float) -> str:
-    return "−∞" if v == -np.inf else "∞" if v == np.inf else f"{v:g}"

@@ -10,14 +10,13 @@ the file works offline). Nothing here touches the disk.
 from __future__ import annotations
 
 import html
-import math
 from dataclasses import dataclass
 from datetime import datetime, timezone
 
 import numpy as np
 import pandas as pd
 
-from .effects import format_number
+from .numbers import fmt, fmt_p, format_number, interval  # noqa: F401  (importable from here as before)
 
 TITLE = "cohortlens analysis report"
 CAUTIONS = (
@@ -49,28 +48,6 @@ VARIANCE_LABELS = {
 
 
 # --------------------------------------------------------------------------- formatting
-def fmt(v, digits: int = 4) -> str:
-    """Significant-figure formatting; blanks for missing values."""
-    try:
-        f = float(v)
-    except (TypeError, ValueError):
-        return "" if v is None else str(v)
-    if not math.isfinite(f):
-        return "—"
-    return format_number(f, digits)
-
-
-def fmt_p(p) -> str:
-    """p-values: three significant figures, '< 0.0001' below that."""
-    try:
-        f = float(p)
-    except (TypeError, ValueError):
-        return ""
-    if not math.isfinite(f):
-        return "—"
-    return "<\u00a00.0001" if f < 1e-4 else format_number(f, 3)
-
-
 def p_phrase(p) -> str:
     """'p < 0.0001' or 'p = 0.0312'."""
     text = fmt_p(p)
@@ -101,10 +78,6 @@ def short_reference(reference: str) -> str:
     """The distribution part of an LRT reference text, e.g. '0.5·χ²(1) + 0.5·χ²(2)'."""
     head = reference.split(";")[0].strip()
     return head + (" (approximate)" if "approximation" in reference else "")
-
-
-def interval(lo, hi, digits: int = 4) -> str:
-    return f"{fmt(lo, digits)} to {fmt(hi, digits)}"
 
 
 # --------------------------------------------------------------------------- model tables

@@ -21,12 +21,12 @@ import pandas as pd
 
 from . import options as opt
 from .errors import DataError, SettingsError
+from .lagbins import edge_bin, equal_width_edges
+from .numbers import MINUS, compact, fixed  # noqa: F401  (MINUS: the minus of labels, importable here as before)
 from .settings import check_choice
 
 #: separator between the ends of a range in a stratum label (spaced en dash)
 RANGE_SEP = " – "
-#: minus sign used in labels (reads better than a hyphen next to the range dash)
-MINUS = "−"
 #: label of the stratum of subjects without a covariate value (code -1)
 MISSING_LABEL = "No value"
 #: a group with fewer subjects than this is flagged as small (common practice, not a
@@ -136,7 +136,7 @@ def transform_values(x, transform: str, *, name: str = "covariate") -> np.ndarra
         word = "value is" if bad.size == 1 else "values are"
         raise DataError(
             f"'{name}': {transform} transform needs values > 0, but {bad.size} {word} <= 0 "
-            f"(smallest {_compact(float(bad.min()), 4)}); choose transform 'none' or "
+            f"(smallest {compact(float(bad.min()), 4)}); choose transform 'none' or "
             f"exclude those subjects",
             column=name,
         )
@@ -252,11 +252,11 @@ def cut_strata(values, *, method: str, n: int = 4, breaks=(), name: str = "covar
     cut_v = v
     if method == "equal-width" and transform != "none":
         cut_v = transform_values(v, transform, name=name)
-        cut_edges = np.linspace(float(cut_v[ok].min()), float(cut_v[ok].max()), int(n) + 1)
+        cut_edges = equal_width_edges(float(cut_v[ok].min()), float(cut_v[ok].max()), n)
         edges = _untransform(cut_edges, transform)
         edges[0], edges[-1] = lo, hi
     elif method == "equal-width":
-        edges = np.linspace(lo, hi, int(n) + 1)
+        edges = equal_width_edges(lo, hi, n)
     elif method == "quantile":
         edges = np.quantile(v[ok], np.linspace(0.0, 1.0, int(n) + 1))
     else:
@@ -269,8 +269,8 @@ def cut_strata(values, *, method: str, n: int = 4, breaks=(), name: str = "covar
         for x in b:
             if not lo < x < hi:
                 raise SettingsError(
-                    f"break {_compact(float(x), 6)} is outside the range of '{name}' "
-                    f"({_compact(lo, 6)} to {_compact(hi, 6)}); breaks must lie strictly "
+                    f"break {compact(float(x), 6)} is outside the range of '{name}' "
+                    f"({compact(lo, 6)} to {compact(hi, 6)}); breaks must lie strictly "
                     f"between the smallest and largest value", field="breaks")
         edges = np.concatenate(([lo], b, [hi]))
     edges = edges.astype(float)
@@ -279,7 +279,7 @@ def cut_strata(values, *, method: str, n: int = 4, breaks=(), name: str = "covar
     if lo == hi:
         edges = cut_edges = np.array([lo, hi])
         cut_v = v
-        notes.append(f"'{name}' has a single value ({_compact(lo, 6)}), so there is one stratum")
+        notes.append(f"'{name}' has a single value ({compact(lo, 6)}), so there is one stratum")
     else:
         unique, first = np.unique(cut_edges, return_index=True)
         if unique.size < edges.size:
@@ -291,7 +291,7 @@ def cut_strata(values, *, method: str, n: int = 4, breaks=(), name: str = "covar
         edges, cut_edges = edges[first], unique
     k = edges.size - 1
     codes = np.full(v.shape, -1, dtype=np.int64)
-    codes[ok] = np.clip(np.searchsorted(cut_edges, cut_v[ok], side="right") - 1, 0, k - 1)
+    codes[ok] = edge_bin(cut_v[ok], cut_edges)
     labels = _range_labels(edges, unit_label)
     counts = np.bincount(codes[ok], minlength=k)
     for j in np.flatnonzero(counts == 0):
@@ -386,34 +386,13 @@ def small_group_notes(counts, labels, *, name: str, n_subjects: int) -> tuple[st
 
 
 # --------------------------------------------------------------------------- labels
-def _compact(x: float, sig: int = 3) -> str:
-    """Short number: up to ``sig`` significant digits, no trailing zeros, true minus sign."""
-    if x == 0:
-        return "0"
-    text = f"{x:.{sig}g}"
-    if "e" in text:
-        mant, exp = text.split("e")
-        text = f"{mant}e{int(exp)}"
-    return text.replace("-", MINUS)
-
-
-def _fixed(x: float, decimals: int) -> str:
-    """``x`` rounded to ``10**-decimals`` (decimals may be negative), thousands separated."""
-    x = round(x, decimals)
-    d = max(decimals, 0)
-    text = f"{x:,.{d}f}" if abs(x) >= 10_000 else f"{x:.{d}f}"
-    if text.lstrip("-").strip("0.") == "":
-        text = text.lstrip("-")
-    return text.replace("-", MINUS)
-
-
 def _edge_texts(edges: np.ndarray) -> list[str]:
     """Texts for the edges with a shared number of decimals that keeps them distinct."""
     finite = edges[np.isfinite(edges)]
     big = np.max(np.abs(finite)) if finite.size else 0.0
     if big >= 1e7 or (0 < big < 1e-3):
         for sig in range(3, 10):
-            texts = [_compact(float(e), sig) for e in edges]
+            texts = [compact(float(e), sig) for e in edges]
             if len(set(texts)) == len(texts):
                 return texts
         return texts
@@ -422,7 +401,7 @@ def _edge_texts(edges: np.ndarray) -> list[str]:
     # two significant digits of the smallest gap between neighbouring edges
     decimals = 1 - math.floor(math.log10(gap))
     for d in range(decimals, decimals + 8):
-        texts = [_fixed(float(e), d) for e in edges]
+        texts = [fixed(float(e), d) for e in edges]
         if len(set(texts)) == len(texts):
             return texts
     return texts

@@ -5,8 +5,8 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
-from scipy import stats
 
+from .confidence import t_quantile
 from .errors import SettingsError
 from .panel import Panel
 
@@ -169,7 +169,7 @@ def fit_subject_lines(panel: Panel, *, level: float = 0.95) -> SubjectLines:
         intercept_se = np.sqrt(s2 * (1.0 / nf + tbar**2 / np.where(has_slope, sxx, np.nan)))
     intercept = np.where(has_slope, ybar - np.where(has_slope, slope, 0.0) * tbar, ybar)
     q = np.full(m, np.nan)
-    q[has_interval] = stats.t.ppf(0.5 + level / 2.0, df[has_interval])
+    q[has_interval] = t_quantile(df[has_interval], level)
 
     reason = np.full(m, "", dtype=object)
     reason[(n == 2) & spread] = REASON_TWO_VISITS

@@ -11,7 +11,11 @@ import numpy as np
 import pandas as pd
 from statsmodels.nonparametric.smoothers_lowess import lowess as _sm_lowess
 
+from .confidence import CONFIDENCE_LEVEL, z_quantile
 from .errors import DataError, SettingsError
+from .jsonsafe import json_safe
+from .lagbins import equal_width_bins
+from .numbers import plain_number
 from .panel import Panel
 from .strata import MISSING_LABEL, Strata, cut_strata
 
@@ -128,7 +132,7 @@ LAST_VISIT = "last visit"
 #: one gap, every subject who missed the visit just before the data end would count as leaving)
 OVERDUE_GAPS = 2.0
 #: two-sided level of the retention band
-BAND_LEVEL = 0.95
+BAND_LEVEL = CONFIDENCE_LEVEL
 BAND_METHOD = ("95% pointwise band from Greenwood's variance on the log(−log) scale, "
                "after Kalbfleisch & Prentice")
 RETENTION_COLUMNS = ("stratum", "label", "time", "retained", "lo", "hi", "at_risk", "left")
@@ -216,10 +220,10 @@ class Dropout:
     def to_json(self) -> dict:
         """Plain dict (NaN as None) of the horizon, the rule, the counts and the tables."""
         return {
-            "horizon": _plain(self.horizon),
+            "horizon": json_safe(self.horizon),
             "horizon_rule": self.horizon_rule,
             "classified": self.classified,
-            "typical_gap": _plain(self.typical_gap),
+            "typical_gap": json_safe(self.typical_gap),
             "status_rule": self.status_rule,
             "followup_source": self.followup_source,
             "band": BAND_METHOD,
@@ -273,7 +277,7 @@ def retention_curve(time, left) -> pd.DataFrame:
     s = np.cumprod(1.0 - de / ne)
     with np.errstate(divide="ignore", invalid="ignore"):
         gw = np.cumsum(np.where(ne > de, de / (ne * (ne - de)), np.inf))
-        z = _z(BAND_LEVEL)
+        z = z_quantile(BAND_LEVEL)
         log_s = np.log(s)
         theta = np.log(-log_s)
         se = np.sqrt(gw) / np.abs(log_s)
@@ -364,12 +368,12 @@ def dropout_summary(panel: Panel, strata: Strata, *, horizon: float | None = Non
     if horizon is None:
         horizon = DEFAULT_HORIZON_SHARE * t_max
         rule = (f"horizon = {DEFAULT_HORIZON_SHARE:.0%} of the longest follow-up "
-                f"({_num(horizon)}; descriptive convention)")
+                f"({plain_number(horizon, '.4g')}; descriptive convention)")
     else:
         horizon = float(horizon)
         if not math.isfinite(horizon):
             raise SettingsError(f"horizon == {horizon}, must be a finite time")
-        rule = f"horizon = {_num(horizon)} (chosen)"
+        rule = f"horizon = {plain_number(horizon, '.4g')} (chosen)"
     ids = np.arange(m) if subject_ids is None else np.asarray(subject_ids)
     if ids.shape != (m,):
         raise DataError(f"subject_ids has {ids.size} entries, expected one per subject ({m})")
@@ -392,8 +396,8 @@ def dropout_summary(panel: Panel, strata: Strata, *, horizon: float | None = Non
         times = np.where(left, last_time, np.minimum(pot, horizon))
         events = left
         status_rule = (
-            f"left early = last visit more than {_num(overdue_gaps)} typical gaps "
-            f"({_num(overdue_gaps)} × {gap:.3g} = {slack:.3g} {time_unit}".rstrip()
+            f"left early = last visit more than {plain_number(overdue_gaps, '.4g')} typical gaps "
+            f"({plain_number(overdue_gaps, '.4g')} × {gap:.3g} = {slack:.3g} {time_unit}".rstrip()
             + "; typical gap = median time "
             "between a subject's consecutive visits) before the horizon and before the end of "
             "the subject's potential follow-up; censored = potential follow-up ends before the "
@@ -449,21 +453,13 @@ def cohort_dropout(cohort, *, data_cut: str | None = None, horizon: float | None
                            followup_source=source, notes=notes, time_unit=cohort.settings.unit)
 
 
-def _z(level: float) -> float:
-    from scipy.stats import norm
-
-    return float(norm.ppf(0.5 + level / 2.0))
-
-
 def _profiles(panel: Panel, last_time: np.ndarray, n_bins: int) -> pd.DataFrame:
     """Mean response per (dropout cohort, time bin), via one bincount."""
     cohorts = cut_strata(last_time, method="quantile", n=4, name="last visit")
     k = len(cohorts.labels)
     t = panel.time
-    lo, hi = float(t.min()), float(t.max())
-    edges = np.linspace(lo, hi, n_bins + 1) if hi > lo else np.array([lo, lo + 1.0])
+    edges, b = equal_width_bins(t, n_bins)
     nb = edges.size - 1
-    b = np.clip(np.searchsorted(edges, t, side="right") - 1, 0, nb - 1)
     key = cohorts.codes[panel.codes] * nb + b
     n = np.bincount(key, minlength=k * nb)
     total = np.bincount(key, weights=panel.y, minlength=k * nb)
@@ -518,20 +514,6 @@ def _mean(x: np.ndarray) -> float:
     return float(x.mean()) if x.size else math.nan
 
 
-def _num(x: float) -> str:
-    return f"{x:.4g}"
-
-
-def _plain(v):
-    if isinstance(v, (np.integer,)):
-        return int(v)
-    if isinstance(v, (np.bool_,)):
-        return bool(v)
-    if isinstance(v, (float, np.floating)):
-        return None if math.isnan(v) else float(v)
-    return v
-
-
 def _records(frame: pd.DataFrame) -> list[dict]:
-    cols = {c: [_plain(v) for v in frame[c].tolist()] for c in frame.columns}
+    cols = {c: json_safe(frame[c].tolist()) for c in frame.columns}
     return [{c: cols[c][i] for c in frame.columns} for i in range(len(frame))]

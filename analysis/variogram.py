@@ -22,6 +22,7 @@ from .errors import DataError, SettingsError
 from .lagbins import EDGE_TOL, bin_index, lattice_step, merge_close, within_edge
 from .pairs import DEFAULT_CHUNK_PAIRS, iter_pair_chunks, n_within_pairs, within_pair_rows
 from .panel import Panel
+from .jsonsafe import json_float
 
 #: points at which the smooth is reported (0 .. largest used lag)
 SMOOTH_GRID_POINTS = 61
@@ -69,9 +70,9 @@ class VarianceReadout:
     shares: dict = field(default_factory=dict)
 
     def to_json(self) -> dict:
-        return {"nugget": _num(self.nugget), "serial": _num(self.serial),
-                "between": _num(self.between), "plateau": _num(self.plateau),
-                "shares": {k: _num(v) for k, v in self.shares.items()}}
+        return {"nugget": json_float(self.nugget), "serial": json_float(self.serial),
+                "between": json_float(self.between), "plateau": json_float(self.plateau),
+                "shares": {k: json_float(v) for k, v in self.shares.items()}}
 
 
 @dataclass(frozen=True, eq=False)
@@ -119,14 +120,14 @@ class Semivariogram:
     def to_json(self) -> dict:
         """Plain-dict form (NaN becomes None)."""
         return {
-            "bins": [{k: _num(row[k]) if k != "pairs" else int(row[k]) for k in BIN_COLUMNS}
+            "bins": [{k: json_float(row[k]) if k != "pairs" else int(row[k]) for k in BIN_COLUMNS}
                      for row in self.bins.to_dict("records")],
-            "process_variance": _num(self.process_variance),
-            "smooth": [{k: _num(row[k]) for k in SMOOTH_COLUMNS}
+            "process_variance": json_float(self.process_variance),
+            "smooth": [{k: json_float(row[k]) for k in SMOOTH_COLUMNS}
                        for row in self.smooth.to_dict("records")],
             "readout": self.readout.to_json(),
             "n_pairs": int(self.n_pairs),
-            "max_lag": _num(self.max_lag),
+            "max_lag": json_float(self.max_lag),
             "notes": list(self.notes),
             "caveat": self.caveat,
         }
@@ -473,8 +474,3 @@ def _check_options(*, n_bins, max_lag, smooth_frac, smooth_max_pairs, chunk_pair
         raise SettingsError(f"smooth_max_pairs == {smooth_max_pairs!r}, must be >= 10")
     if chunk_pairs < 1:
         raise SettingsError(f"chunk_pairs == {chunk_pairs!r}, must be >= 1")
-
-
-def _num(x):
-    x = float(x)
-    return x if np.isfinite(x) else None

@@ -27,6 +27,8 @@ import pandas as pd
 import plotly.graph_objects as go
 from plotly.subplots import make_subplots
 
+from analysis.confidence import z_quantile
+from analysis.lagbins import equal_width_bins
 from analysis.summaries import ALL_LABEL, FOLLOWED, LAST_VISIT, LEFT_EARLY
 
 from . import palette as pal
@@ -271,10 +273,8 @@ def group_means(full: pd.DataFrame, *, strata: Sequence[str], n_bins: int = MEAN
     if not ok.any():
         return pd.DataFrame(columns=cols)
     t, y, lab = t[ok], y[ok], lab[ok]
-    lo, hi = float(t.min()), float(t.max())
-    edges = np.linspace(lo, hi, n_bins + 1) if hi > lo else np.array([lo, lo + 1.0])
+    edges, b = equal_width_bins(t, n_bins)
     nb = edges.size - 1
-    b = np.clip(np.searchsorted(edges, t, side="right") - 1, 0, nb - 1)
     codes = pd.Categorical(lab, categories=list(strata)).codes.astype(np.int64)
     keep = codes >= 0
     key = codes[keep] * nb + b[keep]
@@ -942,7 +942,7 @@ def dropout_figure(dropout, *, look: CohortLook, highlight_stratum=None) -> go.F
     for group, (symbol, shift) in shapes.items():
         g = tab[(tab["followup"] == group) & (tab["n"] > 0)]
         labs = g["label"].astype(str).to_numpy()
-        half = 1.96 * g["sd"].to_numpy(float) / np.sqrt(g["n"].to_numpy(float))
+        half = z_quantile() * g["sd"].to_numpy(float) / np.sqrt(g["n"].to_numpy(float))
         colours = [pal.REFERENCE_COLOR if lab == ALL_LABEL else look.colour(lab) for lab in labs]
         opac = [1.0 if lab == ALL_LABEL else _strength(look, lab, highlight_stratum)
                 for lab in labs]

@@ -18,7 +18,7 @@ import pandas as pd
 import plotly.graph_objects as go
 from dash import Input, Output, State, dash_table, dcc, html, no_update
 
-from analysis.effects import format_number
+from analysis.numbers import format_number
 from analysis.errors import ModelError
 from analysis.loading import fingerprint
 from analysis.modelstage import ModelChoices

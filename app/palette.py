@@ -13,6 +13,8 @@ from collections.abc import Iterable
 
 import numpy as np
 
+from analysis.strata import MISSING_LABEL
+
 #: qualitative colours for strata 0, 1, 2, ... (cycled beyond its length)
 STRATUM_COLORS: tuple[str, ...] = (
     "#0072B2",  # blue
@@ -41,8 +43,8 @@ DIVERGING_SCALE: tuple[tuple[float, str], ...] = (
     (0.75, "#5FA2CF"),
     (1.0, "#00436B"),
 )
-#: label used by the analysis layer for subjects with no covariate value
-NO_VALUE_LABEL = "No value"
+#: label used by the analysis layer for subjects with no covariate value (defined there once)
+NO_VALUE_LABEL = MISSING_LABEL
 
 
 def stratum_colors(n: int) -> list[str]:

@@ -5,9 +5,9 @@ import patsy
 import pytest
 
 from analysis.errors import ModelError
-from analysis.mean_model import (MeanModel, check_rank, complete_subjects, design,
-                                 natural_spline_basis)
+from analysis.mean_model import MeanModel, check_rank, complete_subjects, design
 from analysis.panel import Panel
+from analysis.splines import natural_spline_basis, spline_knots
 
 
 def _cohort(m=30, seed=1):
@@ -51,7 +51,8 @@ def test_design_matches_patsy_formula():
 def test_spline_spans_patsy_natural_cubic_space():
     rng = np.random.default_rng(3)
     t = np.sort(rng.uniform(0, 60, 200))
-    basis, knots = natural_spline_basis(t, df=4)
+    knots = spline_knots(t, 4, rule="observations")
+    basis = natural_spline_basis(t, knots)
     assert basis.shape == (200, 4)
     # reference: patsy cr() (natural cubic regression spline) with the same knots spans
     # the same space, constant included

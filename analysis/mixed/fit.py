@@ -14,6 +14,7 @@ import numpy as np
 from scipy import linalg as sla
 from scipy import optimize
 
+from ..confidence import z_quantile
 from ..errors import ModelError
 from .likelihood import (NotPositiveDefinite, bias_reduced_scores, build_groups, build_sums,
                          evaluate)
@@ -23,7 +24,6 @@ from .structures import (CORRELATIONS, METHODS, PARAMETER_ORDER, components, nat
 
 #: Largest move (on the log scale) of a log-variance away from its start value.
 _LOG_BOUND = 18.0
-_Z95 = 1.959963984540054
 #: L-BFGS-B's projected-gradient tolerance on the per-observation objective −ℓ/N. Near the
 #: optimum ℓ is only resolved to rounding (~1e-15 relative), so the line search cannot make
 #: progress much below this; the Newton polish (analytic gradient) finishes the job.
@@ -354,7 +354,7 @@ def _variance_intervals(spec, theta, cov_theta, time_scale, at_boundary):
                 ci[k] = (np.nan, np.nan) if k in ("intercept_slope_cov", "range") else \
                     (0.0, np.nan)
                 continue
-            lo, hi = e - _Z95 * s, e + _Z95 * s
+            lo, hi = e - z_quantile() * s, e + z_quantile() * s
             ci[k] = (float(lo), float(hi)) if k == "intercept_slope_cov" else \
                 (float(np.exp(lo)), float(np.exp(hi)))
     return ci

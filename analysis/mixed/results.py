@@ -8,6 +8,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
+from ..confidence import t_quantile
 from .structures import StructureSpec, components, correlation_function
 
 #: Below this many subjects the page and the report say that the intervals rest on
@@ -158,7 +159,7 @@ class MixedFit:
         rdf = np.full(est.size, float(self.robust_df))
         # a NaN df (information not available) falls back to subjects − p
         df_used = np.where(np.isfinite(df) | (df == np.inf), df, rdf)
-        q, rq = stats.t.ppf(0.975, df_used), stats.t.ppf(0.975, rdf)
+        q, rq = t_quantile(df_used), t_quantile(rdf)
         with np.errstate(divide="ignore", invalid="ignore"):
             z, rz = est / se, est / rse
         return pd.DataFrame({
