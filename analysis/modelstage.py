@@ -17,11 +17,8 @@ import numpy as np
 
 from .errors import ModelError
 from .mean_model import MeanModel
-from .modelling import COVARIATE_COLUMN, DEFAULT_CANDIDATES, ModelSet, fit_candidates
+from .modelling import COVARIATE_COLUMN, DEFAULT_CANDIDATES, DEFAULT_GEE, ModelSet, fit_candidates
 from .settings import COUNT_LIMITS
-
-#: GEE working correlations fitted beside the mixed models unless told otherwise.
-DEFAULT_GEE: tuple[str, ...] = ("exchangeable", "autoregressive")
 
 
 @dataclass(frozen=True)
