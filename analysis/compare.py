@@ -79,6 +79,8 @@ def derive_nesting(null_structure: str, alt_structure: str) -> Nesting | None:
         return None
     df = b.n_theta - a.n_theta
     added_re, added_serial = b.n_random - a.n_random, int(b.serial and not a.serial)
+    if added_re == 0 and added_serial == 0:          # same components (e.g. another shape)
+        return None
     if added_serial == 0 and added_re == 1:
         return Nesting(a.name, b.name, df, 1, ((0.5, df - 1), (0.5, df)), _ONE_RE)
     if added_re == 0 and added_serial == 1:
