@@ -93,6 +93,7 @@ def _add_model_options(p: argparse.ArgumentParser) -> None:
     defaults = ModelChoices().to_dict()
     for f in CHOICE_FIELDS.values():
         default = defaults[f.name]
+        metavar = f.flag.lstrip("-").upper().replace("-", "_")
         if f.kind == "switch":
             p.add_argument(f.flag, dest=f.name, action="store_const", const=f.switch_value,
                            default=None, help=f.help)
@@ -100,10 +101,12 @@ def _add_model_options(p: argparse.ArgumentParser) -> None:
             p.add_argument(f.flag, dest=f.name, default=default, choices=f.values(),
                            help=f"{f.help} [{default}]")
         elif f.kind == "count":
-            p.add_argument(f.flag, dest=f.name, type=int, default=default, help=f.help)
+            p.add_argument(f.flag, dest=f.name, type=int, default=default, metavar=metavar,
+                           help=f.help)
         else:                                             # comma-separated list
             shown = f" [{','.join(default)}]" if default else ""
-            p.add_argument(f.flag, dest=f.name, default=None, help=f"{f.help}{shown}")
+            p.add_argument(f.flag, dest=f.name, default=None, metavar=metavar,
+                           help=f"{f.help}{shown}")
 
 
 def _model_choices(args):
