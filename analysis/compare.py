@@ -56,31 +56,54 @@ _MULTI = ("several variance components on the boundary at once; the exact null d
           "is a mixture with data-dependent weights, naive χ² is an approximation "
           "(usually conservative)")
 
-#: Every nested pair among :data:`analysis.mixed.STRUCTURES`.
-#: Parameters: independence (τ²); intercept (+ intercept variance);
-#: intercept+slope (+ slope variance, intercept–slope covariance);
-#: serial (+ serial variance, range). A structure is nested in another if its
-#: components are a subset; the covariance term counts with the slope.
-NESTED: tuple[Nesting, ...] = (
-    Nesting("independence", "intercept", 1, 1, ((0.5, 0), (0.5, 1)), _ONE_RE),
-    Nesting("intercept", "intercept+slope", 2, 1, ((0.5, 1), (0.5, 2)), _ONE_RE),
-    Nesting("serial", "intercept+serial", 1, 1, ((0.5, 0), (0.5, 1)), _ONE_RE),
-    Nesting("intercept+serial", "intercept+slope+serial", 2, 1, ((0.5, 1), (0.5, 2)), _ONE_RE),
-    Nesting("independence", "intercept+slope", 3, 2, None, _MULTI),
-    Nesting("serial", "intercept+slope+serial", 3, 2, None, _MULTI),
-    Nesting("independence", "serial", 2, 1, None, _SERIAL),
-    Nesting("intercept", "intercept+serial", 2, 1, None, _SERIAL),
-    Nesting("intercept+slope", "intercept+slope+serial", 2, 1, None, _SERIAL),
-    Nesting("independence", "intercept+serial", 3, 2, None, _MULTI),
-    Nesting("intercept", "intercept+slope+serial", 4, 2, None, _MULTI),
-    Nesting("independence", "intercept+slope+serial", 5, 3, None, _MULTI),
-)
-_NESTED_BY_PAIR = {(n.null, n.alt): n for n in NESTED}
+def derive_nesting(null_structure: str, alt_structure: str) -> Nesting | None:
+    """The nesting relation of two structures, read off their components (None: not nested).
+
+    ``null`` is nested in ``alt`` when its random effects are a leading subset of
+    the alternative's (intercept ⊂ intercept+slope, the covariance counting with
+    the slope) and its serial process, if any, is also in the alternative (with
+    the same shape when both fix one). The alternative adds ``df`` parameters;
+    the null fixes one variance at 0 per random effect and one for a serial
+    process it leaves out. One random effect's variance alone: 50:50 mixture of
+    χ²(df−1) and χ²(df); a serial process alone: its range is unidentified, no
+    standard mixture; several at once: no standard mixture.
+    """
+    from .mixed.structures import spec_for
+
+    try:
+        a, b = spec_for(null_structure), spec_for(alt_structure)
+    except ModelError:
+        return None
+    if a.name == b.name or a.n_random > b.n_random or (a.serial and not b.serial):
+        return None
+    if a.serial and a.shape and b.shape and a.shape != b.shape:
+        return None
+    df = b.n_theta - a.n_theta
+    added_re, added_serial = b.n_random - a.n_random, int(b.serial and not a.serial)
+    if added_re == 0 and added_serial == 0:          # same components (e.g. another shape)
+        return None
+    if added_serial == 0 and added_re == 1:
+        return Nesting(a.name, b.name, df, 1, ((0.5, df - 1), (0.5, df)), _ONE_RE)
+    if added_re == 0 and added_serial == 1:
+        return Nesting(a.name, b.name, df, 1, None, _SERIAL)
+    return Nesting(a.name, b.name, df, added_re + added_serial, None, _MULTI)
+
+
+def nested_table() -> tuple[Nesting, ...]:
+    """Every nested pair among the registered structures (derived, see :func:`derive_nesting`)."""
+    from .mixed.structures import STRUCTURES
+
+    names = list(STRUCTURES)
+    return tuple(n for a in names for b in names if (n := derive_nesting(a, b)) is not None)
+
+
+#: Every nested pair among the built-in structures (see :func:`nested_table`).
+NESTED: tuple[Nesting, ...] = nested_table()
 
 
 def nesting(null_structure: str, alt_structure: str) -> Nesting | None:
     """The :class:`Nesting` entry of a pair, or None if the pair is not nested."""
-    return _NESTED_BY_PAIR.get((null_structure, alt_structure))
+    return derive_nesting(null_structure, alt_structure)
 
 
 # --------------------------------------------------------------------------- results
@@ -340,7 +363,12 @@ def _statistic(null_fit, alt_fit) -> float:
 
 
 def _has_serial(f) -> bool:
-    return "serial" in f.structure
+    from .mixed.structures import spec_for
+
+    try:
+        return spec_for(f.structure).serial
+    except ModelError:
+        return f.correlation is not None
 
 
 def _same_correlation(a, b) -> bool:

@@ -18,11 +18,13 @@ from .effects import InteractionSummary, interaction_summary
 from .errors import CohortError, ModelError
 from .gee import WORKING, GEEFit, gee_fit
 from .mean_model import Design, MeanModel, complete_subjects, design, used_columns
+from .mixed.structures import default_structures, spec_for
 
-#: Structures fitted by default: random intercept; + random slope; + serial process; all three.
-DEFAULT_CANDIDATES: tuple[str, ...] = (
-    "intercept", "intercept+slope", "intercept+serial", "intercept+slope+serial",
-)
+#: Structures fitted by default (rows of the structures table marked ``default``):
+#: random intercept; + random slope; + serial process; all three.
+DEFAULT_CANDIDATES: tuple[str, ...] = default_structures()
+#: GEE working correlations fitted beside the mixed models unless told otherwise.
+DEFAULT_GEE: tuple[str, ...] = ("exchangeable", "autoregressive")
 #: ``correlation`` value that fits every serial structure with each correlation shape.
 BOTH = "both"
 #: Baseline column of the transformed, centred primary covariate (set by ``prepare``).
@@ -177,13 +179,13 @@ class ModelSet:
 
 def model_name(structure: str, method: str, correlation: str | None = None) -> str:
     """Readable model name, e.g. "intercept+slope (REML)", "serial (exponential, REML)"."""
-    corr = f"{correlation}, " if correlation and "serial" in structure else ""
+    corr = f"{correlation}, " if correlation and spec_for(structure).serial else ""
     return f"{structure} ({corr}{method.upper()})"
 
 
 def fit_candidates(cohort, *, structures=DEFAULT_CANDIDATES, correlation: str = "exponential",
                    method: str = "reml", mean: MeanModel = MeanModel(),
-                   gee=("exchangeable", "autoregressive")) -> ModelSet:
+                   gee=None) -> ModelSet:
     """Fit candidate working covariance structures with one mean model and compare them.
 
     Parameters
@@ -201,8 +203,9 @@ def fit_candidates(cohort, *, structures=DEFAULT_CANDIDATES, correlation: str = 
         comparison (they are not nested: compare them by AIC/BIC, no LRT is formed).
     method : {"reml", "ml"}
     mean : MeanModel
-    gee : sequence of str
-        GEE working correlations to fit as robustness rows (empty for none).
+    gee : sequence of str, optional
+        GEE working correlations to fit as robustness rows (empty for none; default
+        :data:`DEFAULT_GEE`).
 
     Returns
     -------
@@ -238,7 +241,7 @@ def fit_candidates(cohort, *, structures=DEFAULT_CANDIDATES, correlation: str = 
     shapes = CORRELATIONS if correlation == BOTH else (correlation,)
     if method not in METHODS:
         raise ModelError(f"method == {method!r}, must be one of {list(METHODS)}")
-    gee = tuple(dict.fromkeys(gee or ()))
+    gee = DEFAULT_GEE if gee is None else tuple(dict.fromkeys(gee or ()))
     bad = [w for w in gee if w not in WORKING]
     if bad:
         raise ModelError(f"unknown GEE working correlation(s) {bad}; choose from {list(WORKING)}")
@@ -269,7 +272,9 @@ def fit_candidates(cohort, *, structures=DEFAULT_CANDIDATES, correlation: str = 
         raise ModelError(problem)
 
     candidates = []
-    runs = [(s, c) for s in structures for c in (shapes if "serial" in s else shapes[:1])]
+    specs = {s: spec_for(s) for s in structures}
+    runs = [(s, specs[s].correlation_for(c) or c) for s in structures
+            for c in (shapes if specs[s].serial and not specs[s].shape else shapes[:1])]
     for s, shape in runs:
         name = model_name(s, method, shape)
         try:

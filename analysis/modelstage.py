@@ -11,17 +11,110 @@ from __future__ import annotations
 import hashlib
 import json
 from dataclasses import dataclass, fields
-from typing import Any
+from typing import Any, Callable
 
 import numpy as np
 
 from .errors import ModelError
 from .mean_model import MeanModel
-from .modelling import COVARIATE_COLUMN, DEFAULT_CANDIDATES, ModelSet, fit_candidates
+from .modelling import (BOTH, COVARIATE_COLUMN, DEFAULT_CANDIDATES, DEFAULT_GEE, ModelSet,
+                        fit_candidates)
 from .settings import COUNT_LIMITS
 
-#: GEE working correlations fitted beside the mixed models unless told otherwise.
-DEFAULT_GEE: tuple[str, ...] = ("exchangeable", "autoregressive")
+
+#: Settings the model stage reads beyond the cohort selection: the primary covariate is
+#: transformed and centred (column ``x``); the strata are never used by a fit.
+MODEL_FIELDS: tuple[str, ...] = ("transform", "center")
+
+
+@dataclass(frozen=True)
+class ChoiceField:
+    """How one model choice is offered: the single declaration the CLI flags and the page's
+    Models controls are built from.
+
+    Attributes
+    ----------
+    name : str
+        The :class:`ModelChoices` field.
+    label : str
+        Label of the page's control.
+    help : str
+        CLI help text (the default is appended by the CLI) and the page's hint.
+    flag : str
+        CLI flag.
+    kind : {"list", "one", "switch", "count"}
+        "list": comma-separated values; "one": one of ``options``; "switch": a flag
+        without value that sets the field to ``switch_value``; "count": a whole number
+        within ``limits`` (or empty).
+    options : callable or None
+        () -> tuple of (value, label), the allowed values in the order offered.
+    switch_value : object
+        Value a "switch" flag sets.
+    limits : tuple of (int, int) or None
+        Smallest and largest allowed count.
+    """
+
+    name: str
+    label: str
+    help: str
+    flag: str
+    kind: str
+    options: Callable[[], tuple[tuple[str, str], ...]] | None = None
+    switch_value: Any = None
+    limits: tuple[int, int] | None = None
+
+    def values(self) -> tuple[str, ...]:
+        """The allowed values (empty when the field has no fixed list)."""
+        return tuple(v for v, _ in self.options()) if self.options else ()
+
+
+def structure_options() -> tuple[tuple[str, str], ...]:
+    """(structure, label) from the structures table, simplest first."""
+    from .mixed.structures import structure_labels
+
+    return structure_labels()
+
+
+def correlation_options() -> tuple[tuple[str, str], ...]:
+    """(shape, label) of every registered correlation shape, then 'both'."""
+    from .mixed.structures import CORRELATION_SHAPES
+
+    return (*((k, c.label) for k, c in CORRELATION_SHAPES.items()),
+            (BOTH, "both, side by side"))
+
+
+def method_options() -> tuple[tuple[str, str], ...]:
+    from .mixed.structures import METHODS
+
+    return tuple((m, m.upper()) for m in METHODS)
+
+
+def gee_options() -> tuple[tuple[str, str], ...]:
+    from .gee import WORKING
+
+    return tuple((w, w) for w in WORKING)
+
+
+#: Every model choice, declared once (see :class:`ChoiceField`); defaults are
+#: :class:`ModelChoices`' field defaults.
+CHOICE_FIELDS: dict[str, ChoiceField] = {f.name: f for f in (
+    ChoiceField("structures", "Working covariance structures to compare",
+                "comma-separated covariance structures to fit", "--models", "list",
+                structure_options),
+    ChoiceField("correlation", "Serial correlation shape",
+                "serial correlation shape; 'both' fits each serial structure with each",
+                "--correlation", "one", correlation_options),
+    ChoiceField("method", "Estimation", "maximum likelihood instead of REML", "--ml", "switch",
+                method_options, switch_value="ml"),
+    ChoiceField("confounders", "Adjust for (other baseline covariates)",
+                "comma-separated baseline covariates added to the mean model", "--confounders",
+                "list"),
+    ChoiceField("time_spline_df", "Time as a natural spline (df)",
+                "natural spline in time with this many df instead of a straight line",
+                "--time-spline-df", "count", limits=(1, COUNT_LIMITS["spline_df"])),
+    ChoiceField("gee", "GEE robustness rows", "skip the GEE robustness rows", "--no-gee",
+                "switch", gee_options, switch_value=()),
+)}
 
 
 @dataclass(frozen=True)
@@ -69,33 +162,33 @@ class ModelChoices:
         self.validate()
 
     def validate(self) -> None:
-        """Check every option (called on construction)."""
-        from .gee import WORKING
-        from .mixed import CORRELATIONS, METHODS, STRUCTURES
-
+        """Check every option against :data:`CHOICE_FIELDS` (called on construction)."""
+        f = CHOICE_FIELDS
         if not self.structures:
             raise ModelError("no covariance structure chosen; tick at least one of "
-                             f"{list(STRUCTURES)}")
-        bad = [s for s in self.structures if s not in STRUCTURES]
+                             f"{list(f['structures'].values())}")
+        bad = [s for s in self.structures if s not in f["structures"].values()]
         if bad:
-            raise ModelError(f"structures {bad} not known; choose from {list(STRUCTURES)}")
-        if self.correlation not in (*CORRELATIONS, "both"):
+            raise ModelError(f"structures {bad} not known; choose from "
+                             f"{list(f['structures'].values())}")
+        if self.correlation not in f["correlation"].values():
             raise ModelError(f"correlation == {self.correlation!r}, must be one of "
-                             f"{[*CORRELATIONS, 'both']}")
-        if self.method not in METHODS:
-            raise ModelError(f"method == {self.method!r}, must be one of {list(METHODS)}")
+                             f"{list(f['correlation'].values())}")
+        if self.method not in f["method"].values():
+            raise ModelError(f"method == {self.method!r}, must be one of "
+                             f"{list(f['method'].values())}")
         df = self.time_spline_df
         if df is not None:
+            lo, hi = f["time_spline_df"].limits
             if isinstance(df, bool) or not isinstance(df, (int, np.integer)):
-                raise ModelError(f"time_spline_df == {df!r}, must be a whole number >= 1 "
+                raise ModelError(f"time_spline_df == {df!r}, must be a whole number >= {lo} "
                                  "or empty for a straight line")
-            if not 1 <= df <= COUNT_LIMITS["spline_df"]:
-                raise ModelError(f"time_spline_df == {df}, must be from 1 to "
-                                 f"{COUNT_LIMITS['spline_df']}")
-        bad = [w for w in self.gee if w not in WORKING]
+            if not lo <= df <= hi:
+                raise ModelError(f"time_spline_df == {df}, must be from {lo} to {hi}")
+        bad = [w for w in self.gee if w not in f["gee"].values()]
         if bad:
             raise ModelError(f"GEE working correlations {bad} not known; choose from "
-                             f"{list(WORKING)}")
+                             f"{list(f['gee'].values())}")
 
     # -- serialisation ------------------------------------------------------
     def to_dict(self) -> dict[str, Any]:

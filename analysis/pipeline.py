@@ -230,6 +230,7 @@ class Workbench:
     @staticmethod
     def stage_fields(stage: str, settings: Settings) -> tuple[str, ...]:
         """The settings a stage's result depends on."""
+        from .modelstage import MODEL_FIELDS
         sel = STAGE_FIELDS["cohort"]
         strata = STAGE_FIELDS["strata"]
         res = STAGE_FIELDS["residuals"] + (strata if settings.detrend_within_strata else ())
@@ -241,7 +242,7 @@ class Workbench:
             "residuals": sel + res,
             "variogram": sel + res + STAGE_FIELDS["variogram"],
             "lagcorr": sel + res + STAGE_FIELDS["lagcorr"],
-            "models": sel + strata,
+            "models": sel + MODEL_FIELDS,   # the fit reads the centred x, never the strata
         }
         return table[stage]
 

@@ -54,7 +54,6 @@ def build_parser() -> argparse.ArgumentParser:
 
     fit = _data_command(sub, "fit", "fit and compare candidate covariance models, write JSON",
                         models=True)
-    fit.add_argument("--no-gee", action="store_true", help="skip the GEE robustness rows")
     fit.add_argument("--json", required=True, metavar="OUT", help="output file ('-' = stdout)")
 
     rep = _data_command(sub, "report", "write the exploration and the models as one HTML file",
@@ -93,18 +92,41 @@ def _add_plan_options(p: argparse.ArgumentParser) -> None:
 
 
 def _add_model_options(p: argparse.ArgumentParser) -> None:
-    p.add_argument("--models", default=None,
-                   help="comma-separated covariance structures to fit "
-                        "[intercept,intercept+slope,intercept+serial,intercept+slope+serial]")
-    p.add_argument("--correlation", default="exponential",
-                   choices=("exponential", "gaussian", "both"),
-                   help="serial correlation shape; 'both' fits each serial structure with each "
-                        "[exponential]")
-    p.add_argument("--ml", action="store_true", help="maximum likelihood instead of REML")
-    p.add_argument("--confounders", default="",
-                   help="comma-separated baseline covariates added to the mean model")
-    p.add_argument("--time-spline-df", type=int, default=None,
-                   help="natural spline in time with this many df instead of a straight line")
+    """The model flags, built from the declaration of the model choices."""
+    from analysis.modelstage import CHOICE_FIELDS, ModelChoices
+
+    defaults = ModelChoices().to_dict()
+    for f in CHOICE_FIELDS.values():
+        default = defaults[f.name]
+        metavar = f.flag.lstrip("-").upper().replace("-", "_")
+        if f.kind == "switch":
+            p.add_argument(f.flag, dest=f.name, action="store_const", const=f.switch_value,
+                           default=None, help=f.help)
+        elif f.kind == "one":
+            p.add_argument(f.flag, dest=f.name, default=default, choices=f.values(),
+                           help=f"{f.help} [{default}]")
+        elif f.kind == "count":
+            p.add_argument(f.flag, dest=f.name, type=int, default=default, metavar=metavar,
+                           help=f.help)
+        else:                                             # comma-separated list
+            shown = f" [{','.join(default)}]" if default else ""
+            p.add_argument(f.flag, dest=f.name, default=None, metavar=metavar,
+                           help=f"{f.help}{shown}")
+
+
+def _model_choices(args):
+    """ModelChoices from the model flags (absent flags keep the declared defaults)."""
+    from analysis.modelstage import CHOICE_FIELDS, ModelChoices
+
+    given = {}
+    for f in CHOICE_FIELDS.values():
+        value = getattr(args, f.name, None)
+        if value is None:
+            continue
+        given[f.name] = _split(value) if f.kind == "list" else value
+    if not given.get("structures", True):
+        given.pop("structures")                           # "--models ''" keeps the default set
+    return ModelChoices(**given)
 
 
 def _data_command(sub, name: str, text: str, *, models: bool = False) -> argparse.ArgumentParser:
@@ -311,24 +333,14 @@ def cmd_summarize(args) -> int:
 
 
 def cmd_fit(args) -> int:
-    from analysis.mean_model import MeanModel
-    from analysis.modelling import DEFAULT_CANDIDATES, fit_candidates
     from analysis.jsonsafe import json_safe
+    from analysis.modelstage import fit_models
     from analysis.prepare import prepare
 
-    from analysis.modelstage import ModelChoices
-
     _check_output(args.json, "--json")
-    ModelChoices(time_spline_df=args.time_spline_df)     # checks its range before any work
+    choices = _model_choices(args)                       # checks every option before any work
     data, roles, settings = resolve(args)
-    cohort = prepare(_load(data), roles, settings)
-    structures = (tuple(s.strip() for s in args.models.split(",") if s.strip())
-                  if args.models else DEFAULT_CANDIDATES)
-    mean = MeanModel(confounders=tuple(c.strip() for c in args.confounders.split(",") if c.strip()),
-                     time_spline_df=args.time_spline_df)
-    result = fit_candidates(cohort, structures=structures, correlation=args.correlation,
-                            method="ml" if args.ml else "reml", mean=mean,
-                            gee=() if args.no_gee else ("exchangeable", "autoregressive"))
+    result = fit_models(prepare(_load(data), roles, settings), choices)
     payload = json_safe({"settings": settings.to_dict(), "roles": roles.to_dict(),
                          **result.to_json()})
     _write_json(payload, args.json)
@@ -337,21 +349,13 @@ def cmd_fit(args) -> int:
 
 def cmd_report(args) -> int:
     from analysis.loading import Dataset
-    from analysis.modelstage import ModelChoices
     from analysis.pipeline import Workbench
+    from analysis.overlay import report_figures, report_plan_figure
     from analysis.report import build_report
-    from app.models_view import report_figures
-    from app.plan_view import report_plan_figure
 
     _check_output(args.out, "--out")
     data, roles, settings = resolve(args)
-    choices = None
-    if not args.no_models:
-        kw = {"structures": _split(args.models)} if args.models else {}
-        choices = ModelChoices(**kw, correlation=args.correlation,
-                               method="ml" if args.ml else "reml",
-                               confounders=_split(args.confounders),
-                               time_spline_df=args.time_spline_df)
+    choices = None if args.no_models else _model_choices(args)
     name = "demo registry" if data == "demo" or str(data).endswith("kidney_registry.csv") \
         else Path(str(data)).name
     dataset = Dataset.from_frame(_load(data), name=name)

@@ -13,15 +13,15 @@ import hashlib
 import json
 import re
 
-import numpy as np
 import pandas as pd
-import plotly.graph_objects as go
 from dash import Input, Output, State, dash_table, dcc, html, no_update
 
 from analysis.numbers import format_number
 from analysis.errors import ModelError
 from analysis.loading import fingerprint
-from analysis.modelstage import ModelChoices
+from analysis.modelstage import CHOICE_FIELDS, ModelChoices
+from analysis.overlay import (CURVE_COLOURS, CURVE_POINTS, EMPIRICAL_COLOUR,  # noqa: F401
+                              OVERLAY_CAPTION, model_curves, report_figures, variogram_overlay)
 from analysis.pipeline import Workbench
 from analysis.report import (ASSOCIATION_NOTE, CAUTIONS, MIXTURE_NOTE, PREFERRED_RULE,
                              build_report, model_tables, p_phrase, x_description)
@@ -31,21 +31,10 @@ from .layout import GRAPH_CONFIG, message, section
 from .session import AppContext, NeedsInput, attempt
 from .text import option
 
-#: (structure, label) in the order offered; every structure includes measurement error
-STRUCTURE_CHOICES: tuple[tuple[str, str], ...] = (
-    ("intercept", "Random intercept"),
-    ("intercept+slope", "Random intercept + random slope"),
-    ("serial", "Serial correlation + measurement error"),
-    ("intercept+serial", "Random intercept + serial + measurement error"),
-    ("intercept+slope+serial", "Random intercept + slope + serial + measurement error"),
-    ("independence", "Independence (measurement error only)"),
-)
-START_STRUCTURES = ("intercept", "intercept+slope", "intercept+serial", "intercept+slope+serial")
-#: one line colour per model (cycled), distinct from the empirical points
-CURVE_COLOURS = ("#1b6a9e", "#c0621a", "#2c8a5a", "#8c4a9c", "#a33b4b", "#127f86")
-EMPIRICAL_COLOUR = "#2b2b2b"
-CURVE_POINTS = 160
-
+#: (structure, label) in the order offered (from the structures table); every structure
+#: includes measurement error
+STRUCTURE_CHOICES: tuple[tuple[str, str], ...] = CHOICE_FIELDS["structures"].options()
+START_STRUCTURES = ModelChoices().structures
 CONTROLS_GRID = {"display": "grid", "gap": "0.5rem 2.5rem", "alignItems": "start",
                  "gridTemplateColumns": "repeat(auto-fit, minmax(18rem, 1fr))"}
 CHECK_COLUMN = {"display": "grid", "gridTemplateColumns": "1fr", "gap": "0.35rem"}
@@ -63,34 +52,37 @@ TABLE_STYLE = dict(
 # ------------------------------------------------------------------ layout
 def models_section() -> html.Section:
     """Controls, the Fit button, the results area (filled after fitting) and the report export."""
+    f, start = CHOICE_FIELDS, ModelChoices()
+    spline = f["time_spline_df"]
     controls = html.Div(className="cl-model-controls", style=CONTROLS_GRID, children=[
         html.Div(className="cl-field", children=[
-            html.Label("Working covariance structures to compare", className="cl-label"),
+            html.Label(f["structures"].label, className="cl-label"),
             dcc.Checklist(id=ids.MODELS_STRUCTURES,
-                          value=list(START_STRUCTURES),
-                          options=[{"label": lab, "value": s} for s, lab in STRUCTURE_CHOICES],
+                          value=list(start.structures),
+                          options=[{"label": lab, "value": s}
+                                   for s, lab in f["structures"].options()],
                           inline=True, style=CHECK_COLUMN),
         ]),
         html.Div(className="cl-field", children=[
-            html.Label("Serial correlation shape", className="cl-label"),
+            html.Label(f["correlation"].label, className="cl-label"),
             dcc.RadioItems(id=ids.MODELS_CORRELATION, inline=True, className="cl-radio",
-                           value="exponential",
-                           options=[{"label": "exponential", "value": "exponential"},
-                                    {"label": "Gaussian", "value": "gaussian"},
-                                    {"label": "both, side by side", "value": "both"}]),
-            html.Label("Estimation", className="cl-label"),
-            dcc.RadioItems(id=ids.MODELS_METHOD, inline=True, className="cl-radio", value="reml",
-                           options=[{"label": "REML", "value": "reml"},
-                                    {"label": "ML", "value": "ml"}]),
+                           value=start.correlation,
+                           options=[{"label": lab, "value": v}
+                                    for v, lab in f["correlation"].options()]),
+            html.Label(f["method"].label, className="cl-label"),
+            dcc.RadioItems(id=ids.MODELS_METHOD, inline=True, className="cl-radio",
+                           value=start.method,
+                           options=[{"label": lab, "value": v}
+                                    for v, lab in f["method"].options()]),
             html.Small("REML for variance estimates; ML to compare different mean models.",
                        className="cl-hint"),
         ]),
         html.Div(className="cl-field", children=[
-            html.Label("Adjust for (other baseline covariates)", className="cl-label"),
-            dcc.Dropdown(id=ids.MODELS_CONFOUNDERS, multi=True, options=[], value=[],
-                         placeholder="none"),
-            html.Label("Time as a natural spline (df)", className="cl-label"),
-            dcc.Input(id=ids.MODELS_SPLINE_DF, type="number", min=1, step=1, value=None,
+            html.Label(f["confounders"].label, className="cl-label"),
+            dcc.Dropdown(id=ids.MODELS_CONFOUNDERS, multi=True, options=[],
+                         value=list(start.confounders), placeholder="none"),
+            html.Label(spline.label, className="cl-label"),
+            dcc.Input(id=ids.MODELS_SPLINE_DF, type="number", min=spline.limits[0], step=1, value=start.time_spline_df,
                       debounce=True, placeholder="straight line", className="cl-input",
                       style={"maxWidth": "12rem"}),
         ]),
@@ -163,73 +155,6 @@ def fit_for_view(context: AppContext, data, roles, settings, choices: ModelChoic
     """(model set, cohort) through the app's Workbench cache."""
     dataset, r, s = context.inputs(data, roles, settings)
     return context.workbench.models(dataset, r, s, choices), context.workbench.cohort(dataset, r, s)
-
-
-def model_curves(models, max_lag: float, n: int = CURVE_POINTS) -> pd.DataFrame:
-    """Each fitted model's implied semivariogram on a lag grid: columns model, lag, gamma."""
-    lags = np.linspace(0.0, float(max_lag), n)
-    parts = [pd.DataFrame({"model": name, "lag": lags, "gamma": fit.variogram_curve(lags)})
-             for name, fit in models.fits.items()]
-    return (pd.concat(parts, ignore_index=True) if parts
-            else pd.DataFrame({"model": [], "lag": [], "gamma": []}))
-
-
-#: Caption of the semivariogram overlay (page and report).
-OVERLAY_CAPTION = ("Points: empirical semivariogram (sized by pair count) of the residuals from "
-                   "the models' own mean — the fixed-effects design fitted by ordinary least "
-                   "squares — not of the smooth trend used for exploration, so points and lines "
-                   "describe the same residuals. Lines: the semivariogram implied by each fitted "
-                   "model (★ = preferred).")
-
-
-def variogram_overlay(bins: pd.DataFrame, curves: pd.DataFrame, *, unit: str, response: str,
-                      response_unit: str = "", preferred: str | None = None) -> go.Figure:
-    """Empirical semivariogram (points sized by pairs) with each model's fitted curve.
-
-    Parameters
-    ----------
-    bins : DataFrame
-        ``Semivariogram.to_frame()``: lag_mean, gamma, pairs (and bin edges).
-    curves : DataFrame
-        :func:`model_curves`: model, lag, gamma.
-    unit : str
-        Time unit (x axis).
-    response, response_unit : str
-        Response name and unit (the y axis is in squared response units).
-    preferred : str, optional
-        Model drawn thicker.
-    """
-    fig = go.Figure()
-    ok = bins[np.isfinite(bins["gamma"].to_numpy(float))]
-    pairs = ok["pairs"].to_numpy(float)
-    size = 7 + 11 * np.sqrt(pairs / pairs.max()) if len(pairs) and pairs.max() > 0 else 9
-    fig.add_trace(go.Scatter(
-        x=ok["lag_mean"], y=ok["gamma"], mode="markers",
-        name="empirical (residuals of the models' mean, OLS)",
-        marker={"color": EMPIRICAL_COLOUR, "size": size, "symbol": "circle"},
-        customdata=np.column_stack([ok["pairs"], ok["lag_lo"], ok["lag_hi"]]) if len(ok) else None,
-        hovertemplate=(f"lag %{{customdata[1]:.3g}}–%{{customdata[2]:.3g}} {unit}<br>"
-                       "semivariance %{y:.4g}<br>%{customdata[0]} pairs<extra></extra>")))
-    for i, (name, part) in enumerate(curves.groupby("model", sort=False)):
-        best = name == preferred
-        fig.add_trace(go.Scatter(
-            x=part["lag"], y=part["gamma"], mode="lines",
-            name=f"{name} ★" if best else name,
-            line={"color": CURVE_COLOURS[i % len(CURVE_COLOURS)], "width": 4 if best else 2,
-                  "dash": "solid" if best else "dash"},
-            hovertemplate=f"{name}<br>lag %{{x:.3g}} {unit}<br>fitted %{{y:.4g}}<extra></extra>"))
-    fig.update_layout(
-        title={"text": f"{response}: fitted semivariograms against the empirical one",
-               "x": 0.01},
-        xaxis_title=f"time apart ({unit})",
-        yaxis_title=(f"semivariance ({response_unit})²" if response_unit
-                     else f"semivariance ({response} units²)"),
-        template="plotly_white", font={"size": 15}, margin={"l": 80, "r": 20, "t": 60, "b": 60},
-        legend={"orientation": "h", "yanchor": "top", "y": -0.18, "x": 0},
-        hovermode="closest")
-    fig.update_xaxes(rangemode="tozero")
-    fig.update_yaxes(rangemode="tozero", automargin=True)
-    return fig
 
 
 def placeholder_figure(text: str = "Press “Fit models” to draw the fitted semivariograms.") -> dict:
@@ -309,24 +234,6 @@ def detail_children(models, chosen: str | None, *, unit: str, x_note: str = "") 
                    "sandwich estimator clustered by subject, Mancl–DeRouen bias-reduced."
                    .strip(), className="cl-caveat"),
             html.H3(f"Variance parameters — {t.chosen}"), datatable(t.variance)]
-
-
-def report_figures(exploration, models, *, unit: str, response: str,
-                   response_unit: str = "") -> list[tuple[str, str]]:
-    """(caption, self-contained HTML) figures for the report: the semivariogram overlay."""
-    import plotly.io as pio
-
-    vg = exploration.variogram
-    if models is not None and getattr(models, "panel", None) is not None:
-        vg = models.residual_variogram(n_bins=len(vg.bins), max_lag=vg.max_lag)
-    curves = (model_curves(models, vg.max_lag) if models is not None
-              else pd.DataFrame({"model": [], "lag": [], "gamma": []}))
-    fig = variogram_overlay(vg.to_frame(), curves, unit=unit, response=response,
-                            response_unit=response_unit,
-                            preferred=getattr(models, "preferred", None))
-    snippet = pio.to_html(fig, include_plotlyjs=True, full_html=False,
-                          config={"displaylogo": False}, default_height="460px")
-    return [(OVERLAY_CAPTION, snippet)]
 
 
 def report_text(context: AppContext, data, roles, settings, snapshot: dict | None,

@@ -12,13 +12,13 @@ from dataclasses import replace
 
 import numpy as np
 import pandas as pd
-import plotly.graph_objects as go
 from dash import Input, Output, State, dash_table, dcc, html, no_update
 
 from analysis.errors import CohortError, SettingsError
 from analysis.modelstage import ModelChoices
 from analysis.plan_defaults import parse_schedule, plan_from_cohort
 from analysis.planning import simulate_power
+from analysis.overlay import power_figure, report_plan_figure  # noqa: F401  (report_plan_figure: used by the Models export)
 from analysis.report import fmt, plan_sentences
 
 from . import ids
@@ -50,8 +50,6 @@ SIM_OUT = "plan-sim-out"
 #: replication counts offered for the simulation check (bounded: each refits a cohort)
 SIM_CHOICES = (20, 50, 100, 200)
 SIM_DEFAULT = 50
-TARGET_COLOUR = "#a33b4b"
-CURVE_COLOUR = "#1b6a9e"
 ROW = {"display": "grid", "gap": "0.5rem 2rem", "alignItems": "start",
        "gridTemplateColumns": "repeat(auto-fit, minmax(15rem, 1fr))"}
 CAUTION_WORDS = ("A plan inherits this cohort's covariance and its biases; the effect size is the "
@@ -136,42 +134,6 @@ def _blank(text="The power curve appears here.") -> dict:
 
 
 # ------------------------------------------------------------------ pure helpers
-def power_figure(made) -> go.Figure:
-    """Power against the number of subjects, with the target power and the size needed."""
-    curve = made.plan.to_frame()
-    p = made.plan
-    fig = go.Figure()
-    fig.add_trace(go.Scatter(x=curve["subjects"], y=curve["power"], mode="lines+markers",
-                             name=f"power under {made.model}",
-                             line={"color": CURVE_COLOUR, "width": 3}, marker={"size": 5},
-                             hovertemplate="%{x} subjects<br>power %{y:.3f}<extra></extra>"))
-    fig.add_trace(go.Scatter(x=[curve["subjects"].min(), curve["subjects"].max()],
-                             y=[made.inputs.power] * 2, mode="lines",
-                             name=f"target power {made.inputs.power:g}",
-                             line={"color": TARGET_COLOUR, "dash": "dash", "width": 2},
-                             hoverinfo="skip"))
-    fig.add_trace(go.Scatter(x=[p.subjects_needed], y=[p.achieved_power], mode="markers",
-                             name=f"needed: {p.subjects_needed:,} subjects",
-                             marker={"color": TARGET_COLOUR, "size": 13, "symbol": "diamond"},
-                             hovertemplate="%{x} subjects<br>power %{y:.3f}<extra></extra>"))
-    fig.update_layout(
-        title={"text": "Power of the next study against its size", "x": 0.01},
-        xaxis_title="subjects enrolled (all groups)", yaxis_title="power (probability)",
-        template="plotly_white", font={"size": 15}, margin={"l": 80, "r": 20, "t": 60, "b": 60},
-        legend={"orientation": "h", "yanchor": "top", "y": -0.2, "x": 0}, hovermode="closest")
-    fig.update_yaxes(range=[0, 1.02])
-    fig.update_xaxes(rangemode="tozero")
-    return fig
-
-
-def report_plan_figure(made) -> str:
-    """The power curve as self-contained HTML for the report."""
-    import plotly.io as pio
-
-    return pio.to_html(power_figure(made), include_plotlyjs=True, full_html=False,
-                       config={"displaylogo": False}, default_height="420px")
-
-
 def per_model_table(made) -> dash_table.DataTable:
     frame = made.comparison.to_frame()
     frame = pd.DataFrame({

@@ -510,8 +510,9 @@ def fit_mixed(panel, X, *, names, structure: str = "intercept+slope",
         The p term names.
     structure : str
         One of :data:`analysis.mixed.STRUCTURES`.
-    correlation : {"exponential", "gaussian"}
-        Serial correlation function (used only by structures containing "serial").
+    correlation : str
+        Serial correlation function (one of :data:`analysis.mixed.CORRELATIONS`), used by
+        structures with a serial process whose table row leaves the shape to the user.
     method : {"reml", "ml"}
     start : dict, optional
         Starting natural parameters (keys as in ``MixedFit.variance``); missing keys
@@ -539,6 +540,7 @@ def fit_mixed(panel, X, *, names, structure: str = "intercept+slope",
     """
     spec = spec_for(structure)
     X, names = _check_inputs(panel, X, names, spec, method, correlation, maxiter)
+    correlation = spec.correlation_for(correlation) or correlation   # a structure may fix it
     tmax = float(np.max(np.abs(panel.time))) if panel.n_obs else 1.0
     time_scale = tmax if tmax > 0 else 1.0
     if spec.serial:

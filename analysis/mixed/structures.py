@@ -10,6 +10,12 @@ covariance ``V_i`` (Diggle et al., 2002, ch. 5):
   ``exp(-(u/φ)²)`` ("gaussian");
 * independent measurement error with variance ``τ²`` (always present).
 
+The structures are rows of one table (:func:`register_structure`, built-in rows
+below); parameter lists, start values, nesting and likelihood-ratio reference
+distributions (:mod:`analysis.compare`), the implied semivariogram and every
+choice list (CLI help, the page's checklist) are derived from it. Correlation
+shapes live in :data:`CORRELATION_SHAPES`; an unknown shape is a ModelError.
+
 The optimiser works on an unconstrained vector ``θ``: the log-Cholesky
 factor of ``G`` (log of diagonal entries, raw off-diagonal), ``log σ²``,
 ``log φ`` and ``log τ²``. Internally time is divided by a scale factor ``s``
@@ -19,24 +25,13 @@ parameters on the user's time scale.
 """
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass
+from typing import Callable
 
 import numpy as np
 
 from ..errors import ModelError
-
-#: Working covariance structures, simplest first.
-STRUCTURES: tuple[str, ...] = (
-    "independence",
-    "intercept",
-    "intercept+slope",
-    "serial",
-    "intercept+serial",
-    "intercept+slope+serial",
-)
-
-#: Serial correlation functions ρ(u).
-CORRELATIONS: tuple[str, ...] = ("exponential", "gaussian")
 
 #: Estimation criteria.
 METHODS: tuple[str, ...] = ("reml", "ml")
@@ -47,9 +42,186 @@ PARAMETER_ORDER: tuple[str, ...] = (
 )
 
 
+# --------------------------------------------------------------------------- component tables
+@dataclass(frozen=True)
+class RandomEffects:
+    """A random-effects component: ``q`` effects with columns (1, t)[:q], ``G`` unstructured."""
+
+    q: int
+    parameters: tuple[str, ...]
+
+
+#: Random-effects components a structure can use.
+RANDOM_EFFECTS: dict[str, RandomEffects] = {
+    "none": RandomEffects(0, ()),
+    "intercept": RandomEffects(1, ("intercept_var",)),
+    "intercept+slope": RandomEffects(2, ("intercept_var", "slope_var", "intercept_slope_cov")),
+}
+
+#: Parameters of a serial process (variance σ², range φ).
+SERIAL_PARAMETERS: tuple[str, ...] = ("serial_var", "range")
+#: The measurement-error parameter every structure has.
+ERROR_PARAMETERS: tuple[str, ...] = ("error_var",)
+#: ``Structure.serial`` value meaning "a serial process with the shape the user chooses".
+CHOSEN = "chosen"
+
+
+@dataclass(frozen=True)
+class CorrelationShape:
+    """A serial correlation function ρ(u) = f(u/φ) and its derivative with respect to log φ.
+
+    Both functions take ``x = u/φ`` (an array, x >= 0).
+    """
+
+    name: str
+    label: str
+    rho: Callable[[np.ndarray], np.ndarray]
+    drho_dlogphi: Callable[[np.ndarray], np.ndarray]
+    formula: str
+
+
+#: Serial correlation functions, the only place a shape is defined.
+CORRELATION_SHAPES: dict[str, CorrelationShape] = {
+    "exponential": CorrelationShape("exponential", "exponential", lambda x: np.exp(-x),
+                                    lambda x: x * np.exp(-x), "exp(-u/φ)"),
+    "gaussian": CorrelationShape("gaussian", "Gaussian", lambda x: np.exp(-x * x),
+                                 lambda x: 2.0 * x * x * np.exp(-x * x), "exp(-(u/φ)²)"),
+}
+
+
+@dataclass(frozen=True)
+class Structure:
+    """One row of the structures table.
+
+    Attributes
+    ----------
+    name : str
+        Name used by the CLI, the page, the JSON and the comparison tables.
+    random : str
+        Key of :data:`RANDOM_EFFECTS` ("none", "intercept", "intercept+slope").
+    serial : str or None
+        None (no serial process), :data:`CHOSEN` (serial process with the
+        correlation shape chosen for the model set) or a key of
+        :data:`CORRELATION_SHAPES` (a serial process with that shape always).
+    label : str
+        Plain-language label of the page's checklist and the CLI help.
+    default : bool
+        Whether it is among the structures fitted unless told otherwise.
+
+    Every structure also has independent measurement error (τ²).
+    """
+
+    name: str
+    random: str
+    serial: str | None
+    label: str
+    default: bool = False
+
+
+#: The structures table, simplest first (order of every choice list).
+_TABLE: dict[str, Structure] = {}
+
+
+def register_structure(structure: Structure) -> Structure:
+    """Add a row to the structures table (everything else is derived from the table).
+
+    Raises
+    ------
+    ModelError
+        The name is taken, or a component is not known.
+    """
+    if structure.name in _TABLE:
+        raise ModelError(f"structure {structure.name!r} is already registered")
+    if structure.random not in RANDOM_EFFECTS:
+        raise ModelError(f"structure {structure.name!r}: random effects {structure.random!r} not "
+                         f"known; choose one of {list(RANDOM_EFFECTS)}")
+    if structure.serial not in (None, CHOSEN, *CORRELATION_SHAPES):
+        raise ModelError(f"structure {structure.name!r}: serial {structure.serial!r} not known; "
+                         f"choose None, {CHOSEN!r} or one of {list(CORRELATION_SHAPES)}")
+    _TABLE[structure.name] = structure
+    return structure
+
+
+def unregister_structure(name: str) -> None:
+    """Remove a row added by :func:`register_structure` (for tests and plug-ins)."""
+    _TABLE.pop(name, None)
+
+
+def structure_table() -> tuple[Structure, ...]:
+    """Every registered structure, in table order."""
+    return tuple(_TABLE.values())
+
+
+for _row in (
+    Structure("independence", "none", None, "Independence (measurement error only)"),
+    Structure("intercept", "intercept", None, "Random intercept", default=True),
+    Structure("intercept+slope", "intercept+slope", None, "Random intercept + random slope",
+              default=True),
+    Structure("serial", "none", CHOSEN, "Serial correlation + measurement error"),
+    Structure("intercept+serial", "intercept", CHOSEN,
+              "Random intercept + serial + measurement error", default=True),
+    Structure("intercept+slope+serial", "intercept+slope", CHOSEN,
+              "Random intercept + slope + serial + measurement error", default=True),
+):
+    register_structure(_row)
+
+
+class _LiveNames(Sequence):
+    """Read-only view of a registry's names (stays current when rows are added)."""
+
+    def __init__(self, registry: dict):
+        self._registry = registry
+
+    def __getitem__(self, i):
+        return tuple(self._registry)[i]
+
+    def __len__(self):
+        return len(self._registry)
+
+    def __contains__(self, name):
+        try:
+            return name in self._registry
+        except TypeError:
+            return False
+
+    def __repr__(self):
+        return repr(tuple(self._registry))
+
+
+#: Working covariance structure names, simplest first (a live view of the table).
+STRUCTURES: Sequence[str] = _LiveNames(_TABLE)
+#: Serial correlation function names (a live view of :data:`CORRELATION_SHAPES`).
+CORRELATIONS: Sequence[str] = _LiveNames(CORRELATION_SHAPES)
+
+
+def default_structures() -> tuple[str, ...]:
+    """Structures fitted unless told otherwise, in table order."""
+    return tuple(s.name for s in _TABLE.values() if s.default)
+
+
+def structure_labels() -> tuple[tuple[str, str], ...]:
+    """(name, label) of every structure, in table order (the choice lists)."""
+    return tuple((s.name, s.label) for s in _TABLE.values())
+
+
+def correlation_shape(correlation: str) -> CorrelationShape:
+    """The registered :class:`CorrelationShape` called ``correlation``.
+
+    Raises
+    ------
+    ModelError
+        The name is not registered.
+    """
+    try:
+        return CORRELATION_SHAPES[correlation]
+    except (KeyError, TypeError):
+        raise ModelError(f"correlation {correlation!r} is not known; choose one of "
+                         f"{list(CORRELATION_SHAPES)}") from None
+
+
 @dataclass(frozen=True)
 class StructureSpec:
-    """What a working covariance structure is made of.
+    """What a working covariance structure is made of (derived from its table row).
 
     Attributes
     ----------
@@ -61,12 +233,16 @@ class StructureSpec:
         Whether a stationary serial process is included.
     parameters : tuple of str
         Names of the natural variance parameters, in :data:`PARAMETER_ORDER`.
+    shape : str or None
+        The serial correlation shape fixed by the structure, or None when it
+        takes the shape chosen for the fit (or has no serial process).
     """
 
     name: str
     n_random: int
     serial: bool
     parameters: tuple[str, ...]
+    shape: str | None = None
 
     @property
     def n_theta(self) -> int:
@@ -78,50 +254,41 @@ class StructureSpec:
         """Fewest subjects the structure is fitted to: 2·(random effects) + 1."""
         return 2 * self.n_random + 1
 
+    @property
+    def n_variances(self) -> int:
+        """Variance components a simpler structure can fix at 0: one per random effect, σ²."""
+        return self.n_random + int(self.serial)
+
+    def correlation_for(self, chosen: str) -> str | None:
+        """The serial shape this structure uses when ``chosen`` is asked for (None: no serial)."""
+        if not self.serial:
+            return None
+        return self.shape or chosen
+
 
 def spec_for(structure: str) -> StructureSpec:
     """Describe ``structure`` (one of :data:`STRUCTURES`)."""
-    if structure not in STRUCTURES:
+    row = _TABLE.get(structure) if isinstance(structure, str) else None
+    if row is None:
         raise ModelError(f"structure {structure!r} is not known; choose one of {list(STRUCTURES)}")
-    n_random = 2 if "slope" in structure else (1 if "intercept" in structure else 0)
-    serial = "serial" in structure
-    params = []
-    if n_random >= 1:
-        params.append("intercept_var")
-    if n_random == 2:
-        params += ["slope_var", "intercept_slope_cov"]
-    if serial:
-        params += ["serial_var", "range"]
-    params.append("error_var")
-    return StructureSpec(structure, n_random, serial, tuple(params))
+    re_ = RANDOM_EFFECTS[row.random]
+    serial = row.serial is not None
+    params = re_.parameters + (SERIAL_PARAMETERS if serial else ()) + ERROR_PARAMETERS
+    shape = row.serial if serial and row.serial != CHOSEN else None
+    return StructureSpec(row.name, re_.q, serial, params, shape)
 
 
 def correlation_function(lag: np.ndarray, phi: float, correlation: str) -> np.ndarray:
-    """Serial correlation ρ(u) for lags ``u >= 0`` and range ``φ > 0``.
-
-    Notes
-    -----
-    exponential: ρ(u) = exp(−u/φ); gaussian: ρ(u) = exp(−(u/φ)²).
-    """
-    x = np.asarray(lag, dtype=float) / phi
-    if correlation == "exponential":
-        return np.exp(-x)
-    if correlation == "gaussian":
-        return np.exp(-x * x)
-    raise ModelError(f"correlation {correlation!r} is not known; choose one of {list(CORRELATIONS)}")
+    """Serial correlation ρ(u) for lags ``u >= 0`` and range ``φ > 0`` (see
+    :data:`CORRELATION_SHAPES`; an unknown name is a ModelError)."""
+    shape = correlation_shape(correlation)
+    return shape.rho(np.asarray(lag, dtype=float) / phi)
 
 
 def correlation_dlogphi(lag: np.ndarray, phi: float, correlation: str) -> np.ndarray:
-    """Derivative of ρ(u) with respect to log φ.
-
-    Notes
-    -----
-    exponential: (u/φ)·ρ(u); gaussian: 2(u/φ)²·ρ(u).
-    """
-    x = np.asarray(lag, dtype=float) / phi
-    if correlation == "exponential":
-        return x * np.exp(-x)
-    return 2.0 * x * x * np.exp(-x * x)
+    """Derivative of ρ(u) with respect to log φ (an unknown name is a ModelError)."""
+    shape = correlation_shape(correlation)
+    return shape.drho_dlogphi(np.asarray(lag, dtype=float) / phi)
 
 
 @dataclass(frozen=True)
