@@ -334,7 +334,7 @@ def cmd_report(args) -> int:
     from analysis.modelstage import ModelChoices
     from analysis.pipeline import Workbench
     from analysis.report import build_report
-    from app.models_view import report_figures
+    from app.sections.models import report_figures
 
     _check_output(args.out, "--out")
     data, roles, settings = resolve(args)

@@ -408,7 +408,7 @@ def follow_section():
 
 
 def models_section():
-    from .models_view import models_section as build  # the view module imports this one
+    from .sections.models import models_section as build  # the view module imports this one
 
     return build()
 

@@ -22,7 +22,8 @@ from analysis.settings import Roles, Settings
 from analysis.strata import SMALL_GROUP_SHARE, SMALL_GROUP_SUBJECTS, small_groups
 
 from . import controls as ctl
-from . import hub, ids, models_view, palette, views
+from . import hub, ids, palette, views
+from .sections import models as models_view
 from .datastore import (DEFAULT_CACHE_MB, DEMO_KEY, MAX_REQUEST_BYTES, DataStore, demo_dataset,
                         upload_limit)
 from .layout import build_layout

@@ -19,7 +19,7 @@ from analysis.errors import ModelError
 from analysis.loading import Dataset
 from analysis.modelling import fit_candidates
 from analysis.modelstage import ModelChoices
-from app import models_view as mv
+from app.sections import models as mv
 from app.server import create_app
 from app.session import attempt
 

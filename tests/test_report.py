@@ -20,7 +20,7 @@ from analysis.modelstage import ModelChoices
 from analysis.pipeline import Workbench
 from analysis.report import CAUTIONS, build_report
 from app.cli import main
-from app.models_view import report_figures
+from app.sections.models import report_figures
 
 N_SUBJECTS = 180
 VOID = {"area", "base", "br", "col", "embed", "hr", "img", "input", "link", "meta", "source",

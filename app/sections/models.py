@@ -26,10 +26,10 @@ from analysis.pipeline import Workbench
 from analysis.report import (ASSOCIATION_NOTE, CAUTIONS, MIXTURE_NOTE, PREFERRED_RULE,
                              build_report, model_tables, p_phrase, x_description)
 
-from . import ids
-from .layout import GRAPH_CONFIG, message, section
-from .session import AppContext, NeedsInput, attempt
-from .text import option
+from .. import ids
+from ..layout import GRAPH_CONFIG, message, section
+from ..session import AppContext, NeedsInput, attempt
+from ..text import option
 
 #: (structure, label) in the order offered; every structure includes measurement error
 STRUCTURE_CHOICES: tuple[tuple[str, str], ...] = (
