@@ -334,7 +334,7 @@ def cmd_report(args) -> int:
     from analysis.modelstage import ModelChoices
     from analysis.pipeline import Workbench
     from analysis.report import build_report
-    from app.sections.models import report_figures
+    from app.figures import report_figures
 
     _check_output(args.out, "--out")
     data, roles, settings = resolve(args)
@@ -353,9 +353,7 @@ def cmd_report(args) -> int:
     models = wb.models(dataset, roles, settings, choices) if choices else None
     text = build_report(exploration.cohort, exploration, models, data_name=dataset.name,
                         data_key=dataset.key, choices=choices,
-                        figures=report_figures(exploration, models, unit=settings.unit,
-                                               response=roles.response,
-                                               response_unit=exploration.cohort.response_unit))
+                        figures=report_figures(exploration, models))
     try:
         Path(args.out).write_text(text, encoding="utf-8")
     except OSError as exc:

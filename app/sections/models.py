@@ -13,9 +13,7 @@ import hashlib
 import json
 import re
 
-import numpy as np
 import pandas as pd
-import plotly.graph_objects as go
 from dash import Input, Output, State, dash_table, dcc, html, no_update
 
 from analysis.effects import format_number
@@ -27,7 +25,8 @@ from analysis.report import (ASSOCIATION_NOTE, CAUTIONS, MIXTURE_NOTE, PREFERRED
                              build_report, model_tables, p_phrase, x_description)
 
 from .. import ids
-from ..layout import GRAPH_CONFIG, message, section
+from ..components import GRAPH_CONFIG, message, section
+from ..figures import OVERLAY_CAPTION, cohort_look, fitted_variogram_figure, report_figures
 from ..session import AppContext, NeedsInput, attempt
 from ..text import option
 
@@ -41,10 +40,8 @@ STRUCTURE_CHOICES: tuple[tuple[str, str], ...] = (
     ("independence", "Independence (measurement error only)"),
 )
 START_STRUCTURES = ("intercept", "intercept+slope", "intercept+serial", "intercept+slope+serial")
-#: one line colour per model (cycled), distinct from the empirical points
-CURVE_COLOURS = ("#1b6a9e", "#c0621a", "#2c8a5a", "#8c4a9c", "#a33b4b", "#127f86")
-EMPIRICAL_COLOUR = "#2b2b2b"
-CURVE_POINTS = 160
+ANCHOR = "section-models"
+NAV = "Models"
 
 CONTROLS_GRID = {"display": "grid", "gap": "0.5rem 2.5rem", "alignItems": "start",
                  "gridTemplateColumns": "repeat(auto-fit, minmax(18rem, 1fr))"}
@@ -61,6 +58,10 @@ TABLE_STYLE = dict(
 
 
 # ------------------------------------------------------------------ layout
+def layout(settings=None, max_upload_bytes=None) -> html.Section:
+    return models_section()
+
+
 def models_section() -> html.Section:
     """Controls, the Fit button, the results area (filled after fitting) and the report export."""
     controls = html.Div(className="cl-model-controls", style=CONTROLS_GRID, children=[
@@ -165,73 +166,6 @@ def fit_for_view(context: AppContext, data, roles, settings, choices: ModelChoic
     return context.workbench.models(dataset, r, s, choices), context.workbench.cohort(dataset, r, s)
 
 
-def model_curves(models, max_lag: float, n: int = CURVE_POINTS) -> pd.DataFrame:
-    """Each fitted model's implied semivariogram on a lag grid: columns model, lag, gamma."""
-    lags = np.linspace(0.0, float(max_lag), n)
-    parts = [pd.DataFrame({"model": name, "lag": lags, "gamma": fit.variogram_curve(lags)})
-             for name, fit in models.fits.items()]
-    return (pd.concat(parts, ignore_index=True) if parts
-            else pd.DataFrame({"model": [], "lag": [], "gamma": []}))
-
-
-#: Caption of the semivariogram overlay (page and report).
-OVERLAY_CAPTION = ("Points: empirical semivariogram (sized by pair count) of the residuals from "
-                   "the models' own mean — the fixed-effects design fitted by ordinary least "
-                   "squares — not of the smooth trend used for exploration, so points and lines "
-                   "describe the same residuals. Lines: the semivariogram implied by each fitted "
-                   "model (★ = preferred).")
-
-
-def variogram_overlay(bins: pd.DataFrame, curves: pd.DataFrame, *, unit: str, response: str,
-                      response_unit: str = "", preferred: str | None = None) -> go.Figure:
-    """Empirical semivariogram (points sized by pairs) with each model's fitted curve.
-
-    Parameters
-    ----------
-    bins : DataFrame
-        ``Semivariogram.to_frame()``: lag_mean, gamma, pairs (and bin edges).
-    curves : DataFrame
-        :func:`model_curves`: model, lag, gamma.
-    unit : str
-        Time unit (x axis).
-    response, response_unit : str
-        Response name and unit (the y axis is in squared response units).
-    preferred : str, optional
-        Model drawn thicker.
-    """
-    fig = go.Figure()
-    ok = bins[np.isfinite(bins["gamma"].to_numpy(float))]
-    pairs = ok["pairs"].to_numpy(float)
-    size = 7 + 11 * np.sqrt(pairs / pairs.max()) if len(pairs) and pairs.max() > 0 else 9
-    fig.add_trace(go.Scatter(
-        x=ok["lag_mean"], y=ok["gamma"], mode="markers",
-        name="empirical (residuals of the models' mean, OLS)",
-        marker={"color": EMPIRICAL_COLOUR, "size": size, "symbol": "circle"},
-        customdata=np.column_stack([ok["pairs"], ok["lag_lo"], ok["lag_hi"]]) if len(ok) else None,
-        hovertemplate=(f"lag %{{customdata[1]:.3g}}–%{{customdata[2]:.3g}} {unit}<br>"
-                       "semivariance %{y:.4g}<br>%{customdata[0]} pairs<extra></extra>")))
-    for i, (name, part) in enumerate(curves.groupby("model", sort=False)):
-        best = name == preferred
-        fig.add_trace(go.Scatter(
-            x=part["lag"], y=part["gamma"], mode="lines",
-            name=f"{name} ★" if best else name,
-            line={"color": CURVE_COLOURS[i % len(CURVE_COLOURS)], "width": 4 if best else 2,
-                  "dash": "solid" if best else "dash"},
-            hovertemplate=f"{name}<br>lag %{{x:.3g}} {unit}<br>fitted %{{y:.4g}}<extra></extra>"))
-    fig.update_layout(
-        title={"text": f"{response}: fitted semivariograms against the empirical one",
-               "x": 0.01},
-        xaxis_title=f"time apart ({unit})",
-        yaxis_title=(f"semivariance ({response_unit})²" if response_unit
-                     else f"semivariance ({response} units²)"),
-        template="plotly_white", font={"size": 15}, margin={"l": 80, "r": 20, "t": 60, "b": 60},
-        legend={"orientation": "h", "yanchor": "top", "y": -0.18, "x": 0},
-        hovermode="closest")
-    fig.update_xaxes(rangemode="tozero")
-    fig.update_yaxes(rangemode="tozero", automargin=True)
-    return fig
-
-
 def placeholder_figure(text: str = "Press “Fit models” to draw the fitted semivariograms.") -> dict:
     return {"data": [], "layout": {
         "xaxis": {"visible": False}, "yaxis": {"visible": False},
@@ -311,24 +245,6 @@ def detail_children(models, chosen: str | None, *, unit: str, x_note: str = "") 
             html.H3(f"Variance parameters — {t.chosen}"), datatable(t.variance)]
 
 
-def report_figures(exploration, models, *, unit: str, response: str,
-                   response_unit: str = "") -> list[tuple[str, str]]:
-    """(caption, self-contained HTML) figures for the report: the semivariogram overlay."""
-    import plotly.io as pio
-
-    vg = exploration.variogram
-    if models is not None and getattr(models, "panel", None) is not None:
-        vg = models.residual_variogram(n_bins=len(vg.bins), max_lag=vg.max_lag)
-    curves = (model_curves(models, vg.max_lag) if models is not None
-              else pd.DataFrame({"model": [], "lag": [], "gamma": []}))
-    fig = variogram_overlay(vg.to_frame(), curves, unit=unit, response=response,
-                            response_unit=response_unit,
-                            preferred=getattr(models, "preferred", None))
-    snippet = pio.to_html(fig, include_plotlyjs=True, full_html=False,
-                          config={"displaylogo": False}, default_height="460px")
-    return [(OVERLAY_CAPTION, snippet)]
-
-
 def report_text(context: AppContext, data, roles, settings, snapshot: dict | None,
                 chosen: str | None = None) -> tuple[str, str]:
     """(file name, HTML) of the report for the current choices.
@@ -347,8 +263,7 @@ def report_text(context: AppContext, data, roles, settings, snapshot: dict | Non
             models = wb.models(dataset, r, s, choices)
         else:
             choices = None
-    figures = report_figures(exploration, models, unit=s.unit, response=r.response,
-                             response_unit=cohort.response_unit)
+    figures = report_figures(exploration, models)
     # the file name this session gave its table (the shared store keeps none for uploads)
     name = (data or {}).get("name") or dataset.name
     text = build_report(cohort, exploration, models, data_name=name,
@@ -449,11 +364,9 @@ def fit_outputs(context: AppContext, data, roles, settings, structures, correlat
     models, cohort = fit_for_view(context, data, roles, settings, choices)
     if not models.fits:
         raise ModelError("none of the chosen models could be fitted: " + "; ".join(models.notes))
-    _, r, s = context.inputs(data, roles, settings)
+    _, _, s = context.inputs(data, roles, settings)
     vg = models.residual_variogram(n_bins=s.variogram_bins, max_lag=s.variogram_max_lag)
-    fig = variogram_overlay(vg.to_frame(), model_curves(models, vg.max_lag), unit=s.unit,
-                            response=r.response, response_unit=cohort.response_unit,
-                            preferred=models.preferred)
+    fig = fitted_variogram_figure(vg, models, look=cohort_look(cohort))
     names = list(models.fits)
     snapshot = {"key": snapshot_key(context, data, roles, settings, choices), "data": data,
                 "roles": roles, "settings": settings, "choices": choices.to_dict()}
