@@ -52,7 +52,7 @@ def header() -> html.Header:
             html.H1(id=ids.PAGE_TITLE, children="—"),
         ]),
         html.Nav(className="cl-nav", children=[
-            html.A(label, href=f"#{anchor}") for anchor, label in SECTIONS]),
+            html.A(m.NAV, href=f"#{m.ANCHOR}") for m in PAGE_SECTIONS if m.NAV]),
         html.Div(id=ids.PAGE_CAUTION, className="cl-caution", role="note", children=[
             html.Span("Caution", className="cl-caution-tag"),
             html.Span(CAUTION),

@@ -11,7 +11,7 @@ from __future__ import annotations
 import hashlib
 import json
 
-from dash import Input, Output, State
+from dash import Input, Output, State, dcc
 from dash.exceptions import PreventUpdate
 
 from analysis.pipeline import Workbench
@@ -35,6 +35,20 @@ def render_key(context: AppContext, stage: str, data, roles, settings, *extra) -
     sub = {k: d[k] for k in Workbench.stage_fields(stage, s)}
     raw = json.dumps([dataset.key, r.to_dict(), stage, sub, extra], sort_keys=True, default=str)
     return hashlib.sha1(raw.encode()).hexdigest()
+
+
+def rendered_id(view: str) -> str:
+    """Id of the store holding the key ``view`` was last drawn for (``"<view>-rendered"``).
+
+    The page's first views have theirs in :data:`app.ids.VIEW_RENDERED` (placed by
+    :mod:`app.layout`); a new section places :func:`rendered_store` in its own fragment.
+    """
+    return ids.VIEW_RENDERED.get(view, f"{view}-rendered")
+
+
+def rendered_store(view: str) -> dcc.Store:
+    """The store for :func:`rendered_id` (put it in the section's layout fragment)."""
+    return dcc.Store(id=rendered_id(view))
 
 
 def skip_if_same(key: str, last: str | None) -> None:
@@ -62,8 +76,8 @@ def figure_and_note_view(app, context: AppContext, *, view: str, stage: str, gra
     the settings of ``stage`` (or the data/roles) change.
     """
     @app.callback(Output(graph, "figure"), Output(note, "children"), Output(msg, "children"),
-                  Output(ids.VIEW_RENDERED[view], "data"),
-                  *STORES, State(ids.VIEW_RENDERED[view], "data"))
+                  Output(rendered_id(view), "data"),
+                  *STORES, State(rendered_id(view), "data"))
     def _view(data, roles, settings, last):
         key = render_key(context, stage, data, roles, settings)
         skip_if_same(key, last)

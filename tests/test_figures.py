@@ -129,6 +129,7 @@ def test_courses_one_panel_per_group_means_from_every_subject(res):
     assert len(line_traces) == len(labels)
     drawn = {v for t in line_traces for v in t.customdata if v is not None}
     assert drawn == set(shown["subject"])
+    # the figure draws analysis.summaries.group_means (tested on its own in test_summaries.py);
     # reference: pandas — the same 12 equal-width bins cut with pd.cut over ALL subjects
     t = frame["time"].to_numpy(float)
     edges = np.linspace(t.min(), t.max(), summaries.MEAN_BINS + 1)
