@@ -37,10 +37,6 @@ from .text import short
 
 #: above this many points in one group, subject lines/points use WebGL traces
 GL_POINTS = 1500
-#: at most this many subjects get their id as a y tick label in the slope-interval view
-MAX_SUBJECT_TICKS = 40
-#: heatmap cells carry their text only up to this many windows (hover always has it)
-MAX_CELL_TEXT = 16
 #: readable on a projector
 FONT = {"family": "DejaVu Sans, Segoe UI, Roboto, Helvetica, Arial, sans-serif",
         "size": 15, "color": "#1b1f24"}

@@ -69,7 +69,7 @@ def summary_inputs(context, data, roles, settings):
 
 
 def figure_and_note_view(app, context: AppContext, *, view: str, stage: str, graph: str,
-                          note: str, msg: str, build, what: str) -> None:
+                         note: str, msg: str, build, what: str) -> None:
     """Register a view drawn from the stores alone: one figure plus a note under it.
 
     ``build(data, roles, settings)`` returns (figure, note); the view redraws only when

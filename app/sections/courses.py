@@ -26,7 +26,7 @@ NAV = "Courses over time"
 
 
 def layout(settings=None, max_upload_bytes=None):
-    return section("section-course", "Courses over time, by group",
+    return section(ANCHOR, "Courses over time, by group",
                    "One panel per group; a reproducible random sample of subjects is drawn "
                    "in each, with the group's smoothed mean.",
                    html.Div(className="cl-view-controls", children=[
@@ -41,7 +41,6 @@ def layout(settings=None, max_upload_bytes=None):
 
 
 def register(app, context: AppContext) -> None:
-    # -------------------------------------------------------------- courses over time
     @app.callback(Output(ids.COURSE_GRAPH, "figure"), Output(ids.COURSE_NOTE, "children"),
                   Output(ids.COURSE_MSG, "children"), Output(ids.VIEW_RENDERED["course"], "data"),
                   *STORES, *HIGHLIGHT, Input(ids.COURSE_DRAW, "value"),
@@ -55,11 +54,10 @@ def register(app, context: AppContext) -> None:
             cohort = stage_call(context, "cohort", data, roles, settings)
             frame = cohort.frame
             frame["subject"] = frame["subject"].astype(str)
-            chosen, k, n = sample_subjects(frame, per_stratum=n_draw, seed=seed,
-                                                keep=subject)
+            chosen, k, n = sample_subjects(frame, per_stratum=n_draw, seed=seed, keep=subject)
             shown = frame[frame["subject"].isin(set(chosen))]
-            fig = courses_figure(shown, full=frame, look=cohort_look(cohort), highlight_subject=subject,
-                               highlight_stratum=stratum)
+            fig = courses_figure(shown, full=frame, look=cohort_look(cohort),
+                                 highlight_subject=subject, highlight_stratum=stratum)
             return fig, f"{k} of {n} subjects drawn (sample {seed}); means use every subject."
 
         return finish(make, "drawing courses over time", key, ("fig", "text"))

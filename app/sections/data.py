@@ -51,7 +51,7 @@ def layout(settings: Settings | None = None,
          "Per subject: when its follow-up was due to end (date or time), so that leaving early "
          "is told apart from the end of the data."),
     ]
-    return section("section-data", "Data & column roles",
+    return section(ANCHOR, "Data & column roles",
                    "Upload a CSV or Parquet table with one row per visit. It is read in memory "
                    "on this computer and never saved to disk.",
                    html.Div(className="cl-data-row", children=[

@@ -23,7 +23,7 @@ NAV = "Follow-up & loss"
 
 
 def layout(settings=None, max_upload_bytes=None):
-    return section("section-follow", "Visits and loss to follow-up",
+    return section(ANCHOR, "Visits and loss to follow-up",
                    "How many visits each subject has, and when subjects leave the data, by group.",
                    message(ids.FOLLOW_MSG),
                    graph(ids.FOLLOW_VISITS_GRAPH, 380),
@@ -32,7 +32,6 @@ def layout(settings=None, max_upload_bytes=None):
 
 
 def register(app, context: AppContext) -> None:
-    # -------------------------------------------------------------- follow-up
     @app.callback(Output(ids.FOLLOW_VISITS_GRAPH, "figure"),
                   Output(ids.FOLLOW_DROPOUT_GRAPH, "figure"), Output(ids.FOLLOW_NOTE, "children"),
                   Output(ids.FOLLOW_MSG, "children"), Output(ids.VIEW_RENDERED["follow"], "data"),
@@ -45,7 +44,7 @@ def register(app, context: AppContext) -> None:
             frame, summ, cohort = summary_inputs(context, data, roles, settings)
             look = cohort_look(cohort)
             return (visits_figure(frame, look=look, highlight_subject=subject,
-                                highlight_stratum=stratum),
+                                  highlight_stratum=stratum),
                     dropout_figure(summ.dropout, look=look, highlight_stratum=stratum),
                     dropout_note(summ.dropout, time_unit=cohort.settings.unit))
 

@@ -20,7 +20,7 @@ NAV = "Who is analysed"
 
 
 def layout(settings=None, max_upload_bytes=None):
-    return section("section-kept", "Who is analysed",
+    return section(ANCHOR, "Who is analysed",
                    "What each inclusion step removed, in order.",
                    busy(dash_table.DataTable(id=ids.KEPT_TABLE, style_as_list_view=True,
                                         style_cell={"fontFamily": "inherit", "fontSize": "16px",

@@ -22,7 +22,7 @@ MAX_CELL_TEXT = 16
 
 
 def layout(settings=None, max_upload_bytes=None):
-    return section("section-pairs", "Correlation between a subject's visits",
+    return section(ANCHOR, "Correlation between a subject's visits",
                    "Residual correlation between visits that fall in two time windows; each "
                    "cell shows how many within-subject pairs it rests on.",
                    message(ids.PAIRS_MSG),

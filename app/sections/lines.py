@@ -24,7 +24,7 @@ MAX_SUBJECT_TICKS = 40
 
 
 def layout(settings=None, max_upload_bytes=None):
-    return section("section-lines", "Each subject's own straight line",
+    return section(ANCHOR, "Each subject's own straight line",
                    "Least-squares intercept and slope per subject with 95% intervals "
                    "(subjects with two visits have no interval).",
                    html.Div(className="cl-view-controls", children=[
@@ -38,7 +38,6 @@ def layout(settings=None, max_upload_bytes=None):
 
 
 def register(app, context: AppContext) -> None:
-    # -------------------------------------------------------------- subject lines
     @app.callback(Output(ids.LINES_GRAPH, "figure"), Output(ids.LINES_MSG, "children"),
                   Output(ids.VIEW_RENDERED["lines"], "data"),
                   *STORES, *HIGHLIGHT, Input(ids.LINES_ORDER, "value"),
@@ -51,8 +50,8 @@ def register(app, context: AppContext) -> None:
         def make():
             frame = stage_call(context, "subject_lines", data, roles, settings)
             cohort = stage_call(context, "cohort", data, roles, settings)
-            return (intervals_figure(frame, look=cohort_look(cohort), order=order, highlight_subject=subject,
-                                   highlight_stratum=stratum),)
+            return (intervals_figure(frame, look=cohort_look(cohort), order=order,
+                                     highlight_subject=subject, highlight_stratum=stratum),)
 
         return finish(make, "drawing subject lines", key, ("fig",))
 

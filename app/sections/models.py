@@ -118,7 +118,7 @@ def models_section() -> html.Section:
     ]))
     # its own spinner: choosing another model's details must not hide the results above
     details = dcc.Loading(type="circle", children=html.Div(id=ids.MODELS_DETAIL))
-    return section("section-models", "Models: does the covariate change the rate of change?",
+    return section(ANCHOR, "Models: does the covariate change the rate of change?",
                    "Fit mixed models with a time × covariate term under several working "
                    "covariance structures, compare them, and read the answer with model-based "
                    "and robust standard errors. Fitting starts only when you press the button.",

@@ -24,7 +24,7 @@ NAV = "Rate of change vs covariate"
 
 
 def layout(settings=None, max_upload_bytes=None):
-    return section("section-rate", "Rate of change and the baseline covariate",
+    return section(ANCHOR, "Rate of change and the baseline covariate",
                    "Per-subject slopes by group, and against the covariate with a lowess "
                    "smooth. A first look only: the model section gives the adjusted answer.",
                    message(ids.RATE_MSG),
@@ -40,7 +40,6 @@ def layout(settings=None, max_upload_bytes=None):
 
 
 def register(app, context: AppContext) -> None:
-    # -------------------------------------------------------------- rate of change
     @app.callback(Output(ids.RATE_STRATA_GRAPH, "figure"), Output(ids.RATE_COVARIATE_GRAPH, "figure"),
                   Output(ids.RATE_TABLE, "data"), Output(ids.RATE_TABLE, "columns"),
                   Output(ids.RATE_MSG, "children"), Output(ids.VIEW_RENDERED["rate"], "data"),
@@ -54,11 +53,12 @@ def register(app, context: AppContext) -> None:
             table = summ.stratum_table.round(3)
             columns = rate_table_columns(table.columns, cohort)
             table = table[[c["id"] for c in columns]]
-            return (slopes_by_stratum_figure(frame, look=cohort_look(cohort), highlight_subject=subject,
-                                           highlight_stratum=stratum),
-                    slope_vs_covariate_figure(frame, summ.slope_smooth, look=cohort_look(cohort),
-                                            highlight_subject=subject,
-                                            highlight_stratum=stratum),
+            look = cohort_look(cohort)
+            return (slopes_by_stratum_figure(frame, look=look, highlight_subject=subject,
+                                             highlight_stratum=stratum),
+                    slope_vs_covariate_figure(frame, summ.slope_smooth, look=look,
+                                              highlight_subject=subject,
+                                              highlight_stratum=stratum),
                     table.astype(object).where(table.notna(), None).to_dict("records"),
                     columns)
 

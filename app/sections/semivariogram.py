@@ -18,7 +18,7 @@ NAV = "Spread by time apart"
 
 
 def layout(settings=None, max_upload_bytes=None):
-    return section("section-spread", "Spread of residual differences by time apart",
+    return section(ANCHOR, "Spread of residual differences by time apart",
                    "Empirical semivariogram of residuals after removing the mean curve: half "
                    "the mean squared difference between two visits of the same subject, by "
                    "how far apart in time they were.",
