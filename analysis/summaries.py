@@ -517,3 +517,68 @@ def _mean(x: np.ndarray) -> float:
 def _records(frame: pd.DataFrame) -> list[dict]:
     cols = {c: json_safe(frame[c].tolist()) for c in frame.columns}
     return [{c: cols[c][i] for c in frame.columns} for i in range(len(frame))]
+
+
+# --------------------------------------------------------------------------- figure summaries
+#: time bins for the group mean curves over time, and the fewest visits a bin needs
+MEAN_BINS = 12
+MEAN_MIN_VISITS = 5
+
+
+def group_means(full: pd.DataFrame, *, strata, n_bins: int = MEAN_BINS,
+                min_visits: int = MEAN_MIN_VISITS) -> pd.DataFrame:
+    """Binned mean response over time per group, from every subject of the group.
+
+    Time is cut into ``n_bins`` equal-width bins over the whole cohort's range
+    (shared by all groups, so group curves are comparable); a bin's point sits at
+    the mean visit time inside it. Bins with fewer than ``min_visits`` visits are dropped.
+
+    Returns
+    -------
+    DataFrame
+        stratum_label, bin, time, response, visits.
+    """
+    t = full["time"].to_numpy(float)
+    y = full["response"].to_numpy(float)
+    lab = full["stratum_label"].astype(str).to_numpy()
+    cols = ["stratum_label", "bin", "time", "response", "visits"]
+    ok = np.isfinite(t) & np.isfinite(y)
+    if not ok.any():
+        return pd.DataFrame(columns=cols)
+    t, y, lab = t[ok], y[ok], lab[ok]
+    edges, b = equal_width_bins(t, n_bins)
+    nb = edges.size - 1
+    codes = pd.Categorical(lab, categories=list(strata)).codes.astype(np.int64)
+    keep = codes >= 0
+    key = codes[keep] * nb + b[keep]
+    size = len(strata) * nb
+    n = np.bincount(key, minlength=size)
+    st = np.bincount(key, weights=t[keep], minlength=size)
+    sy = np.bincount(key, weights=y[keep], minlength=size)
+    cell = np.flatnonzero(n >= max(int(min_visits), 1))
+    return pd.DataFrame({
+        "stratum_label": np.asarray(strata, dtype=object)[cell // nb],
+        "bin": cell % nb,
+        "time": st[cell] / n[cell],
+        "response": sy[cell] / n[cell],
+        "visits": n[cell],
+    }, columns=cols)
+
+
+def visit_counts(lines: pd.DataFrame, *, strata) -> pd.DataFrame:
+    """Subjects per (number of visits, group): index visits, one column per group."""
+    tab = pd.crosstab(lines["n"].astype(int), lines["stratum_label"].astype(str))
+    cols = [s for s in strata if s in tab.columns] + sorted(set(tab.columns) - set(strata))
+    full = np.arange(tab.index.min(), tab.index.max() + 1) if len(tab) else []
+    return tab.reindex(index=full, columns=cols, fill_value=0)
+
+
+def mean_interval_halfwidth(sd, n, level: float = CONFIDENCE_LEVEL) -> np.ndarray:
+    """Half-width of the normal ``level`` interval of a mean: ``z * sd / sqrt(n)`` (NaN-safe).
+
+    Used for the response at the last visit per group and follow-up status
+    (:attr:`Dropout.by_stratum` columns ``sd`` and ``n``).
+    """
+    sd = np.asarray(sd, dtype=float)
+    n = np.asarray(n, dtype=float)
+    return z_quantile(level) * sd / np.sqrt(n)

@@ -474,3 +474,25 @@ def _check_options(*, n_bins, max_lag, smooth_frac, smooth_max_pairs, chunk_pair
         raise SettingsError(f"smooth_max_pairs == {smooth_max_pairs!r}, must be >= 10")
     if chunk_pairs < 1:
         raise SettingsError(f"chunk_pairs == {chunk_pairs!r}, must be >= 1")
+
+
+def _num(x):
+    x = float(x)
+    return x if np.isfinite(x) else None
+
+
+#: lag grid points of a fitted model's implied semivariogram curve
+CURVE_POINTS = 160
+
+
+def model_curves(fits, max_lag: float, n: int = CURVE_POINTS) -> pd.DataFrame:
+    """Each fitted model's implied semivariogram on ``n`` lags from 0 to ``max_lag``.
+
+    ``fits`` maps a model name to a fit with ``variogram_curve(lags)`` (e.g.
+    ``ModelSet.fits``). Returns columns model, lag, gamma (models in ``fits`` order).
+    """
+    lags = np.linspace(0.0, float(max_lag), n)
+    parts = [pd.DataFrame({"model": name, "lag": lags, "gamma": fit.variogram_curve(lags)})
+             for name, fit in fits.items()]
+    return (pd.concat(parts, ignore_index=True) if parts
+            else pd.DataFrame({"model": [], "lag": [], "gamma": []}))

@@ -350,8 +350,8 @@ def cmd_fit(args) -> int:
 def cmd_report(args) -> int:
     from analysis.loading import Dataset
     from analysis.pipeline import Workbench
-    from analysis.overlay import report_figures, report_plan_figure
     from analysis.report import build_report
+    from app.figures import report_figures, report_plan_figure
 
     _check_output(args.out, "--out")
     data, roles, settings = resolve(args)
@@ -368,9 +368,7 @@ def cmd_report(args) -> int:
         made = _plan_for(args, wb, dataset, roles, settings, models)
     text = build_report(exploration.cohort, exploration, models, data_name=dataset.name,
                         data_key=dataset.key, choices=choices,
-                        figures=report_figures(exploration, models, unit=settings.unit,
-                                               response=roles.response,
-                                               response_unit=exploration.cohort.response_unit),
+                        figures=report_figures(exploration, models),
                         plan=made, plan_figure=report_plan_figure(made) if made else None)
     try:
         Path(args.out).write_text(text, encoding="utf-8")

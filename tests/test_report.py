@@ -20,7 +20,7 @@ from analysis.modelstage import ModelChoices
 from analysis.pipeline import Workbench
 from analysis.report import CAUTIONS, build_report
 from app.cli import main
-from app.models_view import report_figures
+from app.figures import report_figures
 
 N_SUBJECTS = 180
 VOID = {"area", "base", "br", "col", "embed", "hr", "img", "input", "link", "meta", "source",
@@ -81,9 +81,7 @@ def report(demo_slice):
     ex = wb.explore(ds, roles, settings)
     models = wb.models(ds, roles, settings, choices)
     text = build_report(ex.cohort, ex, models, data_name=ds.name, data_key=ds.key,
-                        choices=choices, figures=report_figures(
-                            ex, models, unit="months", response="egfr",
-                            response_unit=ex.cohort.response_unit))
+                        choices=choices, figures=report_figures(ex, models))
     return text, ex, models, ds
 
 
@@ -175,7 +173,7 @@ def test_cli_report_missing_roles_exits_2(tmp_path, demo_slice, capsys):
 
 
 def test_report_dropout_part_says_what_the_page_says(demo_slice):
-    from app.views import dropout_note
+    from app.sections.followup import dropout_note
 
     wb = Workbench()
     ds = Dataset.from_frame(demo_slice, name="slice.csv")

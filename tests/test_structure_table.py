@@ -99,7 +99,7 @@ def test_a_registered_structure_is_offered_everywhere(registered):
     assert (NEW, registered.label) in CHOICE_FIELDS["structures"].options()
     assert ModelChoices(structures=(NEW,)).structures == (NEW,)
     from app.cli import build_parser
-    from app.models_view import models_section
+    from app.sections.models import models_section
 
     assert NEW in str(models_section())            # the page's checklist
     # CLI: accepted by --models

@@ -48,7 +48,7 @@ def test_same_content_under_two_names_keeps_each_sessions_name():
     assert out["data"]["name"] == "beta_export.csv"
 
     # the exported report is named after, and names, this session's file
-    from app.models_view import report_text
+    from app.sections.models import report_text
 
     roles = {"roles": demo_roles().to_dict()}
     fname, html = report_text(context, second["data"], roles, None, None)

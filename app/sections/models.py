@@ -20,21 +20,23 @@ from analysis.numbers import format_number
 from analysis.errors import ModelError
 from analysis.loading import fingerprint
 from analysis.modelstage import CHOICE_FIELDS, ModelChoices
-from analysis.overlay import (CURVE_COLOURS, CURVE_POINTS, EMPIRICAL_COLOUR,  # noqa: F401
-                              OVERLAY_CAPTION, model_curves, report_figures, variogram_overlay)
 from analysis.pipeline import Workbench
 from analysis.report import (ASSOCIATION_NOTE, CAUTIONS, MIXTURE_NOTE, PREFERRED_RULE,
                              build_report, model_tables, p_phrase, x_description)
 
-from . import ids
-from .layout import GRAPH_CONFIG, message, section
-from .session import AppContext, NeedsInput, attempt
-from .text import option
+from .. import ids
+from ..components import GRAPH_CONFIG, message, section
+from ..figures import OVERLAY_CAPTION, cohort_look, fitted_variogram_figure, report_figures
+from ..session import AppContext, NeedsInput, attempt
+from ..text import option
 
 #: (structure, label) in the order offered (from the structures table); every structure
 #: includes measurement error
 STRUCTURE_CHOICES: tuple[tuple[str, str], ...] = CHOICE_FIELDS["structures"].options()
 START_STRUCTURES = ModelChoices().structures
+ANCHOR = "section-models"
+NAV = "Models"
+
 CONTROLS_GRID = {"display": "grid", "gap": "0.5rem 2.5rem", "alignItems": "start",
                  "gridTemplateColumns": "repeat(auto-fit, minmax(18rem, 1fr))"}
 CHECK_COLUMN = {"display": "grid", "gridTemplateColumns": "1fr", "gap": "0.35rem"}
@@ -50,6 +52,10 @@ TABLE_STYLE = dict(
 
 
 # ------------------------------------------------------------------ layout
+def layout(settings=None, max_upload_bytes=None) -> html.Section:
+    return models_section()
+
+
 def models_section() -> html.Section:
     """Controls, the Fit button, the results area (filled after fitting) and the report export."""
     f, start = CHOICE_FIELDS, ModelChoices()
@@ -109,7 +115,7 @@ def models_section() -> html.Section:
     ]))
     # its own spinner: choosing another model's details must not hide the results above
     details = dcc.Loading(type="circle", children=html.Div(id=ids.MODELS_DETAIL))
-    return section("section-models", "Models: does the covariate change the rate of change?",
+    return section(ANCHOR, "Models: does the covariate change the rate of change?",
                    "Fit mixed models with a time × covariate term under several working "
                    "covariance structures, compare them, and read the answer with model-based "
                    "and robust standard errors. Fitting starts only when you press the button.",
@@ -255,14 +261,13 @@ def report_text(context: AppContext, data, roles, settings, snapshot: dict | Non
             models = wb.models(dataset, r, s, choices)
         else:
             choices = None
-    figures = report_figures(exploration, models, unit=s.unit, response=r.response,
-                             response_unit=cohort.response_unit)
+    figures = report_figures(exploration, models)
     # the file name this session gave its table (the shared store keeps none for uploads)
     name = (data or {}).get("name") or dataset.name
     made = plan_figure = None
     if models is not None and plan_request and \
             (plan_request.get("snapshot") or {}).get("key") == snapshot.get("key"):
-        from .plan_view import make_plan, report_plan_figure
+        from .plan import make_plan, report_plan_figure
 
         made = make_plan(context, plan_request)[0]
         plan_figure = report_plan_figure(made)
@@ -366,11 +371,9 @@ def fit_outputs(context: AppContext, data, roles, settings, structures, correlat
     models, cohort = fit_for_view(context, data, roles, settings, choices)
     if not models.fits:
         raise ModelError("none of the chosen models could be fitted: " + "; ".join(models.notes))
-    _, r, s = context.inputs(data, roles, settings)
+    _, _, s = context.inputs(data, roles, settings)
     vg = models.residual_variogram(n_bins=s.variogram_bins, max_lag=s.variogram_max_lag)
-    fig = variogram_overlay(vg.to_frame(), model_curves(models, vg.max_lag), unit=s.unit,
-                            response=r.response, response_unit=cohort.response_unit,
-                            preferred=models.preferred)
+    fig = fitted_variogram_figure(vg, models, look=cohort_look(cohort))
     names = list(models.fits)
     snapshot = {"key": snapshot_key(context, data, roles, settings, choices), "data": data,
                 "roles": roles, "settings": settings, "choices": choices.to_dict()}

@@ -18,15 +18,16 @@ from analysis.errors import CohortError, SettingsError
 from analysis.modelstage import ModelChoices
 from analysis.plan_defaults import parse_schedule, plan_from_cohort
 from analysis.planning import simulate_power
-from analysis.overlay import power_figure, report_plan_figure  # noqa: F401  (report_plan_figure: used by the Models export)
 from analysis.report import fmt, plan_sentences
 
-from . import ids
-from .layout import GRAPH_CONFIG, section
-from .session import AppContext, attempt
+from .. import ids
+from ..components import GRAPH_CONFIG, section
+from ..figures import power_figure, report_plan_figure  # noqa: F401  (report_plan_figure: the Models export)
+from ..session import AppContext, attempt
 
 # ------------------------------------------------------------------ ids (this section's own)
 ANCHOR = "section-plan"
+NAV = "Plan"
 HINT = "plan-hint"
 BODY = "plan-body"
 MODEL = "plan-model"
@@ -62,6 +63,10 @@ def _field(label, control, key, hint=None):
         html.Label(label, className="cl-label", htmlFor=control.id), control,
         *([html.Small(hint, className="cl-hint")] if hint else []),
         html.Div(id=MSG[key], className="cl-msg", role="alert")])
+
+
+def layout(settings=None, max_upload_bytes=None) -> html.Section:
+    return plan_section()
 
 
 def plan_section() -> html.Section:
