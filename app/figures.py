@@ -30,7 +30,7 @@ import numpy as np
 import pandas as pd
 import plotly.graph_objects as go
 
-from analysis.summaries import ALL_LABEL
+from analysis.exploration.summaries import ALL_LABEL
 
 from . import palette as pal
 from .text import short
@@ -304,11 +304,11 @@ def variogram_figure(vg, *, look: CohortLook, model_curves: pd.DataFrame | None 
 
     Parameters
     ----------
-    vg : analysis.variogram.Semivariogram
+    vg : analysis.exploration.variogram.Semivariogram
         Reads ``bins`` (lag_lo, lag_hi, lag_mean, gamma, pairs), ``smooth`` (lag,
         gamma), ``process_variance``, ``max_lag`` and ``n_pairs``.
     model_curves : DataFrame, optional
-        :func:`analysis.variogram.model_curves` (model, lag, gamma): each fitted model's
+        :func:`analysis.exploration.variogram.model_curves` (model, lag, gamma): each fitted model's
         implied semivariogram, one line each, the ``preferred`` one thicker and starred.
         With curves the figure shows the points and the curves only (the smooth and the
         process variance describe the exploration's residuals, not the models').
@@ -378,7 +378,7 @@ def variogram_figure(vg, *, look: CohortLook, model_curves: pd.DataFrame | None 
 
 def fitted_variogram_figure(vg, models, *, look: CohortLook) -> go.Figure:
     """The semivariogram ``vg`` with each fitted model of ``models`` (a ``ModelSet``) over it."""
-    from analysis.variogram import model_curves
+    from analysis.exploration.variogram import model_curves
 
     return variogram_figure(vg, look=look, model_curves=model_curves(models.fits, vg.max_lag),
                             preferred=models.preferred,

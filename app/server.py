@@ -13,7 +13,7 @@ from pathlib import Path
 import dash
 from dash import MATCH, Input, Output, State, no_update
 
-from analysis.loading import Dataset, read_table
+from analysis.preparation.loading import Dataset, read_table
 from analysis.pipeline import Workbench
 from analysis.settings import Roles, Settings
 
@@ -47,7 +47,7 @@ def create_app(*, dataset: Dataset | None = None, roles: Roles | None = None,
     budget = int(cache_mb * 2**20)
     datastore = datastore or DataStore(max_bytes=max(1, budget // 2))
     if dataset is None:
-        from analysis.demo import demo_roles, demo_settings
+        from analysis.preparation.demo import demo_roles, demo_settings
 
         key = datastore.pin(DEMO_KEY, demo_dataset)
         roles = roles or demo_roles()
@@ -116,7 +116,7 @@ def run_server(*, data_path=None, roles: Roles | None = None, settings: Settings
                host: str = "127.0.0.1", port: int = 8050, debug: bool = False,
                cache_mb: float = DEFAULT_CACHE_MB) -> None:
     """Serve the dashboard until interrupted (loopback only unless ``host`` says otherwise)."""
-    from analysis.demo import DEMO_CSV
+    from analysis.preparation.demo import DEMO_CSV
 
     logging.basicConfig(level=logging.INFO, format="%(levelname)s %(name)s: %(message)s")
     if data_path is None or Path(data_path) == DEMO_CSV:

@@ -15,10 +15,10 @@ import pytest
 from scipy import stats
 from statsmodels.nonparametric.smoothers_lowess import lowess
 
-from analysis.demo import demo_roles, demo_settings, load_demo
-from analysis.loading import Dataset
+from analysis.preparation.demo import demo_roles, demo_settings, load_demo
+from analysis.preparation.loading import Dataset
 from analysis.pipeline import Workbench
-from analysis import summaries
+from analysis.exploration import summaries
 from app import figures, palette
 from app.sections import courses, followup, lagcorr, rate
 from app.sections import lines as lines_view
@@ -129,7 +129,7 @@ def test_courses_one_panel_per_group_means_from_every_subject(res):
     assert len(line_traces) == len(labels)
     drawn = {v for t in line_traces for v in t.customdata if v is not None}
     assert drawn == set(shown["subject"])
-    # the figure draws analysis.summaries.group_means (tested on its own in test_summaries.py);
+    # the figure draws analysis.exploration.summaries.group_means (tested on its own in test_summaries.py);
     # reference: pandas — the same 12 equal-width bins cut with pd.cut over ALL subjects
     t = frame["time"].to_numpy(float)
     edges = np.linspace(t.min(), t.max(), summaries.MEAN_BINS + 1)
@@ -403,7 +403,7 @@ def test_dropout_retention_curves_and_last_visit_means(res):
 
 
 def test_dropout_without_potential_followup_shows_last_visits_only(res):
-    from analysis.summaries import dropout_summary
+    from analysis.exploration.summaries import dropout_summary
 
     c, frame = res["cohort"], res["frame"]
     d = dropout_summary(c.panel, c.strata, subject_ids=c.subject_ids)

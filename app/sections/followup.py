@@ -1,5 +1,5 @@
 """Follow-up & loss: visits per subject, the Kaplan–Meier share not yet left and the response at
-the last visit (the statistics come from :mod:`analysis.summaries`)."""
+the last visit (the statistics come from :mod:`analysis.exploration.summaries`)."""
 from __future__ import annotations
 
 import numpy as np
@@ -8,7 +8,7 @@ import plotly.graph_objects as go
 from dash import Output, State, html
 from plotly.subplots import make_subplots
 
-from analysis.summaries import (ALL_LABEL, BAND_METHOD, FOLLOWED, LAST_VISIT, LEFT_EARLY,
+from analysis.exploration.summaries import (ALL_LABEL, BAND_METHOD, FOLLOWED, LAST_VISIT, LEFT_EARLY,
                                 mean_interval_halfwidth, visit_counts)
 
 from .. import ids
@@ -98,7 +98,7 @@ def dropout_figure(dropout, *, look: CohortLook, highlight_stratum=None) -> go.F
 
     Parameters
     ----------
-    dropout : analysis.summaries.Dropout
+    dropout : analysis.exploration.summaries.Dropout
         Reads ``horizon``, ``classified``, ``counts``, ``retention`` (stratum, label, time,
         retained, lo, hi, at_risk, left) and ``by_stratum`` (label, followup, n, mean, sd).
         When ``classified`` is false the left panel shows the share with a visit at or after

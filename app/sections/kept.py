@@ -7,7 +7,7 @@ from dash.dash_table.Format import Format
 
 from analysis.errors import SettingsError
 from analysis.settings import Roles
-from analysis.strata import SMALL_GROUP_SHARE, SMALL_GROUP_SUBJECTS, small_groups
+from analysis.preparation.strata import SMALL_GROUP_SHARE, SMALL_GROUP_SUBJECTS, small_groups
 
 from .. import controls as ctl
 from .. import ids, palette
@@ -99,7 +99,7 @@ def stratum_chips(cohort) -> list[dict]:
 
 
 def small_group_note(cohort) -> str:
-    """One short line naming the small groups (see :func:`analysis.strata.small_groups`), or ""."""
+    """One short line naming the small groups (see :func:`analysis.preparation.strata.small_groups`), or ""."""
     s = cohort.strata
     counts = s.counts
     small = small_groups(counts, int(s.codes.size))

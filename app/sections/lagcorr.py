@@ -63,7 +63,7 @@ def lag_heatmap_figure(lc, *, look: CohortLook) -> go.Figure:
 
     Parameters
     ----------
-    lc : analysis.lagcorr.LagCorrelation
+    lc : analysis.exploration.lagcorr.LagCorrelation
         Reads ``windows`` (lo, hi, subjects, variance), ``matrix``, ``pairs`` and ``width``.
     """
     w = lc.windows

@@ -2,7 +2,7 @@
 
 Fitting is explicit (a button) because it can take seconds. The fitted set is
 cached in the app's :class:`~analysis.pipeline.Workbench` under the data, the
-cohort's settings and the :class:`~analysis.modelstage.ModelChoices`, so
+cohort's settings and the :class:`~analysis.models.modelstage.ModelChoices`, so
 re-drawing, choosing another model's details or exporting the report never
 refits. The browser keeps only a small snapshot of what was fitted (keys and
 choices).
@@ -18,10 +18,10 @@ from dash import Input, Output, State, dash_table, dcc, html, no_update
 
 from analysis.numbers import format_number
 from analysis.errors import ModelError
-from analysis.loading import fingerprint
-from analysis.modelstage import CHOICE_FIELDS, ModelChoices
+from analysis.preparation.loading import fingerprint
+from analysis.models.modelstage import CHOICE_FIELDS, ModelChoices
 from analysis.pipeline import Workbench
-from analysis.report import (ASSOCIATION_NOTE, CAUTIONS, MIXTURE_NOTE, PREFERRED_RULE,
+from analysis.output.report import (ASSOCIATION_NOTE, CAUTIONS, MIXTURE_NOTE, PREFERRED_RULE,
                              build_report, model_tables, p_phrase, x_description)
 
 from .. import ids

@@ -3,7 +3,7 @@
 Self-contained section (layout, ids, callbacks). It plans from the model set
 the Models section fitted (its snapshot store, the same cached
 ``Workbench.models`` call), with every input defaulting to what this cohort
-shows (:mod:`analysis.plan_defaults`) and editable.
+shows (:mod:`analysis.models.plan_defaults`) and editable.
 """
 from __future__ import annotations
 
@@ -15,10 +15,10 @@ import pandas as pd
 from dash import Input, Output, State, dash_table, dcc, html, no_update
 
 from analysis.errors import CohortError, SettingsError
-from analysis.modelstage import ModelChoices
-from analysis.plan_defaults import parse_schedule, plan_from_cohort
-from analysis.planning import simulate_power
-from analysis.report import fmt, plan_sentences
+from analysis.models.modelstage import ModelChoices
+from analysis.models.plan_defaults import parse_schedule, plan_from_cohort
+from analysis.models.planning import simulate_power
+from analysis.output.report import fmt, plan_sentences
 
 from .. import ids
 from ..components import GRAPH_CONFIG, section

@@ -11,10 +11,10 @@ from pathlib import Path
 
 import pandas as pd
 
-from .settings import Roles, Settings
+from ..settings import Roles, Settings
 
 #: Location of the demo CSV (one row per visit).
-DEMO_CSV: Path = Path(__file__).resolve().parents[1] / "sample_data" / "kidney_registry.csv"
+DEMO_CSV: Path = Path(__file__).resolve().parents[2] / "sample_data" / "kidney_registry.csv"
 DEMO_SETTINGS: Path = DEMO_CSV.with_name("demo_settings.json")
 
 #: Column names of the demo CSV, in file order.

@@ -12,11 +12,11 @@ import numpy as np
 import pandas as pd
 from statsmodels.nonparametric.smoothers_lowess import lowess as _sm_lowess
 
-from . import options as opt
-from .errors import DataError, SettingsError
-from .settings import check_choice, check_value
-from .panel import Panel
-from .splines import natural_spline_basis, spline_knots
+from .. import options as opt
+from ..errors import DataError, SettingsError
+from ..settings import check_choice, check_value
+from ..preparation.panel import Panel
+from ..splines import natural_spline_basis, spline_knots
 
 #: points per group in the drawn mean curve
 CURVE_POINTS = 100

@@ -13,7 +13,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from .errors import DataError, clip, quoted, rows_hold
+from ..errors import DataError, clip, quoted, rows_hold
 
 _DELIMITERS = (",", ";", "\t")
 _DELIMITER_NAMES = {",": "comma", ";": "semicolon", "\t": "tab"}

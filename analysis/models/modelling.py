@@ -12,10 +12,10 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from .jsonsafe import json_safe
+from ..jsonsafe import json_safe
 from .compare import comparison_table, likelihood_ratio, nested_pairs
 from .effects import InteractionSummary, interaction_summary
-from .errors import CohortError, ModelError
+from ..errors import CohortError, ModelError
 from .gee import WORKING, GEEFit, gee_fit
 from .mean_model import Design, MeanModel, complete_subjects, design, used_columns
 from .mixed.structures import default_structures, spec_for
@@ -73,7 +73,7 @@ class ModelSet:
     design : Design
     candidates : tuple of Candidate
     comparison : DataFrame
-        :func:`analysis.compare.comparison_table` of the successful fits;
+        :func:`analysis.models.compare.comparison_table` of the successful fits;
         ``attrs["warning"]`` carries a caution or None.
     lrts : tuple of LRTResult
         Tests of every nested pair among the successful candidates.
@@ -119,9 +119,9 @@ class ModelSet:
         The fitted semivariograms describe the residuals about the models' own mean
         (the fixed-effects design), so the points they are drawn against come from
         the same mean model, fitted by OLS, not from the exploratory smooth trend.
-        Computed by :func:`analysis.variogram.semivariogram`.
+        Computed by :func:`analysis.exploration.variogram.semivariogram`.
         """
-        from .variogram import semivariogram
+        from ..exploration.variogram import semivariogram
         return semivariogram(self.panel.with_y(self.mean_residuals()), n_bins=n_bins,
                              max_lag=max_lag)
 
@@ -196,7 +196,7 @@ def fit_candidates(cohort, *, structures=DEFAULT_CANDIDATES, correlation: str = 
         ``covariate``, ``settings`` (``transform``, ``unit``), ``roles``
         (``response``) and ``response_unit`` for the wording.
     structures : sequence of str
-        Covariance structures (see :data:`analysis.mixed.STRUCTURES`).
+        Covariance structures (see :data:`analysis.models.mixed.STRUCTURES`).
     correlation : {"exponential", "gaussian", "both"}
         Serial correlation function for structures with a serial process; "both" fits
         each such structure with each shape, so the two sit side by side in the

@@ -6,9 +6,9 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from .confidence import t_quantile
-from .errors import SettingsError
-from .panel import Panel
+from ..confidence import t_quantile
+from ..errors import SettingsError
+from ..preparation.panel import Panel
 
 #: reasons a subject's line lacks a slope or an interval
 REASON_ONE_VISIT = "one visit"

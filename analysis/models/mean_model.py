@@ -13,9 +13,9 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from .errors import ModelError
-from .panel import Panel
-from .splines import natural_spline_basis, spline_knots
+from ..errors import ModelError
+from ..preparation.panel import Panel
+from ..splines import natural_spline_basis, spline_knots
 
 #: Name of the intercept column.
 INTERCEPT = "intercept"

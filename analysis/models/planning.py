@@ -5,9 +5,9 @@ schedule, expected dropout and the size of the time × covariate effect the
 team wants to detect, how many subjects does a new study need?
 
 Model per subject (the project's mean model without confounders, see
-:mod:`analysis.mean_model`): columns intercept, time, x, time × x, with the
+:mod:`analysis.models.mean_model`): columns intercept, time, x, time × x, with the
 covariance ``V`` of the chosen working structure evaluated at the planned
-visit times (:mod:`analysis.mixed.structures`).
+visit times (:mod:`analysis.models.mixed.structures`).
 
 Expected information
 --------------------
@@ -56,8 +56,8 @@ import pandas as pd
 from scipy import linalg as sla
 from scipy import stats
 
-from .errors import ModelError, SettingsError
-from .jsonsafe import json_safe
+from ..errors import ModelError, SettingsError
+from ..jsonsafe import json_safe
 from .mixed.structures import CORRELATIONS, PARAMETER_ORDER, correlation_function, spec_for
 
 #: Study designs: a continuous covariate drawn like this cohort's, or two equal groups coded 0/1.
@@ -90,11 +90,11 @@ class CovarianceModel:
     Attributes
     ----------
     structure : str
-        One of :data:`analysis.mixed.STRUCTURES`.
+        One of :data:`analysis.models.mixed.STRUCTURES`.
     correlation : str or None
         "exponential" or "gaussian" for structures with a serial process, else None.
     parameters : tuple of (str, float)
-        Natural variance parameters in :data:`analysis.mixed.PARAMETER_ORDER`
+        Natural variance parameters in :data:`analysis.models.mixed.PARAMETER_ORDER`
         (``intercept_var``, ``slope_var``, ``intercept_slope_cov``, ``serial_var``,
         ``range``, ``error_var``: those of the structure), on the cohort's time scale.
     name : str
@@ -149,7 +149,7 @@ class CovarianceModel:
 
     @classmethod
     def from_fit(cls, fit, name: str = "") -> "CovarianceModel":
-        """From a :class:`analysis.mixed.MixedFit` (its structure, correlation and variance)."""
+        """From a :class:`analysis.models.mixed.MixedFit` (its structure, correlation and variance)."""
         return cls.of(fit.structure, fit.variance, fit.correlation, name or fit.label)
 
     @classmethod
@@ -172,7 +172,7 @@ class CovarianceModel:
         -----
         ``V_jk = z_jᵀ G z_k + σ² ρ(|t_j − t_k|) + τ² 1[j = k]`` with ``z = 1`` (random
         intercept) or ``z = (1, t)`` (intercept and slope), as in
-        :func:`analysis.mixed.likelihood.covariance_stack`.
+        :func:`analysis.models.mixed.likelihood.covariance_stack`.
         """
         t = np.asarray(times, dtype=float)
         v = self.variance
@@ -576,7 +576,7 @@ def compare_plans(inputs: PlanInputs, models) -> PlanComparison:
     inputs : PlanInputs
         Everything but the covariance is used (its ``covariance`` is replaced).
     models : iterable or dict
-        :class:`CovarianceModel`, fitted :class:`analysis.mixed.MixedFit` or their JSON dicts;
+        :class:`CovarianceModel`, fitted :class:`analysis.models.mixed.MixedFit` or their JSON dicts;
         a dict maps display names to them (e.g. ``ModelSet.fits``).
 
     Returns
@@ -617,7 +617,7 @@ def simulate_planned_cohort(inputs: PlanInputs, subjects: int, rng: np.random.Ge
     the subject is still in follow-up at t_j. Noise ``e = L u`` with ``V = LLᵀ``: its first
     k entries have covariance ``V_k``, so truncation after dropout is exact.
     """
-    from .panel import Panel
+    from ..preparation.panel import Panel
 
     t = np.asarray(inputs.schedule)
     K = t.size
@@ -707,7 +707,7 @@ def simulate_power(inputs: PlanInputs, *, subjects: int | None = None, reps: int
     Notes
     -----
     Each replication draws a cohort with :func:`simulate_planned_cohort`, fits the
-    same structure and correlation with :func:`analysis.mixed.fit_mixed` and
+    same structure and correlation with :func:`analysis.models.mixed.fit_mixed` and
     counts a rejection when the model-based Wald p-value of time × x is below
     alpha. Fits that raise are counted in ``n_failed`` and left out.
     """

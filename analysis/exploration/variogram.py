@@ -18,11 +18,11 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from .errors import DataError, SettingsError
+from ..errors import DataError, SettingsError
 from .lagbins import EDGE_TOL, bin_index, lattice_step, merge_close, within_edge
 from .pairs import DEFAULT_CHUNK_PAIRS, iter_pair_chunks, n_within_pairs, within_pair_rows
-from .panel import Panel
-from .jsonsafe import json_float
+from ..preparation.panel import Panel
+from ..jsonsafe import json_float
 
 #: points at which the smooth is reported (0 .. largest used lag)
 SMOOTH_GRID_POINTS = 61
@@ -146,7 +146,7 @@ def within_pairs(panel: Panel) -> tuple[np.ndarray, np.ndarray]:
     -------
     lag, half_sq : float arrays (n_pairs,)
         ``|t_j - t_k|`` and ``(r_j - r_k)^2 / 2``, in the order of
-        :func:`analysis.pairs.iter_pair_chunks`.
+        :func:`analysis.exploration.pairs.iter_pair_chunks`.
     """
     a, b = within_pair_rows(panel.starts, panel.counts)
     return np.abs(panel.time[b] - panel.time[a]), 0.5 * (panel.y[b] - panel.y[a]) ** 2
@@ -222,7 +222,7 @@ def semivariogram(panel: Panel, *, n_bins: int = 10, max_lag: float | None = Non
     Bins: edges ``k * max_lag / n_bins``; a pair with lag ``u`` falls in bin
     ``floor(u / width + EDGE_TOL)`` (the last bin is closed on the right), the
     edge rule shared with the lag correlation's windows
-    (:mod:`analysis.lagbins`): a lag on an edge up to float rounding goes to
+    (:mod:`analysis.exploration.lagbins`): a lag on an edge up to float rounding goes to
     the bin above it; ``gamma_k = sum v / count`` via ``np.bincount`` with
     weights.
 

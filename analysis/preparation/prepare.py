@@ -18,13 +18,13 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from . import options as opt
-from .errors import DataError, SettingsError, clip, row_list, rows_hold
+from .. import options as opt
+from ..errors import DataError, SettingsError, clip, row_list, rows_hold
 from .loading import (NON_FINITE_TEXT, column_kind, date_fraction, decimal_comma_numbers,
                       nested_cells, read_dates)
-from .numbers import plain_number
+from ..numbers import plain_number
 from .panel import Panel
-from .settings import Roles, Settings
+from ..settings import Roles, Settings
 from .strata import MISSING_LABEL, Strata, categorical_strata, center_values, cut_strata, transform_values
 
 # --------------------------------------------------------------------------- results

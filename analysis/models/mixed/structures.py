@@ -12,7 +12,7 @@ covariance ``V_i`` (Diggle et al., 2002, ch. 5):
 
 The structures are rows of one table (:func:`register_structure`, built-in rows
 below); parameter lists, start values, nesting and likelihood-ratio reference
-distributions (:mod:`analysis.compare`), the implied semivariogram and every
+distributions (:mod:`analysis.models.compare`), the implied semivariogram and every
 choice list (CLI help, the page's checklist) are derived from it. Correlation
 shapes live in :data:`CORRELATION_SHAPES`; an unknown shape is a ModelError.
 
@@ -31,7 +31,7 @@ from typing import Callable
 
 import numpy as np
 
-from ..errors import ModelError
+from ...errors import ModelError
 
 #: Estimation criteria.
 METHODS: tuple[str, ...] = ("reml", "ml")

@@ -2,7 +2,7 @@
 
 Fixed effects are profiled out (generalised least squares for each θ);
 the variance parameters are optimised on an unconstrained scale with
-L-BFGS-B and the analytic gradient of :mod:`analysis.mixed.likelihood`.
+L-BFGS-B and the analytic gradient of :mod:`analysis.models.mixed.likelihood`.
 Structures without a serial process are evaluated from per-subject sums
 (no n×n matrices); the others from dense per-visit-count stacks.
 """
@@ -14,8 +14,8 @@ import numpy as np
 from scipy import linalg as sla
 from scipy import optimize
 
-from ..confidence import z_quantile
-from ..errors import ModelError
+from ...confidence import z_quantile
+from ...errors import ModelError
 from .likelihood import (NotPositiveDefinite, bias_reduced_scores, build_groups, build_sums,
                          evaluate)
 from .results import FitInternals, MixedFit
@@ -502,16 +502,16 @@ def fit_mixed(panel, X, *, names, structure: str = "intercept+slope",
 
     Parameters
     ----------
-    panel : analysis.panel.Panel
+    panel : analysis.preparation.panel.Panel
         Response ``y``, ``time`` and subject grouping (rows sorted by subject, time).
     X : ndarray (n_obs, p)
         Fixed-effects design in panel row order.
     names : sequence of str
         The p term names.
     structure : str
-        One of :data:`analysis.mixed.STRUCTURES`.
+        One of :data:`analysis.models.mixed.STRUCTURES`.
     correlation : str
-        Serial correlation function (one of :data:`analysis.mixed.CORRELATIONS`), used by
+        Serial correlation function (one of :data:`analysis.models.mixed.CORRELATIONS`), used by
         structures with a serial process whose table row leaves the shape to the user.
     method : {"reml", "ml"}
     start : dict, optional
@@ -529,7 +529,7 @@ def fit_mixed(panel, X, *, names, structure: str = "intercept+slope",
     Model: y_ij = x_ijᵀβ + z_ijᵀb_i + W_i(t_ij) + ε_ij, b_i ~ N(0, G),
     W_i stationary with variance σ² and correlation ρ(u), ε_ij ~ N(0, τ²).
     Log-likelihood convention as statsmodels ``MixedLM`` (REML omits
-    ½ log|XᵀX|); see :mod:`analysis.mixed.likelihood`. Time is divided by
+    ½ log|XᵀX|); see :mod:`analysis.models.mixed.likelihood`. Time is divided by
     its largest absolute value internally; all results are on the user's
     time scale.
 

@@ -17,10 +17,10 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from .errors import DataError, SettingsError
+from ..errors import DataError, SettingsError
 from .lagbins import EDGE_TOL, bin_count, bin_index  # noqa: F401  (EDGE_TOL: importable here as before)
-from .panel import Panel
-from .jsonsafe import json_float
+from ..preparation.panel import Panel
+from ..jsonsafe import json_float
 
 #: fewer subjects in both windows than this gives a NaN correlation (count kept)
 MIN_PAIRS = 3
@@ -166,7 +166,7 @@ def lag_correlation(panel: Panel, *, width: float, start: float | None = None
     if n_win > MAX_WINDOWS:
         raise SettingsError(f"width == {width:g} cuts the time range {start:g}..{tmax:g} into "
                             f"{n_win} windows, more than {MAX_WINDOWS}; choose a wider window")
-    # shared edge rule (analysis.lagbins): a time lying on an edge up to float rounding
+    # shared edge rule (analysis.exploration.lagbins): a time lying on an edge up to float rounding
     # (e.g. 0.3 with width 0.1) is in the upper window
     k = bin_index(t, start=start, width=width, n=n_win)
 

@@ -1,6 +1,6 @@
 """One self-contained HTML report of an analysis: choices, cohort, exploration, models.
 
-:func:`model_tables` turns a :class:`~analysis.modelling.ModelSet` into the
+:func:`model_tables` turns a :class:`~analysis.models.modelling.ModelSet` into the
 display tables shown both in the dashboard's model section and in the report,
 so the two always say the same thing. :func:`build_report` writes the whole
 report as a single HTML string (inline CSS; figures, when given, are HTML
@@ -16,7 +16,7 @@ from datetime import datetime, timezone
 import numpy as np
 import pandas as pd
 
-from .numbers import fmt, fmt_p, format_number, interval  # noqa: F401  (importable from here as before)
+from ..numbers import fmt, fmt_p, format_number, interval  # noqa: F401  (importable from here as before)
 
 TITLE = "cohortlens analysis report"
 CAUTIONS = (
@@ -56,7 +56,7 @@ def p_phrase(p) -> str:
 
 def small_sample_note(n_subjects: int) -> str:
     """Plain statement that the intervals rest on small-sample corrections ('' from 30 subjects)."""
-    from .mixed import SMALL_COHORT
+    from ..models.mixed import SMALL_COHORT
     if n_subjects >= SMALL_COHORT:
         return ""
     return (f"Only {n_subjects} subjects (fewer than {SMALL_COHORT}): the intervals and p-values "
@@ -98,7 +98,7 @@ class ModelTables:
     method_note : str
         REML or ML caveat for the comparison.
     warning : str or None
-        Caution from :func:`analysis.compare.comparison_warning`.
+        Caution from :func:`analysis.models.compare.comparison_warning`.
     reference : str
         Reference distribution of the fixed-effect tests.
     small_sample : str
@@ -120,7 +120,7 @@ class ModelTables:
 
 
 def model_tables(models, chosen: str | None = None, *, unit: str = "time unit") -> ModelTables:
-    """Display tables of a :class:`~analysis.modelling.ModelSet`.
+    """Display tables of a :class:`~analysis.models.modelling.ModelSet`.
 
     Parameters
     ----------
@@ -323,7 +323,7 @@ def build_report(cohort, exploration=None, models=None, *, data_name: str = "dat
         The request's settings for the settings table (default: the exploration's, else the
         cohort's, which hold only the fields its stage reads).
     plan : CohortPlan, optional
-        A plan of the next study (:func:`analysis.plan_defaults.plan_from_cohort`), shown after
+        A plan of the next study (:func:`analysis.models.plan_defaults.plan_from_cohort`), shown after
         the models when given.
     plan_figure : str, optional
         Self-contained HTML of its power curve.
@@ -416,7 +416,7 @@ def _exploration_html(ex, unit: str) -> str:
 
 def _dropout_html(d, unit: str) -> str:
     """Loss to follow-up: the counts per status in the page's words, the rule, the table."""
-    from .summaries import BAND_METHOD, STATUSES
+    from ..exploration.summaries import BAND_METHOD, STATUSES
 
     h = d.horizon_text(unit)
     out = ["<h2>Visits and loss to follow-up</h2>", _p(d.sentence(unit))]

@@ -1,11 +1,11 @@
 """Plan the next study from this cohort: the defaults read from the cohort and the fitted models.
 
-:mod:`analysis.planning` computes a plan from explicit inputs. This module
+:mod:`analysis.models.planning` computes a plan from explicit inputs. This module
 fills those inputs from what the workbench already has, each by a rule that
 is written down here and repeated in the plan's assumptions:
 
 * **covariance** — the preferred fitted model of the model set (lowest AIC
-  among converged fits, :attr:`analysis.modelling.ModelSet.preferred`), or the
+  among converged fits, :attr:`analysis.models.modelling.ModelSet.preferred`), or the
   fitted candidate named by the user;
 * **effect** — that model's time × x estimate (continuous design); for two
   equal groups the slope difference between the cohort's upper and lower
@@ -27,8 +27,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .errors import ModelError, SettingsError
-from .jsonsafe import json_safe
+from ..errors import ModelError, SettingsError
+from ..jsonsafe import json_safe
 from .planning import CovarianceModel, PlanInputs, compare_plans, plan_study
 
 #: Most visits in the default schedule (a handful; a convention of this tool).
@@ -122,7 +122,7 @@ class DropoutRate:
 
 
 def dropout_hazard(dropout) -> DropoutRate:
-    """Events / person-time from a :class:`analysis.summaries.Dropout`.
+    """Events / person-time from a :class:`analysis.exploration.summaries.Dropout`.
 
     Notes
     -----
@@ -240,7 +240,7 @@ def plan_from_cohort(cohort, models, dropout=None, *, model: str | None = None,
     effect, schedule, dropout_rate : optional
         Override the defaults (see the module notes).
     design, alpha, power
-        As :class:`analysis.planning.PlanInputs`.
+        As :class:`analysis.models.planning.PlanInputs`.
 
     Returns
     -------

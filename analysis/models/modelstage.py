@@ -15,11 +15,11 @@ from typing import Any, Callable
 
 import numpy as np
 
-from .errors import ModelError
+from ..errors import ModelError
 from .mean_model import MeanModel
 from .modelling import (BOTH, COVARIATE_COLUMN, DEFAULT_CANDIDATES, DEFAULT_GEE, ModelSet,
                         fit_candidates)
-from .settings import COUNT_LIMITS
+from ..settings import COUNT_LIMITS
 
 
 #: Settings the model stage reads beyond the cohort selection: the primary covariate is
@@ -124,7 +124,7 @@ class ModelChoices:
     Attributes
     ----------
     structures : tuple of str
-        Working covariance structures to fit (see :data:`analysis.mixed.STRUCTURES`).
+        Working covariance structures to fit (see :data:`analysis.models.mixed.STRUCTURES`).
     correlation : {"exponential", "gaussian", "both"}
         Serial correlation shape for structures with a serial process ("both": each shape).
     method : {"reml", "ml"}

@@ -16,10 +16,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .errors import ModelError
-from .jsonsafe import json_safe
-from .numbers import format_number, parse_number  # noqa: F401  (parse_number: importable here as before)
-from .options import TRANSFORM_STEP, TRANSFORMS
+from ..errors import ModelError
+from ..jsonsafe import json_safe
+from ..numbers import format_number, parse_number  # noqa: F401  (parse_number: importable here as before)
+from ..options import TRANSFORM_STEP, TRANSFORMS
 
 #: The caution every statement ends with.
 CAUTION = "This is an association in this cohort, not a causal effect."
@@ -214,7 +214,7 @@ def interaction_summary(fit, *, term: str, transform: str, covariate_label: str,
     ----------
     fit
         Any fit with ``fixed_frame()`` giving term, estimate, se, robust_se, lo,
-        hi, robust_lo, robust_hi, p, robust_p (e.g. :class:`analysis.mixed.MixedFit`).
+        hi, robust_lo, robust_hi, p, robust_p (e.g. :class:`analysis.models.mixed.MixedFit`).
     term : str
         The interaction term's name.
     transform, covariate_label, response_label, response_unit, time_unit

@@ -11,13 +11,13 @@ import numpy as np
 import pandas as pd
 from statsmodels.nonparametric.smoothers_lowess import lowess as _sm_lowess
 
-from .confidence import CONFIDENCE_LEVEL, z_quantile
-from .errors import DataError, SettingsError
-from .jsonsafe import json_safe
+from ..confidence import CONFIDENCE_LEVEL, z_quantile
+from ..errors import DataError, SettingsError
+from ..jsonsafe import json_safe
 from .lagbins import equal_width_bins
-from .numbers import plain_number
-from .panel import Panel
-from .strata import MISSING_LABEL, Strata, cut_strata
+from ..numbers import plain_number
+from ..preparation.panel import Panel
+from ..preparation.strata import MISSING_LABEL, Strata, cut_strata
 
 #: stratum code and label of the all-subjects row of the summary tables
 ALL_CODE = -2

@@ -8,7 +8,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from ..confidence import t_quantile
+from ...confidence import t_quantile
 from .structures import StructureSpec, components, correlation_function
 
 #: Below this many subjects the page and the report say that the intervals rest on
@@ -54,7 +54,7 @@ class MixedFit:
     Attributes
     ----------
     structure : str
-        Working covariance structure (see :data:`analysis.mixed.STRUCTURES`).
+        Working covariance structure (see :data:`analysis.models.mixed.STRUCTURES`).
     correlation : str or None
         Serial correlation function, None when the structure has no serial part.
     method : {"reml", "ml"}

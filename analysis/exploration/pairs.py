@@ -41,7 +41,7 @@ def iter_pair_chunks(starts, counts, *, max_pairs: int = DEFAULT_CHUNK_PAIRS
     ----------
     starts, counts : int arrays (n_subjects,)
         First row and number of rows of each subject in a group-sorted panel
-        (see :class:`analysis.panel.Panel`).
+        (see :class:`analysis.preparation.panel.Panel`).
     max_pairs : int, keyword-only
         Upper bound on the pairs in one chunk (a single subject's pairs are
         never split, so a chunk holds at least one subject).

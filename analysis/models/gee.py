@@ -15,10 +15,10 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from .confidence import t_quantile
-from .errors import ModelError
-from .panel import Panel
-from .jsonsafe import json_float
+from ..confidence import t_quantile
+from ..errors import ModelError
+from ..preparation.panel import Panel
+from ..jsonsafe import json_float
 
 #: Working correlation structures offered.
 WORKING: tuple[str, ...] = ("exchangeable", "autoregressive", "independence")

@@ -2,7 +2,7 @@
 
 Works on any fit object exposing ``structure``, ``correlation``, ``method``,
 ``names``, ``loglik``, ``n_params``, ``aic``, ``bic``, ``converged``,
-``boundary``, ``n_obs`` and ``n_subjects`` (e.g. :class:`analysis.mixed.MixedFit`).
+``boundary``, ``n_obs`` and ``n_subjects`` (e.g. :class:`analysis.models.mixed.MixedFit`).
 """
 from __future__ import annotations
 
@@ -12,8 +12,8 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from .errors import ModelError
-from .jsonsafe import json_float
+from ..errors import ModelError
+from ..jsonsafe import json_float
 
 COLUMNS = ("model", "structure", "method", "n_params", "loglik", "aic", "bic",
            "delta_aic", "delta_bic", "converged", "boundary")

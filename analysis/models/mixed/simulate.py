@@ -5,7 +5,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..panel import Panel
+from ...preparation.panel import Panel
 from .structures import correlation_function
 
 
