@@ -58,6 +58,15 @@ def fmt(v, digits: int = 4) -> str:
     return format_number(f, digits)
 
 
+def signed_term(v, digits: int = 4) -> str:
+    """A term after another in a sum: ``"+ 0.113"`` or ``"− 0.113"`` (never ``"+ -0.113"``)."""
+    try:
+        f = float(v)
+    except (TypeError, ValueError):
+        return f"+ {fmt(v, digits)}"
+    return f"{MINUS if f < 0 else '+'} {fmt(abs(f), digits)}"
+
+
 def fmt_p(p) -> str:
     """p-values: three significant figures, '< 0.0001' (no-break space) below that."""
     try:

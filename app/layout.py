@@ -11,7 +11,7 @@ from analysis.settings import DECLARED, Settings
 
 from . import controls as ctl
 from . import ids
-from .components import GRAPH_CONFIG, busy, field, graph, message, number, section, setting_field  # noqa: F401
+from .components import GRAPH_CONFIG, message, setting_field  # noqa: F401  (GRAPH_CONFIG: importable here as before)
 from .sections import SECTIONS as PAGE_SECTIONS
 from .urlstate import MAX_DRAW
 

@@ -6,8 +6,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from analysis.models.effects import (CAUTION, effect_statement, effect_steps, format_number,
-                              interaction_summary, parse_number)
+from analysis.models.effects import CAUTION, effect_statement, effect_steps, interaction_summary
+from analysis.numbers import format_number, parse_number
 from analysis.errors import ModelError
 
 _NUM = re.compile(r"[−-]?\d+(?:\.\d+)?(?:e[−-]?\d+)?")

@@ -6,7 +6,7 @@ import pytest
 from scipy import stats
 
 from analysis.confidence import CONFIDENCE_LEVEL, t_quantile, upper_tail, z_quantile
-from analysis.numbers import (MINUS, compact, fixed, fmt, fmt_p, format_number, parse_number,
+from analysis.numbers import (MINUS, compact, fixed, fmt, fmt_p, format_number, parse_number, signed_term,
                               plain_number)
 
 
@@ -80,3 +80,14 @@ def test_equal_width_bins_over_the_range():
     counts, ref_edges = np.histogram(x, bins=4)
     assert np.allclose(edges, ref_edges)
     assert np.bincount(b, minlength=4).tolist() == counts.tolist()
+
+
+@pytest.mark.parametrize("v", [-0.113, 0.113, -75.25, 0.0, 12345.678])
+def test_signed_term_reads_back_the_value(v):
+    # reference: Python's float() on the text with the sign joined back and the true minus
+    # swapped for ASCII (an independent parse of what a reader sees)
+    text = signed_term(v, 4)
+    sign, number = text.split(" ", 1)
+    assert sign in ("+", MINUS) and "-" not in text and MINUS not in number
+    back = float(("-" if sign == MINUS else "") + number.replace(",", ""))
+    assert back == pytest.approx(v, rel=5e-4, abs=1e-12)

@@ -18,7 +18,7 @@ import numpy as np
 import pandas as pd
 
 from ..errors import DataError, SettingsError
-from .lagbins import EDGE_TOL, bin_count, bin_index  # noqa: F401  (EDGE_TOL: importable here as before)
+from .lagbins import bin_count, bin_index
 from ..preparation.panel import Panel
 from ..jsonsafe import json_float
 

@@ -18,7 +18,7 @@ import numpy as np
 
 from ..errors import ModelError
 from ..jsonsafe import json_safe
-from ..numbers import format_number, parse_number  # noqa: F401  (parse_number: importable here as before)
+from ..numbers import format_number
 from ..options import TRANSFORM_STEP, TRANSFORMS
 
 #: The caution every statement ends with.

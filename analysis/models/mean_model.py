@@ -12,6 +12,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
+from scipy import linalg as sla
 
 from ..errors import ModelError
 from ..preparation.panel import Panel
@@ -322,11 +323,13 @@ def confounder_columns(baseline: pd.DataFrame, column: str):
 
 
 def check_rank(X: np.ndarray, names) -> None:
-    """Raise ModelError naming the columns that make ``X`` rank deficient.
+    """Raise ModelError naming the columns that make ``X`` rank deficient (the one rank check
+    of every design: the mean model's and the mixed engine's).
 
-    Columns are added one at a time (after scaling to unit norm); the first
-    that does not raise the rank is reported together with the earlier
-    columns its linear combination uses.
+    Columns are scaled to unit norm; a pivoted QR decomposition gives the rank (a diagonal
+    entry of R below ``_RANK_TOL * |R[0, 0]| * max(n, p)`` counts as zero) and the dependent
+    columns. The message also names, for the first column (in design order) that does not
+    raise the rank, the earlier columns its linear combination uses.
     """
     X = np.asarray(X, dtype=float)
     norms = np.linalg.norm(X, axis=0)
@@ -334,20 +337,24 @@ def check_rank(X: np.ndarray, names) -> None:
         j = int(np.flatnonzero(norms == 0)[0])
         raise ModelError(f"design column '{names[j]}' is all zero among the included subjects")
     Z = X / norms
-    sv = np.linalg.svd(Z, compute_uv=False)
-    if sv[-1] > _RANK_TOL * sv[0] * max(Z.shape):
+    _, R, piv = sla.qr(Z, mode="economic", pivoting=True)
+    d = np.abs(np.diag(R))
+    rank = int((d > _RANK_TOL * (d[0] if d.size else 1.0) * max(Z.shape)).sum())
+    if rank == Z.shape[1]:
         return
+    dependent = [names[j] for j in piv[rank:]]
+    detail = ""
     for j in range(1, Z.shape[1]):
         A = Z[:, :j]
         coef, *_ = np.linalg.lstsq(A, Z[:, j], rcond=None)
-        resid = Z[:, j] - A @ coef
-        if np.linalg.norm(resid) < 1e-7:
+        if np.linalg.norm(Z[:, j] - A @ coef) < 1e-7:
             used = [names[i] for i in np.flatnonzero(np.abs(coef) > 1e-6)]
-            raise ModelError(
-                f"design columns are collinear: '{names[j]}' is a linear combination of "
-                f"{used}; remove one of them (e.g. a confounder that duplicates another)")
-    raise ModelError("design matrix is numerically rank deficient; check the confounders "
-                     f"{list(names)}")
+            detail = f" ('{names[j]}' is a linear combination of {used})"
+            break
+    raise ModelError(
+        f"design matrix is singular (rank {rank} of {Z.shape[1]}): column(s) {dependent} are "
+        f"linear combinations of the other columns{detail}; remove one of them (e.g. a "
+        "confounder that duplicates another)")
 
 
 # --------------------------------------------------------------------------- helpers

@@ -8,8 +8,6 @@ round-trips through a plain dict so a browser store can carry it.
 """
 from __future__ import annotations
 
-import hashlib
-import json
 from dataclasses import dataclass, fields
 from typing import Any, Callable
 
@@ -19,7 +17,7 @@ from ..errors import ModelError
 from .mean_model import MeanModel
 from .modelling import (BOTH, COVARIATE_COLUMN, DEFAULT_CANDIDATES, DEFAULT_GEE, ModelSet,
                         fit_candidates)
-from ..settings import COUNT_LIMITS
+from ..settings import COUNT_LIMITS, json_key
 
 
 #: Settings the model stage reads beyond the cohort selection: the primary covariate is
@@ -211,8 +209,7 @@ class ModelChoices:
 
     def key(self) -> str:
         """Short stable hash of the options (part of the model stage's cache key)."""
-        raw = json.dumps(self.to_dict(), sort_keys=True)
-        return hashlib.sha1(raw.encode()).hexdigest()[:16]
+        return json_key(self.to_dict(), 16)
 
     def mean_model(self) -> MeanModel:
         """The mean model these choices ask for (time, covariate, interaction, confounders)."""

@@ -16,7 +16,7 @@ from datetime import datetime, timezone
 import numpy as np
 import pandas as pd
 
-from ..numbers import fmt, fmt_p, format_number, interval  # noqa: F401  (importable from here as before)
+from ..numbers import fmt, fmt_p, interval
 
 TITLE = "cohortlens analysis report"
 CAUTIONS = (

@@ -22,7 +22,7 @@ import pandas as pd
 from .. import options as opt
 from ..errors import DataError, SettingsError
 from ..exploration.lagbins import edge_bin, equal_width_edges
-from ..numbers import MINUS, compact, fixed  # noqa: F401  (MINUS: the minus of labels, importable here as before)
+from ..numbers import compact, fixed
 from ..settings import check_choice
 
 #: separator between the ends of a range in a stratum label (spaced en dash)

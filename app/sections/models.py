@@ -9,8 +9,6 @@ choices).
 """
 from __future__ import annotations
 
-import hashlib
-import json
 import re
 
 import pandas as pd
@@ -21,6 +19,7 @@ from analysis.errors import ModelError
 from analysis.preparation.loading import fingerprint
 from analysis.models.modelstage import CHOICE_FIELDS, ModelChoices
 from analysis.pipeline import Workbench
+from analysis.settings import json_key
 from analysis.output.report import (ASSOCIATION_NOTE, CAUTIONS, MIXTURE_NOTE, PREFERRED_RULE,
                              build_report, model_tables, p_phrase, x_description)
 
@@ -152,9 +151,7 @@ def snapshot_key(context: AppContext, data, roles, settings, choices: ModelChoic
     dataset, r, s = context.inputs(data, roles, settings)
     d = s.to_dict()
     sub = {k: d[k] for k in Workbench.stage_fields("models", s)}
-    raw = json.dumps([dataset.key, r.to_dict(), sub, choices.to_dict()], sort_keys=True,
-                     default=str)
-    return hashlib.sha1(raw.encode()).hexdigest()
+    return json_key([dataset.key, r.to_dict(), sub, choices.to_dict()])
 
 
 def fit_for_view(context: AppContext, data, roles, settings, choices: ModelChoices):
@@ -267,7 +264,8 @@ def report_text(context: AppContext, data, roles, settings, snapshot: dict | Non
     made = plan_figure = None
     if models is not None and plan_request and \
             (plan_request.get("snapshot") or {}).get("key") == snapshot.get("key"):
-        from .plan import make_plan, report_plan_figure
+        from ..figures import report_plan_figure
+        from .plan import make_plan
 
         made = make_plan(context, plan_request)[0]
         plan_figure = report_plan_figure(made)

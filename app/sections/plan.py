@@ -18,11 +18,12 @@ from analysis.errors import CohortError, SettingsError
 from analysis.models.modelstage import ModelChoices
 from analysis.models.plan_defaults import parse_schedule, plan_from_cohort
 from analysis.models.planning import simulate_power
-from analysis.output.report import fmt, plan_sentences
+from analysis.numbers import fmt
+from analysis.output.report import plan_sentences
 
 from .. import ids
 from ..components import GRAPH_CONFIG, section
-from ..figures import power_figure, report_plan_figure  # noqa: F401  (report_plan_figure: the Models export)
+from ..figures import power_figure
 from ..session import AppContext, attempt
 
 # ------------------------------------------------------------------ ids (this section's own)
@@ -333,7 +334,7 @@ def register(app, context: AppContext) -> None:
         p = made.plan
         answer = [html.P([html.Span(f"{p.subjects_needed:,}", id="plan-needed",
                                     style={"fontSize": "2.2rem", "fontWeight": 700}),
-                          f" subjects needed" + (f" ({p.per_group:,} per group)"
+                          " subjects needed" + (f" ({p.per_group:,} per group)"
                                                  if p.per_group else "")],
                          className="cl-effect-main", style={"margin": "0.3rem 0"}),
                   html.P(plan_sentences(made, unit)[0], style={"fontSize": "1.1rem"})]

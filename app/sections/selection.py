@@ -5,6 +5,8 @@ from __future__ import annotations
 
 from dash import Input, Output, dash_table, dcc, html
 
+from analysis.numbers import fmt, signed_term
+
 from .. import ids
 from ..components import busy
 from ..session import AppContext, attempt
@@ -58,20 +60,14 @@ def _card(context, data, roles, settings, subject):
                          className="cl-hint")
     r = row.iloc[0]
 
-    def fmt(v, spec=".3g"):
-        try:
-            return format(float(v), spec)
-        except (TypeError, ValueError):
-            return "—"
-
-    se = f" (SE {fmt(r['slope_se'])})" if "slope_se" in row.columns else ""
+    se = f" (SE {fmt(r['slope_se'], 3)})" if "slope_se" in row.columns else ""
     cov = cohort.covariate
     head = html.Div(className="cl-card-head", children=[
         html.Strong(f"Subject {short(subject)}"),
         html.Span(f"group {short(r['stratum_label'])}"),
         *([html.Span(f"{short(cov)} = {short(r['covariate'])}")] if cov else []),
         html.Span(f"{len(mine)} visits"),
-        html.Span(f"fitted line: {fmt(r['intercept'])} + {fmt(r['slope'])}{se} × time"),
+        html.Span(f"fitted line: {fmt(r['intercept'], 3)} {signed_term(r['slope'], 3)}{se} × time"),
     ])
     visits = dash_table.DataTable(
         data=[{"time": round(float(t), 2), "response": round(float(y), 2)}

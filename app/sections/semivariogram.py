@@ -7,6 +7,8 @@ from __future__ import annotations
 import numpy as np
 from dash import html
 
+from analysis.numbers import fmt
+
 from .. import ids
 from ..components import graph, message, section
 from ..figures import cohort_look, variogram_figure
@@ -51,15 +53,12 @@ def readout(vg, *, time_unit: str = "") -> list:
         v = share.get(name)
         return "—" if v is None or not np.isfinite(v) else f"{100 * v:.0f}%"
 
-    def num(v):
-        return "—" if v is None or not np.isfinite(v) else f"{v:.3g}"
-
     return [
         html.P([html.Strong("Read-out: "),
-                f"of the total residual variance ({num(vg.process_variance)}), about "
-                f"{pct('nugget')} looks like measurement error (nugget {num(r.nugget)}), "
-                f"{pct('serial')} like serially correlated variation ({num(r.serial)}) and "
-                f"{pct('between')} like stable differences between subjects ({num(r.between)})."]),
+                f"of the total residual variance ({fmt(vg.process_variance, 3)}), about "
+                f"{pct('nugget')} looks like measurement error (nugget {fmt(r.nugget, 3)}), "
+                f"{pct('serial')} like serially correlated variation ({fmt(r.serial, 3)}) and "
+                f"{pct('between')} like stable differences between subjects ({fmt(r.between, 3)})."]),
         html.P(f"{vg.n_pairs:,} within-subject pairs up to {vg.max_lag:g} "
                f"{time_unit or 'time units'} apart are used.", className="cl-caveat"),
         *[html.P(n, className="cl-caveat") for n in vg.notes],

@@ -18,7 +18,7 @@ import numpy as np
 import pytest
 import statsmodels.api as sm
 
-from analysis.models.effects import parse_number
+from analysis.numbers import parse_number
 from analysis.models.modelling import fit_candidates
 from analysis.models.modelstage import ModelChoices
 from analysis.pipeline import Workbench

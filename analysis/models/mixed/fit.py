@@ -11,11 +11,11 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import linalg as sla
 from scipy import optimize
 
 from ...confidence import z_quantile
 from ...errors import ModelError
+from ..mean_model import check_rank
 from .likelihood import (NotPositiveDefinite, bias_reduced_scores, build_groups, build_sums,
                          evaluate)
 from .results import FitInternals, MixedFit
@@ -70,7 +70,7 @@ def _check_inputs(panel, X, names, spec, method, correlation, maxiter):
         if X[0, j] == 0 or (len(intercepts) > 1 and j != intercepts[0]):
             raise ModelError(f"design column {names[j]!r} has no variation (every row is "
                              f"{X[0, j]:g}); remove it or check the covariate")
-    _check_rank(X, names)
+    check_rank(X, names)
     problem = response_variation_problem(panel.y, X)
     if problem:
         raise ModelError(problem)
@@ -117,19 +117,6 @@ def response_variation_problem(y, X, *, response: str = "response") -> str | Non
                 "after the fixed effects): there is nothing for a covariance model to describe; "
                 "check that the response is not computed from the time or covariate columns")
     return None
-
-
-def _check_rank(X, names):
-    scale = np.sqrt((X**2).sum(axis=0))
-    Xs = X / np.where(scale > 0, scale, 1.0)
-    _, R, piv = sla.qr(Xs, mode="economic", pivoting=True)
-    d = np.abs(np.diag(R))
-    tol = max(X.shape) * np.finfo(float).eps * 1e3 * (d[0] if d.size else 1.0)
-    rank = int((d > tol).sum())
-    if rank < X.shape[1]:
-        dep = [names[j] for j in piv[rank:]]
-        raise ModelError(f"design matrix is singular (rank {rank} of {X.shape[1]}): column(s) "
-                         f"{dep} are linear combinations of the other columns; remove them")
 
 
 # ----------------------------------------------------------------------------- start values

@@ -9,6 +9,7 @@ import pandas as pd
 from scipy import stats
 
 from ...confidence import t_quantile
+from ...jsonsafe import json_float
 from .structures import StructureSpec, components, correlation_function
 
 #: Below this many subjects the page and the report say that the intervals rest on
@@ -203,15 +204,14 @@ class MixedFit:
     def to_json(self) -> dict:
         """Plain-dict summary (JSON-serialisable)."""
         ff = self.fixed_frame()
-        fixed = [{k: (None if isinstance(v, float) and not np.isfinite(v) else
-                      (str(v) if k == "term" else float(v)))
-                  for k, v in row.items()} for row in ff.to_dict("records")]
+        fixed = [{k: (str(v) if k == "term" else json_float(v)) for k, v in row.items()}
+                 for row in ff.to_dict("records")]
         var = {}
         for k, v in self.variance.items():
             lo, hi = self.variance_ci.get(k, (np.nan, np.nan))
             var[k] = {"estimate": float(v),
-                      "lo": float(lo) if np.isfinite(lo) else None,
-                      "hi": float(hi) if np.isfinite(hi) else None,
+                      "lo": json_float(lo),
+                      "hi": json_float(hi),
                       "at_boundary": k in self.at_boundary}
         return {
             "name": self.label,
