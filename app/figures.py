@@ -228,6 +228,30 @@ def _finish(fig: go.Figure, title: str, *, subtitle: str = "", legend_y: float =
     return fig
 
 
+def foot_legend_rows(names, *, width: float = 780.0) -> int:
+    """How many rows a foot legend of ``names`` takes in a figure ``width`` px wide.
+
+    Estimated from the text length at the legend's 14 px font (about 8 px a character plus
+    the symbol and the gap, 48 px), packed greedily, as plotly packs a horizontal legend.
+    """
+    rows, used = 1, 0.0
+    for name in names:
+        w = 48.0 + 8.0 * len(str(name))
+        if used and used + w > width:
+            rows, used = rows + 1, 0.0
+        used += w
+    return rows
+
+
+def foot_legend_bottom(names, *, width: float = 780.0, axis_title: bool = True) -> int:
+    """Bottom margin (px) that holds the x axis title and a foot legend of ``names``.
+
+    24 px per legend row under the tick labels and the axis title (70 px), so the axis title
+    never sits on the legend however many entries wrap.
+    """
+    return (70 if axis_title else 40) + 24 * foot_legend_rows(names, width=width)
+
+
 def _segments(keys: np.ndarray, *columns: np.ndarray) -> list[np.ndarray]:
     """Columns with a ``None`` inserted wherever ``keys`` changes (rows grouped by key).
 
@@ -285,7 +309,8 @@ def _present_strata(look: CohortLook, labels: pd.Series) -> list[str]:
 
 # --------------------------------------------------------------------------- semivariogram
 #: one line colour per fitted model (cycled), distinct from the empirical points
-CURVE_COLOURS = ("#1b6a9e", "#c0621a", "#2c8a5a", "#8c4a9c", "#a33b4b", "#127f86")
+CURVE_COLOURS = (pal.STRATUM_COLORS[5], pal.STRATUM_COLORS[2], pal.STRATUM_COLORS[3],
+                 pal.STRATUM_COLORS[6], pal.STRATUM_COLORS[1], pal.REFERENCE_COLOR)
 
 #: Caption of the semivariogram overlay of fitted models (page and report).
 OVERLAY_CAPTION = ("Points: empirical semivariogram (sized by pair count) of the residuals from "
@@ -370,7 +395,8 @@ def variogram_figure(vg, *, look: CohortLook, model_curves: pd.DataFrame | None 
     _finish(fig, title or "Semivariogram of within-subject residuals",
             subtitle=f"half squared difference of two visits of a subject, by time apart · "
                      f"{int(getattr(vg, 'n_pairs', pairs.sum())):,} pairs",
-            bottom=100)
+            bottom=max(100, foot_legend_bottom([t.name for t in fig.data if t.showlegend
+                                                 is not False])))
     fig.update_xaxes(title_text=f"time apart ({unit})" if unit else "time apart", rangemode="tozero")
     fig.update_yaxes(title_text=f"semivariance, {sq}", range=[0, 1.12 * top])
     return fig
@@ -408,10 +434,243 @@ def report_figures(exploration, models) -> list[tuple[str, str]]:
     return [(OVERLAY_CAPTION, snippet)]
 
 
+# --------------------------------------------------------------------------- model checks
+#: most points one model-check figure draws (a seeded random sample beyond; keeps each figure
+#: well under ~300 kB of data on the page and in the report)
+CHECK_POINTS = 3000
+#: seed of that sample (stated in the figures' subtitles)
+CHECK_SEED = 1
+#: colour of the residual points and of the predicted random effects
+CHECK_COLOUR = pal.STRATUM_COLORS[0]
+#: the population prediction and the subject's own prediction in the subject figure
+POPULATION_COLOUR = pal.REFERENCE_COLOR
+OWN_COLOUR = pal.STRATUM_COLORS[5]
+SERIAL_COLOUR = pal.STRATUM_COLORS[2]
+
+
+def _sample_note(shown: int, total: int, what: str = "visits") -> str:
+    if shown >= total:
+        return f"{total:,} {what}"
+    return f"{shown:,} of {total:,} {what} drawn (random sample, seed {CHECK_SEED})"
+
+
+def _highlight_rows(frame: pd.DataFrame, highlight_subject) -> np.ndarray:
+    if highlight_subject is None:
+        return np.empty(0, dtype=int)
+    return np.flatnonzero(frame["subject"].to_numpy() == str(highlight_subject))
+
+
+def residual_scatter_figure(checks, *, look: CohortLook, against: str = "fitted",
+                            highlight_subject=None, limit: int = CHECK_POINTS) -> go.Figure:
+    """Standardised (decorrelated) residuals against the population fitted values or time.
+
+    Under the model the points scatter evenly about 0 with about 95% between the dashed
+    lines at ±z (the normal quantile of the page's confidence level); a funnel or a curve
+    shows variance or mean-model trouble.
+    """
+    from analysis.confidence import CONFIDENCE_LEVEL, z_quantile
+    from analysis.models.checks import thin_rows
+
+    v = checks.visits
+    hl = _highlight_rows(v, highlight_subject)
+    rows = thin_rows(len(v), limit, seed=CHECK_SEED, keep=hl)
+    shown = v.iloc[rows]
+    col = "fitted" if against == "fitted" else "time"
+    x_title = (f"population fitted value, {look.response_label}" if col == "fitted"
+               else look.time_label)
+    fig = go.Figure()
+    kind = go.Scattergl if len(shown) > GL_POINTS else go.Scatter
+    fig.add_trace(kind(
+        x=shown[col].to_numpy(float), y=shown["standardised"].to_numpy(float), mode="markers",
+        name="visit", customdata=shown["subject"].to_numpy(dtype=object),
+        marker={"color": pal.with_alpha(CHECK_COLOUR, 0.45), "size": 6},
+        hovertemplate=("subject %{customdata}<br>" + ("fitted %{x:.4g}" if col == "fitted"
+                                                      else f"%{{x:.3g}} {look.time_unit}")
+                       + "<br>standardised residual %{y:.2f}<extra></extra>")))
+    z = z_quantile(CONFIDENCE_LEVEL)
+    lo, hi = float(np.nanmin(shown[col])) if len(shown) else 0.0, \
+        float(np.nanmax(shown[col])) if len(shown) else 1.0
+    fig.add_trace(go.Scatter(x=[lo, hi, None, lo, hi], y=[z, z, None, -z, -z], mode="lines",
+                             name=f"±{z:.2f}: {100 * CONFIDENCE_LEVEL:g}% of N(0, 1)",
+                             line={"color": pal.REFERENCE_COLOR, "width": 1.5, "dash": "dash"},
+                             hoverinfo="skip"))
+    if hl.size:
+        h = v.iloc[hl]
+        fig.add_trace(kind(x=h[col].to_numpy(float), y=h["standardised"].to_numpy(float),
+                           mode="markers", name=f"subject {highlight_subject}",
+                           customdata=h["subject"].to_numpy(dtype=object),
+                           marker={"color": pal.HIGHLIGHT_COLOR, "size": 11, "symbol": "diamond",
+                                   "line": {"color": "#ffffff", "width": 1}},
+                           hovertemplate="subject %{customdata}<br>%{y:.2f}<extra></extra>"))
+    fig.add_hline(y=0, line={"color": pal.REFERENCE_COLOR, "width": 1.2})
+    what = "fitted value" if col == "fitted" else "time"
+    _finish(fig, f"Standardised residuals by {what}",
+            subtitle=_sample_note(len(shown), len(v)), bottom=100)
+    fig.update_xaxes(title_text=x_title)
+    yr, _ = _robust_range(shown["standardised"].to_numpy(float), q=0.001)
+    fig.update_yaxes(title_text="standardised residual (SD units)", range=yr, zeroline=False)
+    return fig
+
+
+def residual_qq_figure(checks, *, look: CohortLook, highlight_subject=None,
+                       limit: int = CHECK_POINTS) -> go.Figure:
+    """Normal quantile plot of the standardised residuals against the N(0, 1) diagonal."""
+    from analysis.models.checks import thin_quantiles
+
+    v = checks.visits
+    rows = thin_quantiles(v["score"].to_numpy(float), limit)
+    shown = v.iloc[rows]
+    fig = go.Figure()
+    kind = go.Scattergl if len(shown) > GL_POINTS else go.Scatter
+    fig.add_trace(kind(
+        x=shown["score"].to_numpy(float), y=shown["standardised"].to_numpy(float),
+        mode="markers", name="visit", customdata=shown["subject"].to_numpy(dtype=object),
+        marker={"color": pal.with_alpha(CHECK_COLOUR, 0.55), "size": 6},
+        hovertemplate=("subject %{customdata}<br>normal quantile %{x:.2f}"
+                       "<br>standardised residual %{y:.2f}<extra></extra>")))
+    ends = [float(np.nanmin(shown["score"])), float(np.nanmax(shown["score"]))] if len(shown) \
+        else [-3.0, 3.0]
+    fig.add_trace(go.Scatter(x=ends, y=ends, mode="lines", name="N(0, 1): the diagonal",
+                             line={"color": pal.REFERENCE_COLOR, "width": 2, "dash": "dash"},
+                             hoverinfo="skip"))
+    hl = _highlight_rows(v, highlight_subject)
+    if hl.size:
+        h = v.iloc[hl]
+        fig.add_trace(kind(x=h["score"].to_numpy(float), y=h["standardised"].to_numpy(float),
+                           mode="markers", name=f"subject {highlight_subject}",
+                           customdata=h["subject"].to_numpy(dtype=object),
+                           marker={"color": pal.HIGHLIGHT_COLOR, "size": 11, "symbol": "diamond",
+                                   "line": {"color": "#ffffff", "width": 1}},
+                           hovertemplate="subject %{customdata}<br>%{y:.2f}<extra></extra>"))
+    note = (f"{len(v):,} visits" if len(shown) >= len(v) else
+            f"{len(shown):,} of {len(v):,} visits, evenly by rank, extremes kept")
+    _finish(fig, "Residuals against the normal", subtitle=note, bottom=100)
+    fig.update_xaxes(title_text="standard normal quantile")
+    fig.update_yaxes(title_text="standardised residual (SD units)")
+    return fig
+
+
+def effects_qq_figure(checks, *, look: CohortLook, highlight_subject=None,
+                      limit: int = CHECK_POINTS) -> go.Figure:
+    """Normal quantile plot of each predicted random effect, with its quartile line."""
+    from plotly.subplots import make_subplots
+
+    from analysis.models.checks import quartile_line, thin_quantiles
+
+    names = checks.effect_names
+    if not names:
+        return empty_figure(f"{checks.model} has no random effects to check.",
+                            title="Predicted random effects")
+    e = checks.effects
+    units = {"intercept": look.response_unit, "slope": look.slope_unit}
+    fig = make_subplots(rows=1, cols=len(names), horizontal_spacing=0.16,
+                        subplot_titles=[f"random {n}{_parenthesis(units[n])}" for n in names])
+    for ann in fig.layout.annotations:
+        ann.font = {"size": PANEL_TITLE_SIZE}
+    hl = str(highlight_subject) if highlight_subject is not None else None
+    shown_n = 0
+    for j, n in enumerate(names, start=1):
+        rows = thin_quantiles(e[f"{n}_score"].to_numpy(float), limit // len(names))
+        g = e.iloc[rows]
+        shown_n = len(g)
+        fig.add_trace(go.Scatter(
+            x=g[f"{n}_score"].to_numpy(float), y=g[n].to_numpy(float), mode="markers",
+            name="subject", showlegend=j == 1, legendgroup="subject",
+            customdata=g["subject"].to_numpy(dtype=object),
+            marker={"color": pal.with_alpha(CHECK_COLOUR, 0.6), "size": 6},
+            hovertemplate=("subject %{customdata}<br>normal quantile %{x:.2f}<br>"
+                           f"{n} %{{y:.4g}}<extra></extra>")), row=1, col=j)
+        a, b = quartile_line(e[n])
+        z = e[f"{n}_score"].to_numpy(float)
+        ends = np.array([np.nanmin(z), np.nanmax(z)]) if z.size else np.array([-3.0, 3.0])
+        fig.add_trace(go.Scatter(x=ends, y=a + b * ends, mode="lines",
+                                 name="line through the quartiles", showlegend=j == 1,
+                                 legendgroup="line",
+                                 line={"color": pal.REFERENCE_COLOR, "width": 2, "dash": "dash"},
+                                 hoverinfo="skip"), row=1, col=j)
+        if hl is not None:
+            h = e[e["subject"] == hl]
+            if len(h):
+                fig.add_trace(go.Scatter(
+                    x=h[f"{n}_score"].to_numpy(float), y=h[n].to_numpy(float), mode="markers",
+                    name=f"subject {hl}", showlegend=j == 1, legendgroup="hl",
+                    customdata=h["subject"].to_numpy(dtype=object),
+                    marker={"color": pal.HIGHLIGHT_COLOR, "size": 12, "symbol": "diamond",
+                            "line": {"color": "#ffffff", "width": 1}},
+                    hovertemplate="subject %{customdata}<br>%{y:.4g}<extra></extra>"),
+                    row=1, col=j)
+        fig.update_xaxes(title_text="normal quantile", row=1, col=j)
+        fig.update_yaxes(title_text="predicted deviation" if j == 1 else "", row=1, col=j)
+    note = (f"{len(e):,} subjects" if shown_n >= len(e) else
+            f"{shown_n:,} of {len(e):,} subjects, evenly by rank, extremes kept")
+    _finish(fig, "Random effects against the normal",
+            subtitle=f"{note} · read the shape, not the spread", bottom=100, top=104)
+    return fig
+
+
+def subject_fit_figure(checks, subject, *, look: CohortLook) -> go.Figure:
+    """One subject's visits with the population prediction and its own predicted course."""
+    title = "One subject: visits and predicted course"
+    if subject is None:
+        return empty_figure("Click a subject in any view to see its visits and predicted "
+                            "course here.", title=title)
+    s = checks.subject(subject).sort_values("time", kind="stable")
+    if not len(s):
+        return empty_figure(f"Subject {subject} is not among the subjects {checks.model} was "
+                            "fitted to.", title=title)
+    t = s["time"].to_numpy(float)
+    hover = f"%{{x:.3g}} {look.time_unit}: %{{y:.4g}}"
+    fig = go.Figure()
+    fig.add_trace(go.Scatter(x=t, y=s["fitted"].to_numpy(float), mode="lines",
+                             name="population prediction (fixed effects)",
+                             line={"color": POPULATION_COLOUR, "width": 2.5, "dash": "dash"},
+                             hovertemplate="population " + hover + "<extra></extra>"))
+    if checks.effect_names:
+        fig.add_trace(go.Scatter(x=t, y=s["subject_fitted"].to_numpy(float), mode="lines",
+                                 name="own prediction (+ its random effects)",
+                                 line={"color": OWN_COLOUR, "width": 3.5},
+                                 hovertemplate="own " + hover + "<extra></extra>"))
+    if checks.serial:
+        fig.add_trace(go.Scatter(x=t, y=s["serial_fitted"].to_numpy(float), mode="lines+markers",
+                                 name="own prediction + serial component",
+                                 line={"color": SERIAL_COLOUR, "width": 2, "dash": "dot"},
+                                 marker={"size": 6},
+                                 hovertemplate="with serial " + hover + "<extra></extra>"))
+    fig.add_trace(go.Scatter(x=t, y=s["response"].to_numpy(float), mode="markers",
+                             name="visits", customdata=s["subject"].to_numpy(dtype=object),
+                             marker={"color": pal.HIGHLIGHT_COLOR, "size": 10,
+                                     "line": {"color": "#ffffff", "width": 1}},
+                             hovertemplate="subject %{customdata}<br>" + hover
+                                           + "<extra></extra>"))
+    parts = [f"subject {subject}", checks.model, "lines join the predictions at the visits"]
+    if not checks.serial:
+        parts.append("no serial process in this model")
+    _finish(fig, title, subtitle=" · ".join(parts), bottom=100)
+    fig.update_xaxes(title_text=look.time_label)
+    fig.update_yaxes(title_text=look.response_label)
+    return fig
+
+
+def check_figures(checks, *, look: CohortLook, highlight_subject=None,
+                  limit: int = CHECK_POINTS) -> list[tuple[str, go.Figure]]:
+    """(key, figure) of every model-check figure, in page order."""
+    return [
+        ("fitted", residual_scatter_figure(checks, look=look, against="fitted",
+                                           highlight_subject=highlight_subject, limit=limit)),
+        ("time", residual_scatter_figure(checks, look=look, against="time",
+                                         highlight_subject=highlight_subject, limit=limit)),
+        ("qq", residual_qq_figure(checks, look=look, highlight_subject=highlight_subject,
+                                  limit=limit)),
+        ("effects", effects_qq_figure(checks, look=look, highlight_subject=highlight_subject,
+                                      limit=limit)),
+        ("subject", subject_fit_figure(checks, highlight_subject, look=look)),
+    ]
+
+
 # --------------------------------------------------------------------------- plan
 #: power-curve colours of the next-study plan
-TARGET_COLOUR = "#a33b4b"
-CURVE_COLOUR = "#1b6a9e"
+TARGET_COLOUR = pal.STRATUM_COLORS[5]
+CURVE_COLOUR = pal.STRATUM_COLORS[0]
 
 
 def power_figure(made) -> go.Figure:
@@ -432,11 +691,11 @@ def power_figure(made) -> go.Figure:
                              name=f"needed: {p.subjects_needed:,} subjects",
                              marker={"color": TARGET_COLOUR, "size": 13, "symbol": "diamond"},
                              hovertemplate="%{x} subjects<br>power %{y:.3f}<extra></extra>"))
-    fig.update_layout(
-        title={"text": "Power of the next study against its size", "x": 0.01},
-        xaxis_title="subjects enrolled (all groups)", yaxis_title="power (probability)",
-        template="plotly_white", font={"size": 15}, margin={"l": 80, "r": 20, "t": 60, "b": 60},
-        legend={"orientation": "h", "yanchor": "top", "y": -0.2, "x": 0}, hovermode="closest")
+    _finish(fig, "Power of the next study against its size",
+            bottom=foot_legend_bottom([t.name for t in fig.data]), top=60)
+    fig.update_layout(hovermode="closest")
+    fig.update_xaxes(title_text="subjects enrolled (all groups)")
+    fig.update_yaxes(title_text="power (probability)")
     fig.update_yaxes(range=[0, 1.02])
     fig.update_xaxes(rangemode="tozero")
     return fig

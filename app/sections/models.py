@@ -26,7 +26,8 @@ from analysis.output.report import (ASSOCIATION_NOTE, CAUTIONS, MIXTURE_NOTE, PR
 
 from .. import ids
 from ..components import GRAPH_CONFIG, message, section
-from ..figures import OVERLAY_CAPTION, cohort_look, fitted_variogram_figure, report_figures
+from ..figures import (OVERLAY_CAPTION, cohort_look, empty_figure, fitted_variogram_figure,
+                       report_figures)
 from ..session import AppContext, NeedsInput, attempt
 from ..text import option
 
@@ -104,7 +105,7 @@ def models_section() -> html.Section:
         message(ids.MODELS_MSG),
         html.Div(id=ids.MODELS_SUMMARY),
         html.Div(className="cl-graph", children=dcc.Graph(
-            id=ids.MODELS_GRAPH, config=GRAPH_CONFIG, style={"height": "460px"},
+            id=ids.MODELS_GRAPH, config=GRAPH_CONFIG, style={"height": "520px"},
             figure=placeholder_figure())),
         html.P(OVERLAY_CAPTION, className="cl-hint"),
         html.Div(className="cl-view-controls", children=[
@@ -164,10 +165,8 @@ def fit_for_view(context: AppContext, data, roles, settings, choices: ModelChoic
 
 
 def placeholder_figure(text: str = "Press “Fit models” to draw the fitted semivariograms.") -> dict:
-    return {"data": [], "layout": {
-        "xaxis": {"visible": False}, "yaxis": {"visible": False},
-        "annotations": [{"text": text, "showarrow": False, "font": {"size": 16},
-                         "xref": "paper", "yref": "paper", "x": 0.5, "y": 0.5}]}}
+    """A blank figure with ``text``, in the page's figure style."""
+    return empty_figure(text).to_plotly_json()
 
 
 def datatable(frame: pd.DataFrame, **extra) -> dash_table.DataTable:
