@@ -242,7 +242,8 @@ def detail_children(models, chosen: str | None, *, unit: str, x_note: str = "") 
 
 
 def report_text(context: AppContext, data, roles, settings, snapshot: dict | None,
-                chosen: str | None = None, plan_request: dict | None = None) -> tuple[str, str]:
+                chosen: str | None = None, plan_request: dict | None = None,
+                subject: str | None = None) -> tuple[str, str]:
     """(file name, HTML) of the report for the current choices.
 
     Models are included when the last fit (``snapshot``) was made for these
@@ -260,7 +261,7 @@ def report_text(context: AppContext, data, roles, settings, snapshot: dict | Non
             models = wb.models(dataset, r, s, choices)
         else:
             choices = None
-    figures = report_figures(exploration, models)
+    figures = report_figures(exploration, models, chosen=chosen, subject=subject)
     # the file name this session gave its table (the shared store keeps none for uploads)
     name = (data or {}).get("name") or dataset.name
     made = plan_figure = None
@@ -351,11 +352,11 @@ def register(app, context: AppContext) -> None:
     @app.callback(Output(ids.MODELS_DOWNLOAD, "data"), Output(ids.MODELS_EXPORT_MSG, "children"),
                   Input(ids.MODELS_EXPORT, "n_clicks"), *STORES,
                   State(ids.MODELS_SNAPSHOT, "data"), State(ids.MODELS_CHOSEN, "value"),
-                  State("plan-request", "data"),
+                  State("plan-request", "data"), State(ids.STORE_SUBJECT, "data"),
                   prevent_initial_call=True)
-    def export(n, data, roles, settings, snapshot, chosen, plan_request):
+    def export(n, data, roles, settings, snapshot, chosen, plan_request, subject):
         value, msg, _ = attempt(lambda: report_text(context, data, roles, settings, snapshot,
-                                                    chosen, plan_request),
+                                                    chosen, plan_request, subject),
                                 what="writing the report")
         if value is None:
             return no_update, msg
