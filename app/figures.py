@@ -464,6 +464,9 @@ def report_html(fig: go.Figure, *, height: int = 460) -> str:
             d["type"] = "scatter"
         data.append(d)
     out = go.Figure(data=data, layout=fig.layout)
+    # the template's per-trace-type defaults (every type, ~10 kB a figure) are not needed:
+    # each trace sets its own look; its layout part (fonts, axes) stays
+    out.layout.template = go.layout.Template(layout=fig.layout.template.layout)
     return pio.to_html(out, include_plotlyjs=False, full_html=False,
                        config={"displaylogo": False, "responsive": True},
                        default_height=f"{height}px")

@@ -49,6 +49,20 @@ VARIANCE_LABELS = {
 
 
 # --------------------------------------------------------------------------- formatting
+def parameter_words(text: str, *, unit: str = "time unit") -> str:
+    """``text`` with every variance parameter name (``intercept_var`` ...) in words.
+
+    The engine's boundary notes name parameters by their keys; a reader sees the labels of
+    :data:`VARIANCE_LABELS` instead.
+    """
+    import re
+
+    per = per_unit(unit)
+    for key, label in VARIANCE_LABELS.items():
+        text = re.sub(rf"(?<![\w]){key}(?![\w])", label.format(unit=unit, per=per), text)
+    return text
+
+
 def p_phrase(p) -> str:
     """'p < 0.0001' or 'p = 0.0312'."""
     text = fmt_p(p)
@@ -147,7 +161,8 @@ def model_tables(models, chosen: str | None = None, *, unit: str = "time unit") 
         "converged": comp["converged"].map(lambda b: "yes" if b else "NO"),
         "at boundary": comp["boundary"].map(lambda b: "yes" if b else ""),
     })
-    boundary_notes = tuple(f"{m}: {b}" for m, b in zip(comp["model"], comp["boundary"]) if b)
+    boundary_notes = tuple(f"{m}: {parameter_words(b, unit=unit)}"
+                           for m, b in zip(comp["model"], comp["boundary"]) if b)
     failed = [c for c in models.candidates if c.fit is None]
     if failed:
         comparison = pd.concat([comparison, pd.DataFrame({
@@ -188,7 +203,7 @@ def model_tables(models, chosen: str | None = None, *, unit: str = "time unit") 
             "estimate": vf["estimate"].map(fmt),
             "95% CI": [variance_interval(a, b, k in fit.at_boundary)
                        for a, b, k in zip(vf["lo"], vf["hi"], vf["parameter"])],
-            "note": vf["note"]})
+            "note": [parameter_words(n, unit=unit) for n in vf["note"]]})
         reference = fit.reference
 
     gee_rows = []
