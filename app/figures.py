@@ -493,6 +493,7 @@ def report_figures(exploration, models, *, chosen: str | None = None,
     subject with the most visits). Large cohorts are drawn from seeded samples (said in the
     captions).
     """
+    from analysis.errors import CohortError
     from analysis.models.checks import checks_for
 
     cohort = exploration.cohort
@@ -529,7 +530,10 @@ def report_figures(exploration, models, *, chosen: str | None = None,
     vgm = models.residual_variogram(n_bins=len(vg.bins), max_lag=vg.max_lag)
     out.append(("models", OVERLAY_CAPTION,
                 report_html(fitted_variogram_figure(vgm, models, look=look), height=520)))
-    ch = checks_for(cohort, models, chosen)
+    try:
+        ch = checks_for(cohort, models, chosen)
+    except CohortError:          # the report's text says why
+        return out
     if subject is None or not len(ch.subject(subject)):
         counts = ch.visits.groupby("subject", sort=False).size()
         subject = counts.idxmax() if len(counts) else None

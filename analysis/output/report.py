@@ -546,9 +546,14 @@ def _placed(figures) -> dict:
 
 def checks_html(models, cohort, chosen: str, figures=()) -> str:
     """Model checks of the chosen model: the residuals' mean and SD in words, then the figures."""
+    from ..errors import CohortError
     from ..models.checks import checks_for
 
-    ch = checks_for(cohort, models, chosen)
+    try:
+        ch = checks_for(cohort, models, chosen)
+    except CohortError as exc:
+        return "\n".join([f"<h3>Model checks — {_e(chosen)}</h3>",
+                          _p(f"Not available: {exc}", "note")])
     s = ch.summary()
     share = 100.0 * s["beyond_2"] / max(s["n_obs"], 1)
     out = [f"<h3>Model checks — {_e(ch.model)}</h3>",
