@@ -23,14 +23,18 @@ Conventions kept by every figure
 """
 from __future__ import annotations
 
+import textwrap
 from dataclasses import dataclass, field
-from typing import Mapping
+from pathlib import Path
+from typing import Mapping, Sequence
 
 import numpy as np
 import pandas as pd
 import plotly.graph_objects as go
+from plotly.subplots import make_subplots
 
-from analysis.exploration.summaries import ALL_LABEL
+from analysis.exploration.summaries import (ALL_LABEL, FOLLOWED, LAST_VISIT, LEFT_EARLY, MEAN_BINS,
+                                            group_means, mean_interval_halfwidth)
 
 from . import palette as pal
 from .text import short
@@ -228,6 +232,30 @@ def _finish(fig: go.Figure, title: str, *, subtitle: str = "", legend_y: float =
     return fig
 
 
+def foot_legend_rows(names, *, width: float = 780.0) -> int:
+    """How many rows a foot legend of ``names`` takes in a figure ``width`` px wide.
+
+    Estimated from the text length at the legend's 14 px font (about 8 px a character plus
+    the symbol and the gap, 48 px), packed greedily, as plotly packs a horizontal legend.
+    """
+    rows, used = 1, 0.0
+    for name in names:
+        w = 48.0 + 8.0 * len(str(name))
+        if used and used + w > width:
+            rows, used = rows + 1, 0.0
+        used += w
+    return rows
+
+
+def foot_legend_bottom(names, *, width: float = 780.0, axis_title: bool = True) -> int:
+    """Bottom margin (px) that holds the x axis title and a foot legend of ``names``.
+
+    24 px per legend row under the tick labels and the axis title (70 px), so the axis title
+    never sits on the legend however many entries wrap.
+    """
+    return (70 if axis_title else 40) + 24 * foot_legend_rows(names, width=width)
+
+
 def _segments(keys: np.ndarray, *columns: np.ndarray) -> list[np.ndarray]:
     """Columns with a ``None`` inserted wherever ``keys`` changes (rows grouped by key).
 
@@ -285,7 +313,8 @@ def _present_strata(look: CohortLook, labels: pd.Series) -> list[str]:
 
 # --------------------------------------------------------------------------- semivariogram
 #: one line colour per fitted model (cycled), distinct from the empirical points
-CURVE_COLOURS = ("#1b6a9e", "#c0621a", "#2c8a5a", "#8c4a9c", "#a33b4b", "#127f86")
+CURVE_COLOURS = (pal.STRATUM_COLORS[5], pal.STRATUM_COLORS[2], pal.STRATUM_COLORS[3],
+                 pal.STRATUM_COLORS[6], pal.STRATUM_COLORS[1], pal.REFERENCE_COLOR)
 
 #: Caption of the semivariogram overlay of fitted models (page and report).
 OVERLAY_CAPTION = ("Points: empirical semivariogram (sized by pair count) of the residuals from "
@@ -370,7 +399,8 @@ def variogram_figure(vg, *, look: CohortLook, model_curves: pd.DataFrame | None 
     _finish(fig, title or "Semivariogram of within-subject residuals",
             subtitle=f"half squared difference of two visits of a subject, by time apart · "
                      f"{int(getattr(vg, 'n_pairs', pairs.sum())):,} pairs",
-            bottom=100)
+            bottom=max(100, foot_legend_bottom([t.name for t in fig.data if t.showlegend
+                                                 is not False])))
     fig.update_xaxes(title_text=f"time apart ({unit})" if unit else "time apart", rangemode="tozero")
     fig.update_yaxes(title_text=f"semivariance, {sq}", range=[0, 1.12 * top])
     return fig
@@ -386,32 +416,848 @@ def fitted_variogram_figure(vg, models, *, look: CohortLook) -> go.Figure:
                                   "empirical one")
 
 
-def report_figures(exploration, models) -> list[tuple[str, str]]:
-    """(caption, self-contained HTML) figures for the report: the semivariogram overlay.
+#: Report figures: subjects drawn per group in the courses figure, and most subjects (a seeded
+#: sample beyond) in the subject-level figures, most points per model-check figure; they keep
+#: the whole demo report under 2 MB with the plotting library inlined once.
+REPORT_DRAW = 25
+REPORT_SUBJECTS = 600
+REPORT_CHECK_POINTS = 1000
+#: seed of every sample the report draws
+CHECK_SEED_REPORT = 1
+#: the plotting library the report inlines (plotly.js "basic" bundle: scatter and bar traces,
+#: the same plotly.js version the Python package draws with; see app/vendor/README.md)
+REPORT_LIBRARY = Path(__file__).resolve().parent / "vendor" / "plotly-basic.min.js"
 
-    With fitted ``models`` the points are the semivariogram of the models' own OLS residuals
-    and the lines each model's implied one; without, the exploration's semivariogram.
-    """
+
+def report_library() -> str:
+    """The plotting library as one inline ``<script>`` (written once at the top of the report)."""
+    return f'<script type="text/javascript">{REPORT_LIBRARY.read_text(encoding="utf-8")}</script>'
+
+
+def _round_values(values):
+    """Numbers as 32-bit floats (about 7 significant digits, plenty for a figure; plotly writes
+    a float array as packed binary, so this halves its size) or, in a list with gaps, rounded."""
+    a = np.asarray(values)
+    if a.dtype.kind == "f":
+        return a.astype(np.float32)
+    if a.dtype.kind == "O":
+        return np.array([float(np.float32(v)) if isinstance(v, (float, np.floating))
+                         and np.isfinite(v) else v for v in a.ravel()],
+                        dtype=object).reshape(a.shape)
+    return a
+
+
+def report_html(fig: go.Figure, *, height: int = 460) -> str:
+    """A figure as an HTML snippet for the report: WebGL traces drawn as SVG ones (the inlined
+    library has no WebGL), x and y as 32-bit floats, no library of its own (see
+    :func:`report_library`)."""
     import plotly.io as pio
 
+    data = []
+    for t in fig.data:
+        d = t.to_plotly_json()
+        for k in ("x", "y"):
+            if k in d and d[k] is not None:
+                d[k] = _round_values(d[k])
+        if d.get("type") == "scattergl":
+            d["type"] = "scatter"
+        data.append(d)
+    out = go.Figure(data=data, layout=fig.layout)
+    # the template's per-trace-type defaults (every type, ~10 kB a figure) are not needed:
+    # each trace sets its own look; its layout part (fonts, axes) stays
+    out.layout.template = go.layout.Template(layout=fig.layout.template.layout)
+    return pio.to_html(out, include_plotlyjs=False, full_html=False,
+                       config={"displaylogo": False, "responsive": True},
+                       default_height=f"{height}px")
+
+
+def _sample_frame_subjects(frame: pd.DataFrame, limit: int, *, seed: int = CHECK_SEED_REPORT):
+    """(rows of at most ``limit`` subjects drawn with a seed, drawn, total) of a per-subject frame."""
+    n = len(frame)
+    if n <= limit:
+        return frame, n, n
+    rng = np.random.default_rng(seed)
+    keep = np.sort(rng.choice(n, size=limit, replace=False))
+    return frame.iloc[keep], limit, n
+
+
+def report_figures(exploration, models, *, chosen: str | None = None,
+                   subject=None) -> list[tuple[str, str, str]]:
+    """(place, caption, HTML) of every report figure, the plotting library first.
+
+    The page's figures: courses by group, the semivariogram (and, with fitted ``models``, the
+    models' fitted curves over the semivariogram of their own OLS residuals), subject slope
+    intervals, slope against the covariate, loss to follow-up (Kaplan–Meier), and the model
+    checks of ``chosen`` (default: the preferred model) with ``subject`` (default: the first
+    subject with the most visits). Large cohorts are drawn from seeded samples (said in the
+    captions).
+    """
+    from analysis.errors import CohortError
+    from analysis.models.checks import checks_for
+
+    cohort = exploration.cohort
+    look = cohort_look(cohort)
+    out = [("library", "", report_library())]
+    frame = cohort.frame
+    frame["subject"] = frame["subject"].astype(str)
+    chosen_ids, k, n = sample_subjects(frame, per_stratum=REPORT_DRAW, seed=CHECK_SEED_REPORT)
+    shown = frame[frame["subject"].isin(set(chosen_ids))]
+    out.append(("courses", f"{k:,} of {n:,} subjects drawn ({REPORT_DRAW} per group at most, "
+                           f"sample {CHECK_SEED_REPORT}); the thick lines are the mean of every "
+                           "subject in the group.",
+                report_html(courses_figure(shown, full=frame, look=look), height=560)))
+    out.append(("semivariogram", "Binned semivariogram of the detrended residuals (marker area "
+                                 "∝ pairs) with a lowess smooth and the process variance.",
+                report_html(variogram_figure(exploration.variogram, look=look))))
+    lines, drawn, total = _sample_frame_subjects(exploration.subject_lines, REPORT_SUBJECTS)
+    sample = ("" if drawn >= total else f" {drawn:,} of {total:,} subjects drawn at random "
+              f"(seed {CHECK_SEED_REPORT}).")
+    out.append(("lines", "Each subject's least-squares slope with its 95% interval, grouped by "
+                         "group and ordered by slope." + sample,
+                report_html(intervals_figure(lines, look=look, order="slope"), height=620)))
+    out.append(("rate", "Subject slope against the baseline covariate, coloured by group, with "
+                        "a lowess smooth of every subject." + sample,
+                report_html(slope_vs_covariate_figure(lines, exploration.summaries.slope_smooth,
+                                                      look=look), height=480)))
+    out.append(("followup", "Share of each group not yet left (Kaplan–Meier, 95% band) and the "
+                            "response at the last visit.",
+                report_html(dropout_figure(exploration.summaries.dropout, look=look),
+                            height=500)))
+    if models is None or getattr(models, "panel", None) is None or not models.fits:
+        return out
     vg = exploration.variogram
-    look = cohort_look(exploration.cohort)
-    if models is not None and getattr(models, "panel", None) is not None:
-        vg = models.residual_variogram(n_bins=len(vg.bins), max_lag=vg.max_lag)
-        fig = fitted_variogram_figure(vg, models, look=look)
+    vgm = models.residual_variogram(n_bins=len(vg.bins), max_lag=vg.max_lag)
+    out.append(("models", OVERLAY_CAPTION,
+                report_html(fitted_variogram_figure(vgm, models, look=look), height=520)))
+    try:
+        ch = checks_for(cohort, models, chosen)
+    except CohortError:          # the report's text says why
+        return out
+    if subject is None or not len(ch.subject(subject)):
+        counts = ch.visits.groupby("subject", sort=False).size()
+        subject = counts.idxmax() if len(counts) else None
+    for key, fig in check_figures(ch, look=look, highlight_subject=subject,
+                                  limit=REPORT_CHECK_POINTS):
+        out.append(("checks", CHECK_CAPTIONS[key].format(model=ch.model, subject=subject,
+                                                         limit=REPORT_CHECK_POINTS),
+                    report_html(fig, height=440)))
+    return out
+
+
+#: captions of the model-check figures in the report
+CHECK_CAPTIONS = {
+    "fitted": "{model}: standardised residuals against the population fitted values (at most "
+              "{limit:,} visits, a seeded random sample beyond).",
+    "time": "{model}: standardised residuals against time (at most {limit:,} visits).",
+    "qq": "{model}: normal quantile plot of the standardised residuals.",
+    "effects": "{model}: normal quantile plot of each predicted random effect.",
+    "subject": "{model}: subject {subject} (the report marks the first subject with the most "
+               "visits unless one was highlighted on the page), its visits with the population "
+               "and its own predicted course.",
+}
+
+
+# --------------------------------------------------------------------------- views the report draws too
+# Moved here from their section modules (which import them back) so the Dash-free report
+# can draw the same figures as the page.
+
+# from app/sections/courses.py
+def sample_subjects(frame: pd.DataFrame, *, per_stratum: int, seed: int,
+                    keep: str | None = None) -> tuple[np.ndarray, int, int]:
+    """A reproducible random sample of subjects, up to ``per_stratum`` from each group.
+
+    Returns (chosen subject ids, number drawn, number available). ``keep`` (the
+    highlighted subject) is always included. The same (data, seed) gives the same draw.
+    """
+    firsts = frame.drop_duplicates("subject")[["subject", "stratum"]]
+    rng = np.random.default_rng(seed)
+    chosen = []
+    for _, grp in firsts.groupby("stratum", sort=True):
+        ids = grp["subject"].to_numpy()
+        if len(ids) > per_stratum:
+            ids = rng.choice(ids, size=per_stratum, replace=False)
+        chosen.extend(ids.tolist())
+    if keep is not None and keep in set(firsts["subject"].astype(str)) and keep not in chosen:
+        chosen.append(keep)
+    return np.asarray(chosen, dtype=object), len(chosen), len(firsts)
+
+
+def panel_title(label: str, n: int, *, ncol: int, bold: bool = False) -> str:
+    """``"1.0 – 10.7 · n = 265"``: a small-multiple title that fits its panel.
+
+    The budget of characters per line shrinks with the number of panel columns
+    (about 100 characters of :data:`PANEL_TITLE_SIZE` text across a ~1000 px
+    graph); a longer title puts the count on its own line and wraps the label.
+    """
+    budget = max(12, int(100 / max(ncol, 1)))
+    count = f"n = {n:,}"
+    label = str(label)
+    if len(label) + 3 + len(count) <= budget:
+        lines = [f"{label} · {count}"]
     else:
-        fig = variogram_figure(vg, look=look, model_curves=pd.DataFrame(
-            {"model": [], "lag": [], "gamma": []}),
-            title=f"{look.response}: fitted semivariograms against the empirical one")
-    snippet = pio.to_html(fig, include_plotlyjs=True, full_html=False,
-                          config={"displaylogo": False}, default_height="460px")
-    return [(OVERLAY_CAPTION, snippet)]
+        lines = textwrap.wrap(label, width=budget, break_long_words=False) or [label]
+        lines.append(count)
+    if bold:
+        lines[0] = f"<b>{lines[0]}</b>"
+    return "<br>".join(lines)
+
+
+def courses_figure(shown: pd.DataFrame, *, full: pd.DataFrame, look: CohortLook,
+                   highlight_subject=None, highlight_stratum=None,
+                   n_bins: int = MEAN_BINS) -> go.Figure:
+    """Response over time, one panel per group: sampled subject lines and the group mean.
+
+    Parameters
+    ----------
+    shown : DataFrame
+        Rows of the sampled subjects: subject, time, response, stratum_label.
+    full : DataFrame
+        Every included row (the group means use all subjects, not only the sample).
+    look : CohortLook
+    highlight_subject : str, optional
+        Drawn bold in the highlight colour in its group's panel.
+    highlight_stratum : str, optional
+        Its panel keeps full strength; the others fade.
+    """
+    labels = list(look.strata) or _present_strata(look, full["stratum_label"])
+    k = max(len(labels), 1)
+    ncol = k if k <= 4 else (int(np.ceil(k / 2)) if k <= 8 else 4)
+    nrow = int(np.ceil(k / ncol))
+    subjects_per = full.groupby("stratum_label", sort=False)["subject"].nunique()
+    # the covariate and its unit are named once, in the figure title; each panel
+    # title is the group's range and its subject count, wrapped only when too wide
+    titles = [panel_title(lab, int(subjects_per.get(lab, 0)), ncol=ncol,
+                          bold=highlight_stratum == lab) for lab in labels]
+    title_lines = max(t.count("<br>") + 1 for t in titles) if titles else 1
+    fig = make_subplots(rows=nrow, cols=ncol, shared_xaxes="all", shared_yaxes="all",
+                        subplot_titles=titles, horizontal_spacing=0.045,
+                        vertical_spacing=(0.12 + 0.04 * title_lines) if nrow > 1 else 0.1)
+    for ann in fig.layout.annotations:
+        ann.font = {"size": PANEL_TITLE_SIZE}
+
+    shown = shown.assign(subject=shown["subject"].astype(str),
+                         stratum_label=shown["stratum_label"].astype(str))
+    shown = shown.sort_values(["stratum_label", "subject", "time"], kind="stable")
+    means = group_means(full, strata=labels, n_bins=n_bins)
+    hl = None if highlight_subject is None else str(highlight_subject)
+    hover = (f"subject %{{customdata}}<br>%{{x:.1f}} {look.time_unit}: %{{y:.1f}}"
+             f" {look.response_unit}<extra></extra>")
+    # WebGL traces are painted above SVG ones, so once the subject lines need WebGL,
+    # the mean and the highlighted subject use it too (and stay on top)
+    biggest = int(shown["stratum_label"].value_counts().max()) if len(shown) else 0
+    kind = go.Scattergl if biggest > GL_POINTS else go.Scatter
+    for i, lab in enumerate(labels):
+        row, col = i // ncol + 1, i % ncol + 1
+        colour = look.colour(lab)
+        strength = _strength(look, lab, highlight_stratum)
+        sub = shown[shown["stratum_label"] == lab]
+        xs, ys, cd = _segments(sub["subject"].to_numpy(), sub["time"].to_numpy(),
+                               sub["response"].to_numpy(), sub["subject"].to_numpy())
+        fig.add_trace(kind(
+            x=xs, y=ys, customdata=cd, mode="lines", name=look.group_title(lab),
+            legendgroup=lab, showlegend=True,
+            line={"color": pal.with_alpha(colour, 0.42 * strength), "width": 1.2},
+            hovertemplate=hover), row=row, col=col)
+        m = means[means["stratum_label"] == lab]
+        if len(m):
+            common = dict(x=m["time"].to_numpy(), y=m["response"].to_numpy(), mode="lines",
+                          legendgroup=lab, showlegend=False, hoverinfo="skip")
+            fig.add_trace(kind(**common, line={"color": "rgba(255,255,255,0.9)",
+                                               "width": 8}), row=row, col=col)
+            fig.add_trace(kind(
+                x=m["time"].to_numpy(), y=m["response"].to_numpy(), mode="lines+markers",
+                name=f"{look.group_title(lab)} mean", legendgroup=lab, showlegend=False,
+                customdata=m["visits"].to_numpy(),
+                line={"color": pal.with_alpha(colour, max(strength, 0.35)), "width": 4},
+                marker={"size": 6, "color": pal.with_alpha(colour, max(strength, 0.35))},
+                hovertemplate=(f"group mean {look.group_title(lab)}<br>%{{x:.1f}} "
+                               f"{look.time_unit}: %{{y:.1f}} {look.response_unit}"
+                               "<br>%{customdata} visits<extra></extra>")), row=row, col=col)
+        if hl is not None:
+            h = full[(full["subject"].astype(str) == hl) & (full["stratum_label"].astype(str) == lab)]
+            if len(h):
+                h = h.sort_values("time")
+                fig.add_trace(kind(
+                    x=h["time"].to_numpy(), y=h["response"].to_numpy(), mode="lines+markers",
+                    customdata=np.full(len(h), hl, dtype=object), name=f"subject {hl}",
+                    line={"color": pal.HIGHLIGHT_COLOR, "width": 3.5},
+                    marker={"size": 8, "color": pal.HIGHLIGHT_COLOR,
+                            "line": {"color": "#ffffff", "width": 1}},
+                    hovertemplate=hover), row=row, col=col)
+    # a legend key for the mean line (drawn in every panel in its group's colour)
+    fig.add_trace(go.Scatter(x=[None], y=[None], mode="lines", name="group mean, every subject",
+                             line={"color": pal.REFERENCE_COLOR, "width": 4}, hoverinfo="skip"),
+                  row=1, col=1)
+    total = int(full["subject"].nunique())
+    drawn = int(shown["subject"].nunique())
+    _finish(fig, f"{look.response} over time, by {look.stratifier_label}",
+            subtitle=(f"thin lines: {drawn:,} of {total:,} subjects drawn · thick line: mean of "
+                      f"every subject in the group, {len(set(means['bin'])) if len(means) else 0}"
+                      f" time bins"),
+            top=104 + 18 * title_lines, bottom=105)
+    fig.update_xaxes(title_text="")
+    fig.update_yaxes(title_text="")
+    for c in range(1, ncol + 1):
+        fig.update_xaxes(title_text=look.time_label, row=nrow, col=c)
+    fig.update_yaxes(title_text=look.response_label, col=1)
+    return fig
+
+
+# from app/sections/lines.py
+#: at most this many subjects get their id as a y tick label in the slope-interval view
+MAX_SUBJECT_TICKS = 40
+
+
+ORDER_COLUMNS = {"slope": "slope", "intercept": "intercept", "covariate": "covariate",
+                 "subject": "subject"}
+
+
+def interval_layout(lines: pd.DataFrame, *, strata: Sequence[str], order: str) -> pd.DataFrame:
+    """Rows with a slope, grouped by stratum (in ``strata`` order), sorted by ``order`` within,
+    with their vertical position ``pos`` (a gap between groups)."""
+    if order not in ORDER_COLUMNS:
+        raise ValueError(f"order == {order!r}, must be one of {', '.join(ORDER_COLUMNS)}")
+    df = lines[np.isfinite(lines["slope"].to_numpy(float))].copy()
+    df["stratum_label"] = df["stratum_label"].astype(str)
+    rank = {s: i for i, s in enumerate(strata)}
+    df["_g"] = df["stratum_label"].map(rank).fillna(len(rank)).astype(int)
+    key = df[ORDER_COLUMNS[order]]
+    numeric = pd.to_numeric(key, errors="coerce")
+    # a categorical covariate (or subject ids) sorts as text
+    df["_k"] = key.astype(str) if order == "subject" or numeric.isna().all() and key.notna().any() \
+        else numeric
+    df = df.sort_values(["_g", "_k", "subject"], na_position="last", kind="stable")
+    gap = max(2.0, 0.03 * len(df))
+    df["pos"] = np.arange(len(df), dtype=float) + gap * (df["_g"].rank(method="dense").to_numpy() - 1)
+    return df.drop(columns=["_k"])
+
+
+def intervals_figure(lines: pd.DataFrame, *, look: CohortLook, order: str = "slope",
+                     highlight_subject=None, highlight_stratum=None) -> go.Figure:
+    """Each subject's slope with its 95% interval, grouped and coloured by group.
+
+    Parameters
+    ----------
+    lines : DataFrame
+        Per-subject lines: subject, n, intercept, slope, slope_lo, slope_hi,
+        has_interval, stratum_label, covariate.
+    order : {'slope', 'intercept', 'covariate', 'subject'}
+        Order of subjects within each group.
+    """
+    df = interval_layout(lines, strata=look.strata, order=order)
+    no_slope = int(len(lines) - len(df))
+    many = len(df) > 300
+    # WebGL traces are painted above SVG ones: every trace here, the highlight included,
+    # uses the same kind so the drawing order is the trace order
+    kind = go.Scattergl if many else go.Scatter
+    fig = go.Figure()
+    labels = [s for s in look.strata if s in set(df["stratum_label"])] + sorted(
+        set(df["stratum_label"]) - set(look.strata))
+    hover = ("subject %{customdata[0]}<br>slope %{x:.3g} " + look.per_time +
+             "<br>interval %{customdata[1]:.3g} to %{customdata[2]:.3g}"
+             "<br>intercept %{customdata[4]:.4g}<br>%{customdata[3]} visits<extra></extra>")
+    two_legend = False
+    for lab in labels:
+        g = df[df["stratum_label"] == lab]
+        colour = look.colour(lab)
+        strength = _strength(look, lab, highlight_stratum)
+        has = g["has_interval"].to_numpy(bool)
+        gi = g[has]
+        if len(gi):
+            xs, ys = _rows_to_segments(gi["slope_lo"].to_numpy(), gi["slope_hi"].to_numpy(),
+                                       gi["pos"].to_numpy(), gi["pos"].to_numpy())
+            fig.add_trace(kind(
+                x=xs, y=ys, mode="lines", legendgroup=lab, showlegend=False, hoverinfo="skip",
+                name=f"{lab} intervals",
+                line={"color": pal.with_alpha(colour, (0.45 if many else 0.7) * strength),
+                      "width": 1 if many else 2}))
+        custom = np.c_[g["subject"].astype(str).to_numpy(dtype=object),
+                       g["slope_lo"].to_numpy(), g["slope_hi"].to_numpy(),
+                       g["n"].to_numpy(), g["intercept"].to_numpy()]
+        fig.add_trace(kind(
+            x=g["slope"].to_numpy()[has], y=g["pos"].to_numpy()[has], customdata=custom[has],
+            mode="markers", name=look.group_title(lab), legendgroup=lab,
+            marker={"color": colour, "size": 4 if many else 7, "opacity": strength},
+            hovertemplate=hover))
+        if (~has).any():
+            fig.add_trace(kind(
+                x=g["slope"].to_numpy()[~has], y=g["pos"].to_numpy()[~has],
+                customdata=custom[~has], mode="markers",
+                name="two visits: slope only, no interval", legendgroup="two-visits",
+                showlegend=not two_legend,
+                marker={"color": colour, "size": 6 if many else 9, "symbol": "circle-open",
+                        "line": {"width": 2}, "opacity": strength},
+                hovertemplate=hover.replace("interval %{customdata[1]:.3g} to "
+                                            "%{customdata[2]:.3g}", "no interval (two visits)")))
+            two_legend = True
+    if highlight_subject is not None:
+        h = df[df["subject"].astype(str) == str(highlight_subject)]
+        if len(h):
+            r = h.iloc[0]
+            lo, hi = (r["slope_lo"], r["slope_hi"]) if bool(r["has_interval"]) else (r["slope"],) * 2
+            fig.add_trace(kind(
+                x=[lo, hi], y=[r["pos"], r["pos"]], mode="lines", showlegend=False,
+                line={"color": pal.HIGHLIGHT_COLOR, "width": 4}, hoverinfo="skip"))
+            fig.add_trace(kind(
+                x=[r["slope"]], y=[r["pos"]], mode="markers+text",
+                customdata=[[str(r["subject"]), lo, hi, r["n"], r["intercept"]]],
+                name=f"subject {highlight_subject}", text=[f"  {highlight_subject}"],
+                textposition="middle right", textfont={"size": 14, "color": pal.HIGHLIGHT_COLOR},
+                marker={"color": pal.HIGHLIGHT_COLOR, "size": 13, "symbol": "diamond",
+                        "line": {"color": "#ffffff", "width": 1.5}},
+                hovertemplate=hover))
+    # y axis: subject ids when few, group names at block centres otherwise
+    if len(df) <= MAX_SUBJECT_TICKS:
+        yaxis = {"tickvals": df["pos"].tolist(), "ticktext": df["subject"].astype(str).tolist()}
+    else:
+        centre = df.groupby("stratum_label", sort=False)["pos"].median()
+        yaxis = {"tickvals": [float(centre[s]) for s in labels],
+                 "ticktext": [look.group_title(s) for s in labels]}
+    ends = np.r_[df["slope_lo"].to_numpy(float), df["slope_hi"].to_numpy(float),
+                 df["slope"].to_numpy(float)]
+    xr, outside = _robust_range(ends, q=0.01)
+    notes = [f"{_plural(len(df), 'subject')}, ordered by {order} within each group"]
+    if xr is not None:
+        notes.append("axis cut at the 1st–99th percentile of the interval ends")
+    if no_slope:
+        notes.append(f"{no_slope} without a slope (one visit or one time) not shown")
+    fig.add_vline(x=0, line={"color": pal.REFERENCE_COLOR, "width": 1.5, "dash": "dot"})
+    _finish(fig, "Each subject's slope with its 95% interval", subtitle=" · ".join(notes),
+            bottom=105, left=150 if len(df) > MAX_SUBJECT_TICKS else 110)
+    fig.update_xaxes(title_text=look.slope_label, range=xr)
+    fig.update_yaxes(title_text=f"subjects, grouped by {look.stratifier}", autorange="reversed",
+                     showgrid=False, zeroline=False, **yaxis)
+    return fig
+
+
+# from app/sections/rate.py
+#: the two rate-of-change plots sit side by side: room above for title + subtitle,
+#: and on the left for a two-line slope axis title
+RATE_TOP = 96
+
+
+RATE_LEFT = 96
+
+
+def slope_vs_covariate_figure(lines: pd.DataFrame, smooth: pd.DataFrame | None, *,
+                              look: CohortLook, highlight_subject=None,
+                              highlight_stratum=None) -> go.Figure:
+    """Per-subject slope against the raw baseline covariate, coloured by group, with a lowess line.
+
+    The x axis is logarithmic when the covariate is analysed on a log scale
+    (and every value is positive).
+    """
+    name = look.covariate or "covariate"
+    cov = pd.to_numeric(lines["covariate"], errors="coerce").to_numpy(float)
+    df = lines[np.isfinite(lines["slope"].to_numpy(float)) & np.isfinite(cov)].assign(
+        covariate=cov[np.isfinite(lines["slope"].to_numpy(float)) & np.isfinite(cov)])
+    if df.empty:
+        return empty_figure(f"{name} has no numeric values here, so slopes cannot be plotted "
+                            "against it; the box plot compares its groups.",
+                            title=f"Subject slope against {name}")
+    log_axis = look.transform.startswith("log") and bool((df["covariate"] > 0).all())
+    fig = go.Figure()
+    kind = go.Scattergl if len(df) > GL_POINTS else go.Scatter   # one kind: order = trace order
+    for lab in _present_strata(look, df["stratum_label"]):
+        g = df[df["stratum_label"].astype(str) == lab]
+        strength = _strength(look, lab, highlight_stratum)
+        fig.add_trace(kind(
+            x=g["covariate"].to_numpy(), y=g["slope"].to_numpy(), mode="markers",
+            name=look.group_title(lab),
+            customdata=np.c_[g["subject"].astype(str).to_numpy(dtype=object),
+                             np.full(len(g), lab, dtype=object)],
+            marker={"color": colour_alpha(look, lab, 0.7 * strength), "size": 7,
+                    "line": {"width": 0.5, "color": "#ffffff"}},
+            hovertemplate=(f"subject %{{customdata[0]}}<br>{name} %{{x:.3g}}"
+                           f"<br>slope %{{y:.3g}} {look.per_time}<extra></extra>")))
+    if smooth is not None and len(smooth):
+        fig.add_trace(kind(
+            x=smooth["covariate"].to_numpy(), y=smooth["slope_smooth"].to_numpy(), mode="lines",
+            name="lowess smooth, all subjects", line={"color": pal.HIGHLIGHT_COLOR, "width": 3.5},
+            hovertemplate=f"{name} %{{x:.3g}}<br>smoothed slope %{{y:.3g}}<extra></extra>"))
+    if highlight_subject is not None:
+        h = df[df["subject"].astype(str) == str(highlight_subject)]
+        if len(h):
+            fig.add_trace(kind(
+                x=h["covariate"].to_numpy(), y=h["slope"].to_numpy(), mode="markers",
+                customdata=[[str(highlight_subject), str(h["stratum_label"].iloc[0])]],
+                name=f"subject {highlight_subject}",
+                marker={"size": 18, "color": pal.HIGHLIGHT_COLOR, "symbol": "diamond-open",
+                        "line": {"width": 3, "color": pal.HIGHLIGHT_COLOR}},
+                hovertemplate="subject %{customdata[0]}<extra></extra>"))
+    yr, outside = _robust_range(df["slope"].to_numpy(float))
+    unit = look.covariate_unit
+    xt = name + _parenthesis(", ".join(p for p in (unit, "log scale" if log_axis else "") if p))
+    _finish(fig, f"Subject slope against {name}",
+            subtitle=(f"axis cut at the 1st–99th percentile; {outside} outside" if yr else
+                      f"{_plural(len(df), 'subject')}; line: lowess smooth"),
+            top=RATE_TOP, bottom=150, left=RATE_LEFT)
+    fig.add_hline(y=0, line={"color": pal.REFERENCE_COLOR, "width": 1.2, "dash": "dot"})
+    fig.update_xaxes(title_text=xt, type="log" if log_axis else "linear",
+                     **(_log_ticks(df["covariate"].to_numpy(float)) if log_axis else {}))
+    fig.update_yaxes(title_text=look.slope_label_wrapped, range=yr)
+    return fig
+
+
+def _log_ticks(values: np.ndarray) -> dict:
+    """1-2-5 tick values covering positive ``values``, written as plain numbers."""
+    v = values[np.isfinite(values) & (values > 0)]
+    if v.size == 0:
+        return {}
+    lo, hi = np.floor(np.log10(v.min())), np.ceil(np.log10(v.max()))
+    ticks = (np.array([1.0, 2.0, 5.0])[None, :] * 10.0 ** np.arange(lo, hi + 1)[:, None]).ravel()
+    ticks = ticks[(ticks >= v.min() / 1.5) & (ticks <= v.max() * 1.5)]
+    return {"tickvals": ticks.tolist(), "ticktext": [f"{t:g}" for t in ticks]}
+
+
+# from app/sections/followup.py
+def dropout_figure(dropout, *, look: CohortLook, highlight_stratum=None) -> go.Figure:
+    """Left: Kaplan–Meier share of each group not yet left, with its 95% band; right: response
+    at the last visit of those who left early against those who did not.
+
+    Parameters
+    ----------
+    dropout : analysis.exploration.summaries.Dropout
+        Reads ``horizon``, ``classified``, ``counts``, ``retention`` (stratum, label, time,
+        retained, lo, hi, at_risk, left) and ``by_stratum`` (label, followup, n, mean, sd).
+        When ``classified`` is false the left panel shows the share with a visit at or after
+        each time and says that leaving cannot be told from the end of the data.
+    """
+    unit = look.time_unit
+    h_text = dropout.horizon_text(unit)
+    left_title = ("Not yet left (Kaplan–Meier)" if dropout.classified
+                  else "Seen at or after each time")
+    fig = make_subplots(rows=1, cols=2, column_widths=[0.62, 0.38], horizontal_spacing=0.22,
+                        subplot_titles=(left_title, f"{look.response} at the last visit"))
+    for ann in fig.layout.annotations:
+        ann.font = {"size": 15}
+    ret = dropout.retention
+    order = [s for s in look.strata if s in set(ret["label"])] + [ALL_LABEL]
+    for lab in order:
+        r = ret[ret["label"] == lab]
+        if not len(r):
+            continue
+        overall = lab == ALL_LABEL
+        strength = 1.0 if overall else _strength(look, lab, highlight_stratum)
+        colour = pal.REFERENCE_COLOR if overall else look.colour(lab)
+        name = ALL_LABEL if overall else look.group_title(lab)
+        x = r["time"].to_numpy(float)
+        fig.add_trace(go.Scatter(x=x, y=r["hi"].to_numpy(float), mode="lines",
+                                 line={"shape": "hv", "width": 0}, legendgroup=lab,
+                                 showlegend=False, hoverinfo="skip"), row=1, col=1)
+        fig.add_trace(go.Scatter(x=x, y=r["lo"].to_numpy(float), mode="lines",
+                                 line={"shape": "hv", "width": 0}, fill="tonexty",
+                                 fillcolor=pal.with_alpha(colour, (0.10 if overall else 0.16)
+                                                          * strength),
+                                 legendgroup=lab, showlegend=False, hoverinfo="skip"),
+                      row=1, col=1)
+        fig.add_trace(go.Scatter(
+            x=x, y=r["retained"].to_numpy(float), mode="lines", name=name, legendgroup=lab,
+            line={"shape": "hv", "width": 3 if strength == 1 and not overall else 2,
+                  "color": pal.with_alpha(colour, strength),
+                  "dash": "dash" if overall else "solid"},
+            customdata=np.c_[r["lo"].to_numpy(float), r["hi"].to_numpy(float),
+                             r["at_risk"].to_numpy()],
+            hovertemplate=(f"{name}<br>%{{x:.1f}} {unit}: %{{y:.1%}} "
+                           + ("not yet left" if dropout.classified else "seen at or after")
+                           + " (95% band %{customdata[0]:.1%} to %{customdata[1]:.1%})"
+                           "<br>%{customdata[2]} at risk<extra></extra>")), row=1, col=1)
+    if dropout.classified:  # without statuses the horizon judges nothing
+        fig.add_vline(x=dropout.horizon, line={"color": pal.REFERENCE_COLOR, "dash": "dot",
+                                               "width": 1.5}, row=1, col=1)
+        fig.add_annotation(x=dropout.horizon, y=1.0, xref="x", yref="y", showarrow=False,
+                           xanchor="right", yanchor="bottom", text=f"horizon {h_text}",
+                           font={"size": 13, "color": pal.REFERENCE_COLOR})
+    # right: mean response at the last visit ± 95% interval, one row per group
+    tab = dropout.by_stratum
+    groups = list(dict.fromkeys(tab["label"].astype(str)))
+    ypos = {lab: i for i, lab in enumerate(groups)}
+    shapes = ({FOLLOWED: ("circle", -0.17), LEFT_EARLY: ("diamond-open", 0.17)}
+              if dropout.classified else {LAST_VISIT: ("circle", 0.0)})
+    for group, (symbol, shift) in shapes.items():
+        g = tab[(tab["followup"] == group) & (tab["n"] > 0)]
+        labs = g["label"].astype(str).to_numpy()
+        half = mean_interval_halfwidth(g["sd"], g["n"])
+        colours = [pal.REFERENCE_COLOR if lab == ALL_LABEL else look.colour(lab) for lab in labs]
+        opac = [1.0 if lab == ALL_LABEL else _strength(look, lab, highlight_stratum)
+                for lab in labs]
+        if dropout.classified:  # legend key in neutral grey (the points carry the group colour)
+            fig.add_trace(go.Scatter(x=[None], y=[None], mode="markers", name=group,
+                                     legendgroup=group, hoverinfo="skip",
+                                     marker={"symbol": symbol, "size": 12,
+                                             "color": pal.REFERENCE_COLOR,
+                                             "line": {"width": 2.5,
+                                                      "color": pal.REFERENCE_COLOR}}),
+                          row=1, col=2)
+        fig.add_trace(go.Scatter(
+            x=g["mean"].to_numpy(), y=[ypos[lab] + shift for lab in labs], mode="markers",
+            name=group, legendgroup=group, showlegend=False,
+            marker={"symbol": symbol, "size": 12, "color": colours, "opacity": opac,
+                    "line": {"width": 2.5, "color": colours}},
+            error_x={"type": "data", "array": np.nan_to_num(half), "color": "#7b8590",
+                     "thickness": 1.5, "width": 4},
+            customdata=np.c_[labs.astype(object), g["n"].to_numpy(), g["sd"].to_numpy()],
+            hovertemplate=(f"%{{customdata[0]}}, {group}<br>mean %{{x:.1f}} "
+                           f"{look.response_unit}<br>sd %{{customdata[2]:.1f}}, "
+                           "%{customdata[1]} subjects<extra></extra>")), row=1, col=2)
+    if dropout.classified:
+        c = dropout.counts
+        subtitle = (f"{c['left_early']:,} left before {h_text} · {c['censored']:,} had not "
+                    f"reached it when the data end · {c['complete']:,} followed to {h_text}")
+    else:
+        subtitle = ("Leaving early cannot be told apart from the end of the data "
+                    "(no calendar dates or follow-up end column)")
+    _finish(fig, "Loss to follow-up, by group", subtitle=subtitle, bottom=130, top=100)
+    lo_min = float(np.nanmin(ret["lo"])) if len(ret) else 0.0
+    fig.update_xaxes(title_text=look.time_label, row=1, col=1, rangemode="tozero")
+    fig.update_yaxes(title_text=("share not yet left" if dropout.classified
+                                 else "share seen at or after"),
+                     tickformat=".0%", range=[max(0.0, lo_min - 0.04), 1.03], row=1, col=1)
+    fig.update_xaxes(title_text=f"mean ± 95% interval{' (' + look.response_unit + ')' if look.response_unit else ''}",
+                     row=1, col=2)
+    fig.update_yaxes(tickvals=list(ypos.values()),
+                     ticktext=[look.group_title(s) for s in ypos], autorange="reversed",
+                     row=1, col=2, showgrid=False, zeroline=False, title_text="")
+    return fig
+
+
+# --------------------------------------------------------------------------- model checks
+#: most points one model-check figure draws (a seeded random sample beyond; keeps each figure
+#: well under ~300 kB of data on the page and in the report)
+CHECK_POINTS = 3000
+#: seed of that sample (stated in the figures' subtitles)
+CHECK_SEED = 1
+#: colour of the residual points and of the predicted random effects
+CHECK_COLOUR = pal.STRATUM_COLORS[0]
+#: the population prediction and the subject's own prediction in the subject figure
+POPULATION_COLOUR = pal.REFERENCE_COLOR
+OWN_COLOUR = pal.STRATUM_COLORS[5]
+SERIAL_COLOUR = pal.STRATUM_COLORS[2]
+
+
+def _sample_note(shown: int, total: int, what: str = "visits") -> str:
+    if shown >= total:
+        return f"{total:,} {what}"
+    return f"{shown:,} of {total:,} {what} drawn (random sample, seed {CHECK_SEED})"
+
+
+def _highlight_rows(frame: pd.DataFrame, highlight_subject) -> np.ndarray:
+    if highlight_subject is None:
+        return np.empty(0, dtype=int)
+    return np.flatnonzero(frame["subject"].to_numpy() == str(highlight_subject))
+
+
+def residual_scatter_figure(checks, *, look: CohortLook, against: str = "fitted",
+                            highlight_subject=None, limit: int = CHECK_POINTS) -> go.Figure:
+    """Standardised (decorrelated) residuals against the population fitted values or time.
+
+    Under the model the points scatter evenly about 0 with about 95% between the dashed
+    lines at ±z (the normal quantile of the page's confidence level); a funnel or a curve
+    shows variance or mean-model trouble.
+    """
+    from analysis.confidence import CONFIDENCE_LEVEL, z_quantile
+    from analysis.models.checks import thin_rows
+
+    v = checks.visits
+    hl = _highlight_rows(v, highlight_subject)
+    rows = thin_rows(len(v), limit, seed=CHECK_SEED, keep=hl)
+    shown = v.iloc[rows]
+    col = "fitted" if against == "fitted" else "time"
+    x_title = (f"population fitted value, {look.response_label}" if col == "fitted"
+               else look.time_label)
+    fig = go.Figure()
+    kind = go.Scattergl if len(shown) > GL_POINTS else go.Scatter
+    fig.add_trace(kind(
+        x=shown[col].to_numpy(float), y=shown["standardised"].to_numpy(float), mode="markers",
+        name="visit", customdata=shown["subject"].to_numpy(dtype=object),
+        marker={"color": pal.with_alpha(CHECK_COLOUR, 0.45), "size": 6},
+        hovertemplate=("subject %{customdata}<br>" + ("fitted %{x:.4g}" if col == "fitted"
+                                                      else f"%{{x:.3g}} {look.time_unit}")
+                       + "<br>standardised residual %{y:.2f}<extra></extra>")))
+    z = z_quantile(CONFIDENCE_LEVEL)
+    lo, hi = float(np.nanmin(shown[col])) if len(shown) else 0.0, \
+        float(np.nanmax(shown[col])) if len(shown) else 1.0
+    fig.add_trace(go.Scatter(x=[lo, hi, None, lo, hi], y=[z, z, None, -z, -z], mode="lines",
+                             name=f"±{z:.2f}: {100 * CONFIDENCE_LEVEL:g}% of N(0, 1)",
+                             line={"color": pal.REFERENCE_COLOR, "width": 1.5, "dash": "dash"},
+                             hoverinfo="skip"))
+    if hl.size:
+        h = v.iloc[hl]
+        fig.add_trace(kind(x=h[col].to_numpy(float), y=h["standardised"].to_numpy(float),
+                           mode="markers", name=f"subject {highlight_subject}",
+                           customdata=h["subject"].to_numpy(dtype=object),
+                           marker={"color": pal.HIGHLIGHT_COLOR, "size": 11, "symbol": "diamond",
+                                   "line": {"color": "#ffffff", "width": 1}},
+                           hovertemplate="subject %{customdata}<br>%{y:.2f}<extra></extra>"))
+    fig.add_hline(y=0, line={"color": pal.REFERENCE_COLOR, "width": 1.2})
+    what = "fitted value" if col == "fitted" else "time"
+    _finish(fig, f"Standardised residuals by {what}",
+            subtitle=_sample_note(len(shown), len(v)), bottom=100)
+    fig.update_xaxes(title_text=x_title)
+    yr, _ = _robust_range(shown["standardised"].to_numpy(float), q=0.001)
+    fig.update_yaxes(title_text="standardised residual (SD units)", range=yr, zeroline=False)
+    return fig
+
+
+def residual_qq_figure(checks, *, look: CohortLook, highlight_subject=None,
+                       limit: int = CHECK_POINTS) -> go.Figure:
+    """Normal quantile plot of the standardised residuals against the N(0, 1) diagonal."""
+    from analysis.models.checks import thin_quantiles
+
+    v = checks.visits
+    rows = thin_quantiles(v["score"].to_numpy(float), limit)
+    shown = v.iloc[rows]
+    fig = go.Figure()
+    kind = go.Scattergl if len(shown) > GL_POINTS else go.Scatter
+    fig.add_trace(kind(
+        x=shown["score"].to_numpy(float), y=shown["standardised"].to_numpy(float),
+        mode="markers", name="visit", customdata=shown["subject"].to_numpy(dtype=object),
+        marker={"color": pal.with_alpha(CHECK_COLOUR, 0.55), "size": 6},
+        hovertemplate=("subject %{customdata}<br>normal quantile %{x:.2f}"
+                       "<br>standardised residual %{y:.2f}<extra></extra>")))
+    ends = [float(np.nanmin(shown["score"])), float(np.nanmax(shown["score"]))] if len(shown) \
+        else [-3.0, 3.0]
+    fig.add_trace(go.Scatter(x=ends, y=ends, mode="lines", name="N(0, 1): the diagonal",
+                             line={"color": pal.REFERENCE_COLOR, "width": 2, "dash": "dash"},
+                             hoverinfo="skip"))
+    hl = _highlight_rows(v, highlight_subject)
+    if hl.size:
+        h = v.iloc[hl]
+        fig.add_trace(kind(x=h["score"].to_numpy(float), y=h["standardised"].to_numpy(float),
+                           mode="markers", name=f"subject {highlight_subject}",
+                           customdata=h["subject"].to_numpy(dtype=object),
+                           marker={"color": pal.HIGHLIGHT_COLOR, "size": 11, "symbol": "diamond",
+                                   "line": {"color": "#ffffff", "width": 1}},
+                           hovertemplate="subject %{customdata}<br>%{y:.2f}<extra></extra>"))
+    note = (f"{len(v):,} visits" if len(shown) >= len(v) else
+            f"{len(shown):,} of {len(v):,} visits, evenly by rank, extremes kept")
+    _finish(fig, "Residuals against the normal", subtitle=note, bottom=100)
+    fig.update_xaxes(title_text="standard normal quantile")
+    fig.update_yaxes(title_text="standardised residual (SD units)")
+    return fig
+
+
+def effects_qq_figure(checks, *, look: CohortLook, highlight_subject=None,
+                      limit: int = CHECK_POINTS) -> go.Figure:
+    """Normal quantile plot of each predicted random effect, with its quartile line."""
+    from plotly.subplots import make_subplots
+
+    from analysis.models.checks import quartile_line, thin_quantiles
+
+    names = checks.effect_names
+    if not names:
+        return empty_figure(f"{checks.model} has no random effects to check.",
+                            title="Predicted random effects")
+    e = checks.effects
+    units = {"intercept": look.response_unit, "slope": look.slope_unit}
+    fig = make_subplots(rows=1, cols=len(names), horizontal_spacing=0.16,
+                        subplot_titles=[f"random {n}{_parenthesis(units[n])}" for n in names])
+    for ann in fig.layout.annotations:
+        ann.font = {"size": PANEL_TITLE_SIZE}
+    hl = str(highlight_subject) if highlight_subject is not None else None
+    shown_n = 0
+    for j, n in enumerate(names, start=1):
+        rows = thin_quantiles(e[f"{n}_score"].to_numpy(float), limit // len(names))
+        g = e.iloc[rows]
+        shown_n = len(g)
+        fig.add_trace(go.Scatter(
+            x=g[f"{n}_score"].to_numpy(float), y=g[n].to_numpy(float), mode="markers",
+            name="subject", showlegend=j == 1, legendgroup="subject",
+            customdata=g["subject"].to_numpy(dtype=object),
+            marker={"color": pal.with_alpha(CHECK_COLOUR, 0.6), "size": 6},
+            hovertemplate=("subject %{customdata}<br>normal quantile %{x:.2f}<br>"
+                           f"{n} %{{y:.4g}}<extra></extra>")), row=1, col=j)
+        a, b = quartile_line(e[n])
+        z = e[f"{n}_score"].to_numpy(float)
+        ends = np.array([np.nanmin(z), np.nanmax(z)]) if z.size else np.array([-3.0, 3.0])
+        fig.add_trace(go.Scatter(x=ends, y=a + b * ends, mode="lines",
+                                 name="line through the quartiles", showlegend=j == 1,
+                                 legendgroup="line",
+                                 line={"color": pal.REFERENCE_COLOR, "width": 2, "dash": "dash"},
+                                 hoverinfo="skip"), row=1, col=j)
+        if hl is not None:
+            h = e[e["subject"] == hl]
+            if len(h):
+                fig.add_trace(go.Scatter(
+                    x=h[f"{n}_score"].to_numpy(float), y=h[n].to_numpy(float), mode="markers",
+                    name=f"subject {hl}", showlegend=j == 1, legendgroup="hl",
+                    customdata=h["subject"].to_numpy(dtype=object),
+                    marker={"color": pal.HIGHLIGHT_COLOR, "size": 12, "symbol": "diamond",
+                            "line": {"color": "#ffffff", "width": 1}},
+                    hovertemplate="subject %{customdata}<br>%{y:.4g}<extra></extra>"),
+                    row=1, col=j)
+        fig.update_xaxes(title_text="normal quantile", row=1, col=j)
+        fig.update_yaxes(title_text="predicted deviation" if j == 1 else "", row=1, col=j)
+    note = (f"{len(e):,} subjects" if shown_n >= len(e) else
+            f"{shown_n:,} of {len(e):,} subjects, evenly by rank, extremes kept")
+    _finish(fig, "Random effects against the normal",
+            subtitle=f"{note} · read the shape, not the spread", bottom=100, top=104)
+    return fig
+
+
+def subject_fit_figure(checks, subject, *, look: CohortLook) -> go.Figure:
+    """One subject's visits with the population prediction and its own predicted course."""
+    title = "One subject: visits and predicted course"
+    if subject is None:
+        return empty_figure("Click a subject in any view to see its visits and predicted "
+                            "course here.", title=title)
+    s = checks.subject(subject).sort_values("time", kind="stable")
+    if not len(s):
+        return empty_figure(f"Subject {subject} is not among the subjects {checks.model} was "
+                            "fitted to.", title=title)
+    t = s["time"].to_numpy(float)
+    hover = f"%{{x:.3g}} {look.time_unit}: %{{y:.4g}}"
+    fig = go.Figure()
+    fig.add_trace(go.Scatter(x=t, y=s["fitted"].to_numpy(float), mode="lines",
+                             name="population prediction (fixed effects)",
+                             line={"color": POPULATION_COLOUR, "width": 2.5, "dash": "dash"},
+                             hovertemplate="population " + hover + "<extra></extra>"))
+    if checks.effect_names:
+        fig.add_trace(go.Scatter(x=t, y=s["subject_fitted"].to_numpy(float), mode="lines",
+                                 name="own prediction (+ its random effects)",
+                                 line={"color": OWN_COLOUR, "width": 3.5},
+                                 hovertemplate="own " + hover + "<extra></extra>"))
+    if checks.serial:
+        fig.add_trace(go.Scatter(x=t, y=s["serial_fitted"].to_numpy(float), mode="lines+markers",
+                                 name="own prediction + serial component",
+                                 line={"color": SERIAL_COLOUR, "width": 2, "dash": "dot"},
+                                 marker={"size": 6},
+                                 hovertemplate="with serial " + hover + "<extra></extra>"))
+    fig.add_trace(go.Scatter(x=t, y=s["response"].to_numpy(float), mode="markers",
+                             name="visits", customdata=s["subject"].to_numpy(dtype=object),
+                             marker={"color": pal.HIGHLIGHT_COLOR, "size": 10,
+                                     "line": {"color": "#ffffff", "width": 1}},
+                             hovertemplate="subject %{customdata}<br>" + hover
+                                           + "<extra></extra>"))
+    parts = [f"subject {subject}", checks.model, "lines join the predictions at the visits"]
+    if not checks.serial:
+        parts.append("no serial process in this model")
+    _finish(fig, title, subtitle=" · ".join(parts), bottom=100)
+    fig.update_xaxes(title_text=look.time_label)
+    fig.update_yaxes(title_text=look.response_label)
+    return fig
+
+
+def check_figures(checks, *, look: CohortLook, highlight_subject=None,
+                  limit: int = CHECK_POINTS) -> list[tuple[str, go.Figure]]:
+    """(key, figure) of every model-check figure, in page order."""
+    return [
+        ("fitted", residual_scatter_figure(checks, look=look, against="fitted",
+                                           highlight_subject=highlight_subject, limit=limit)),
+        ("time", residual_scatter_figure(checks, look=look, against="time",
+                                         highlight_subject=highlight_subject, limit=limit)),
+        ("qq", residual_qq_figure(checks, look=look, highlight_subject=highlight_subject,
+                                  limit=limit)),
+        ("effects", effects_qq_figure(checks, look=look, highlight_subject=highlight_subject,
+                                      limit=limit)),
+        ("subject", subject_fit_figure(checks, highlight_subject, look=look)),
+    ]
 
 
 # --------------------------------------------------------------------------- plan
 #: power-curve colours of the next-study plan
-TARGET_COLOUR = "#a33b4b"
-CURVE_COLOUR = "#1b6a9e"
+TARGET_COLOUR = pal.STRATUM_COLORS[5]
+CURVE_COLOUR = pal.STRATUM_COLORS[0]
 
 
 def power_figure(made) -> go.Figure:
@@ -432,22 +1278,19 @@ def power_figure(made) -> go.Figure:
                              name=f"needed: {p.subjects_needed:,} subjects",
                              marker={"color": TARGET_COLOUR, "size": 13, "symbol": "diamond"},
                              hovertemplate="%{x} subjects<br>power %{y:.3f}<extra></extra>"))
-    fig.update_layout(
-        title={"text": "Power of the next study against its size", "x": 0.01},
-        xaxis_title="subjects enrolled (all groups)", yaxis_title="power (probability)",
-        template="plotly_white", font={"size": 15}, margin={"l": 80, "r": 20, "t": 60, "b": 60},
-        legend={"orientation": "h", "yanchor": "top", "y": -0.2, "x": 0}, hovermode="closest")
+    _finish(fig, "Power of the next study against its size",
+            bottom=foot_legend_bottom([t.name for t in fig.data]), top=60)
+    fig.update_layout(hovermode="closest")
+    fig.update_xaxes(title_text="subjects enrolled (all groups)")
+    fig.update_yaxes(title_text="power (probability)")
     fig.update_yaxes(range=[0, 1.02])
     fig.update_xaxes(rangemode="tozero")
     return fig
 
 
 def report_plan_figure(made) -> str:
-    """The power curve as self-contained HTML for the report."""
-    import plotly.io as pio
-
-    return pio.to_html(power_figure(made), include_plotlyjs=True, full_html=False,
-                       config={"displaylogo": False}, default_height="420px")
+    """The power curve as an HTML snippet for the report (the library is inlined once)."""
+    return report_html(power_figure(made), height=420)
 
 
 __all__ = [

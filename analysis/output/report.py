@@ -15,6 +15,7 @@ from datetime import datetime, timezone
 
 import numpy as np
 import pandas as pd
+from scipy import stats
 
 from ..numbers import fmt, fmt_p, interval
 
@@ -48,6 +49,20 @@ VARIANCE_LABELS = {
 
 
 # --------------------------------------------------------------------------- formatting
+def parameter_words(text: str, *, unit: str = "time unit") -> str:
+    """``text`` with every variance parameter name (``intercept_var`` ...) in words.
+
+    The engine's boundary notes name parameters by their keys; a reader sees the labels of
+    :data:`VARIANCE_LABELS` instead.
+    """
+    import re
+
+    per = per_unit(unit)
+    for key, label in VARIANCE_LABELS.items():
+        text = re.sub(rf"(?<![\w]){key}(?![\w])", label.format(unit=unit, per=per), text)
+    return text
+
+
 def p_phrase(p) -> str:
     """'p < 0.0001' or 'p = 0.0312'."""
     text = fmt_p(p)
@@ -146,7 +161,8 @@ def model_tables(models, chosen: str | None = None, *, unit: str = "time unit") 
         "converged": comp["converged"].map(lambda b: "yes" if b else "NO"),
         "at boundary": comp["boundary"].map(lambda b: "yes" if b else ""),
     })
-    boundary_notes = tuple(f"{m}: {b}" for m, b in zip(comp["model"], comp["boundary"]) if b)
+    boundary_notes = tuple(f"{m}: {parameter_words(b, unit=unit)}"
+                           for m, b in zip(comp["model"], comp["boundary"]) if b)
     failed = [c for c in models.candidates if c.fit is None]
     if failed:
         comparison = pd.concat([comparison, pd.DataFrame({
@@ -187,7 +203,7 @@ def model_tables(models, chosen: str | None = None, *, unit: str = "time unit") 
             "estimate": vf["estimate"].map(fmt),
             "95% CI": [variance_interval(a, b, k in fit.at_boundary)
                        for a, b, k in zip(vf["lo"], vf["hi"], vf["parameter"])],
-            "note": vf["note"]})
+            "note": [parameter_words(n, unit=unit) for n in vf["note"]]})
         reference = fit.reference
 
     gee_rows = []
@@ -216,6 +232,97 @@ def model_tables(models, chosen: str | None = None, *, unit: str = "time unit") 
                        small_sample=small_sample_note(models.n_subjects))
 
 
+# --------------------------------------------------------------------------- human labels
+#: Page wording of each role (the column-roles table of the report).
+ROLE_LABELS = {
+    "subject": "Subject", "time": "Time", "response": "Response",
+    "covariates": "Baseline covariates", "event_date": "Event date",
+    "response_unit": "Response unit", "covariate_unit": "Covariate unit",
+    "followup_end": "Follow-up end",
+}
+
+
+def _words(value) -> str:
+    """A setting's value in words: lists joined, numbers with a true minus, none as '—'."""
+    if value is None:
+        return "—"
+    if isinstance(value, bool):
+        return "yes" if value else "no"
+    if isinstance(value, (list, tuple)):
+        return ", ".join(_words(v) for v in value) if value else "—"
+    if isinstance(value, (int, float, np.integer, np.floating)):
+        return format_number(float(value), 6)
+    return str(value)
+
+
+def settings_frame(settings) -> pd.DataFrame:
+    """Every setting by its panel label, with its value in the page's words.
+
+    Labels, choice wording and the default in words come from the declarations in
+    :mod:`analysis.settings`; a setting left at None shows its default in words.
+    """
+    from ..settings import DECLARED, default_text
+
+    rows = []
+    for name, decl in DECLARED.items():
+        value = getattr(settings, name)
+        if decl.kind == "switch":
+            text = "yes" if value else "no"
+        elif value is None or (decl.kind == "breaks" and not value):
+            text = default_text(name) if decl.kind != "breaks" else "none"
+        elif decl.choice_labels and value in decl.choice_labels:
+            text = decl.choice_labels[value]
+        else:
+            text = _words(value)
+        rows.append({"setting": decl.label, "value": text})
+    return pd.DataFrame(rows, columns=["setting", "value"])
+
+
+def roles_frame(roles) -> pd.DataFrame:
+    """Which column plays which part, by the page's role names (unset roles left out)."""
+    rows = [{"role": ROLE_LABELS.get(k, k.replace("_", " ").capitalize()), "column": _words(v)}
+            for k, v in roles.to_dict().items() if v not in (None, "", [], ())]
+    return pd.DataFrame(rows, columns=["role", "column"])
+
+
+def choices_frame(choices) -> pd.DataFrame:
+    """The model options by the Models section's labels, values in its wording."""
+    from ..models.modelstage import CHOICE_FIELDS
+
+    rows = []
+    for name, value in choices.to_dict().items():
+        f = CHOICE_FIELDS.get(name)
+        labels = dict(f.options()) if f is not None and f.options else {}
+        if name == "gee":
+            text = ", ".join(value) if value else "none"
+        elif name == "time_spline_df":
+            text = "straight line" if value is None else f"natural spline, {value} df"
+        elif isinstance(value, (list, tuple)):
+            text = ", ".join(labels.get(v, v) for v in value) if value else "none"
+        else:
+            text = labels.get(value, _words(value))
+        rows.append({"option": f.label if f is not None else name, "value": text})
+    return pd.DataFrame(rows, columns=["option", "value"])
+
+
+def stratum_frame(table: pd.DataFrame, *, covariate: str | None, unit: str) -> pd.DataFrame:
+    """The group summary with the page's column names (the internal group code left out)."""
+    cov = covariate or "covariate"
+    per = f"slope per {per_unit(unit)}"
+    names = {
+        "label": "group", "subjects": "subjects", "observations": "visits",
+        "cov_min": f"{cov}: min", "cov_q1": f"{cov}: lower quartile",
+        "cov_median": f"{cov}: median", "cov_q3": f"{cov}: upper quartile",
+        "cov_max": f"{cov}: max", "visits_mean": "visits per subject: mean",
+        "visits_median": "visits per subject: median", "visits_min": "visits per subject: min",
+        "visits_max": "visits per subject: max", "slope_q1": f"{per}: lower quartile",
+        "slope_median": f"{per}: median", "slope_q3": f"{per}: upper quartile",
+        "slope_n": f"{per}: subjects with one",
+    }
+    keep = [c for c in names if c in table.columns]
+    return table[keep].rename(columns=names)
+
+
 # --------------------------------------------------------------------------- HTML pieces
 CSS = """
 body{font-family:system-ui,-apple-system,"Segoe UI",Roboto,sans-serif;margin:2rem auto;
@@ -229,8 +336,13 @@ border-bottom:1px solid #e1e5eb;text-align:left;vertical-align:top}th{background
 td.num{text-align:right;font-variant-numeric:tabular-nums}.note{color:#4a5566;font-size:.9rem}
 .effect{font-size:1.35rem;font-weight:600;margin:1rem 0 .4rem;padding:.8rem 1rem;
 background:#eef4fb;border-radius:6px}.effect-alt{font-size:1.05rem;margin:.3rem 1rem}
-.warn{color:#8a3a00}figure{margin:1rem 0}.scroll{overflow-x:auto;max-width:100%}
-@media print{body{margin:0}h2{break-after:avoid}table{break-inside:avoid}}
+.warn{color:#8a3a00}figure{margin:1rem 0;max-width:100%;overflow-x:auto}
+.scroll{overflow-x:auto;max-width:100%}th,td{overflow-wrap:break-word}
+td.num{white-space:nowrap}th.group{text-align:center;border-bottom:1px solid #c9d0da}
+th{font-weight:600;font-size:.86rem}.wide table{font-size:.82rem}
+figcaption{margin-top:.2rem}.plotly-graph-div{max-width:100%}
+@media print{body{margin:0;max-width:none}h2{break-after:avoid}table{break-inside:avoid}
+.scroll{overflow:visible}figure{break-inside:avoid}}
 """
 
 
@@ -240,7 +352,7 @@ def _e(text) -> str:
 
 def table_html(frame: pd.DataFrame, *, numeric=()) -> str:
     """A plain HTML table of a frame's values (escaped; ``numeric`` columns right-aligned)."""
-    head = "".join(f"<th>{_e(c)}</th>" for c in frame.columns)
+    head = _header(list(map(str, frame.columns)))
     rows = []
     for rec in frame.itertuples(index=False):
         cells = []
@@ -249,8 +361,27 @@ def table_html(frame: pd.DataFrame, *, numeric=()) -> str:
             cells.append(f"<td{cls}>{_e(fmt(v) if isinstance(v, (float, np.floating)) else v)}"
                          "</td>")
         rows.append("<tr>" + "".join(cells) + "</tr>")
-    return (f'<div class="scroll"><table><thead><tr>{head}</tr></thead>'
+    wide = " wide" if len(frame.columns) > 7 else ""
+    return (f'<div class="scroll{wide}"><table><thead>{head}</thead>'
             f"<tbody>{''.join(rows)}</tbody></table></div>")
+
+
+def _header(columns: list[str]) -> str:
+    """Header row(s): columns named "group: part" share a spanning group heading above."""
+    split = [c.split(": ", 1) if ": " in c else [None, c] for c in columns]
+    if all(g is None for g, _ in split):
+        return "<tr>" + "".join(f"<th>{_e(c)}</th>" for c in columns) + "</tr>"
+    top, i = [], 0
+    while i < len(split):
+        g = split[i][0]
+        j = i
+        while j < len(split) and split[j][0] == g:
+            j += 1
+        span = f' colspan="{j - i}"' if j - i > 1 else ""
+        top.append(f'<th{span} class="group">{_e(g or "")}</th>')
+        i = j
+    return ("<tr>" + "".join(top) + "</tr><tr>"
+            + "".join(f"<th>{_e(part)}</th>" for _, part in split) + "</tr>")
 
 
 def _dict_table(d: dict, key="setting", value="value") -> str:
@@ -313,8 +444,11 @@ def build_report(cohort, exploration=None, models=None, *, data_name: str = "dat
         Display name and content fingerprint of the data.
     choices : ModelChoices, optional
         The model options, listed with the settings.
-    figures : sequence of (caption, html) pairs
-        Figure snippets embedded as given (must not need the network).
+    figures : sequence of (place, caption, html) triples or (caption, html) pairs
+        Figure snippets embedded as given (must not need the network), each in the part of
+        the report its ``place`` names (:data:`FIGURE_PLACES`; pairs go after the
+        exploration). The place "library" holds the plotting library itself, written once
+        at the top; the other snippets must not carry their own copy.
     chosen : str, optional
         Model whose details are shown (default: the preferred model).
     created : datetime, optional
@@ -343,10 +477,12 @@ def build_report(cohort, exploration=None, models=None, *, data_name: str = "dat
 
     # -- choices
     parts.append("<h2>Column roles and settings</h2>")
-    parts.append("<h3>Column roles</h3>" + _dict_table(cohort.roles.to_dict(), "role", "column"))
-    parts.append("<h3>Settings</h3>" + _dict_table(s.to_dict()))
+    placed = _placed(figures)
+    parts[1:1] = placed.get("library", [])
+    parts.append("<h3>Column roles</h3>" + table_html(roles_frame(cohort.roles)))
+    parts.append("<h3>Settings</h3>" + table_html(settings_frame(s)))
     if choices is not None:
-        parts.append("<h3>Model options</h3>" + _dict_table(choices.to_dict(), "option"))
+        parts.append("<h3>Model options</h3>" + table_html(choices_frame(choices)))
 
     # -- cohort
     parts.append("<h2>Who is analysed</h2>")
@@ -364,13 +500,11 @@ def build_report(cohort, exploration=None, models=None, *, data_name: str = "dat
                  if cohort.warnings else _p("None.", "note"))
 
     if exploration is not None:
-        parts.append(_exploration_html(exploration, unit))
+        parts.append(_exploration_html(exploration, unit, placed))
+    parts += placed.get("after-exploration", [])
 
-    for caption, snippet in figures:
-        parts.append(f"<figure>{snippet}<figcaption class=\"note\">{_e(caption)}</figcaption>"
-                     "</figure>")
-
-    parts.append(_models_html(models, chosen=chosen, unit=unit, x_note=x_description(cohort)))
+    parts.append(_models_html(models, chosen=chosen, unit=unit, x_note=x_description(cohort),
+                              placed=placed, cohort=cohort))
     if plan is not None:
         parts.append(plan_html(plan, unit=unit, figure=plan_figure))
     parts.append('<div class="caution">' + "".join(_p(c) for c in CAUTIONS) + "</div>")
@@ -380,11 +514,73 @@ def build_report(cohort, exploration=None, models=None, *, data_name: str = "dat
             f"<body>\n{body}\n</body></html>\n")
 
 
-def _exploration_html(ex, unit: str) -> str:
+#: Where a figure can go in the report (``build_report(figures=...)``).
+FIGURE_PLACES = ("library", "courses", "semivariogram", "lines", "rate", "followup",
+                 "after-exploration", "models", "checks")
+#: Page wording of the plan's inputs (its "where the inputs come from" table).
+PLAN_INPUT_LABELS = {"model": "fitted model", "effect": "effect to detect",
+                     "design": "design", "alpha": "significance level", "power": "target power",
+                     "schedule": "planned visit times", "dropout_rate": "dropout rate",
+                     "covariate": "covariate distribution"}
+#: What the model-check figures show (report and page say the same).
+CHECKS_NOTE = ("Standardised residuals: each subject's residuals from the population mean, "
+               "y − Xβ̂, multiplied by the inverse Cholesky factor of that subject's fitted "
+               "covariance; if the model is right they are independent standard normal draws "
+               "(an even band about 0, points on the diagonal of the quantile plot). Predicted "
+               "random effects are shrunk towards 0: their quantile plot is read for its shape, "
+               "not its slope.")
+
+
+def _placed(figures) -> dict:
+    """{place: [HTML of each figure]} from (place, caption, html) triples or (caption, html)."""
+    out: dict = {}
+    for item in figures or ():
+        place, caption, snippet = item if len(item) == 3 else ("after-exploration", *item)
+        if place not in FIGURE_PLACES:
+            raise ValueError(f"figure place {place!r} is not one of {FIGURE_PLACES}")
+        html_ = snippet if place == "library" else (
+            f"<figure>{snippet}<figcaption class=\"note\">{_e(caption)}</figcaption></figure>")
+        out.setdefault(place, []).append(html_)
+    return out
+
+
+def checks_html(models, cohort, chosen: str, figures=()) -> str:
+    """Model checks of the chosen model: the residuals' mean and SD in words, then the figures."""
+    from ..errors import CohortError
+    from ..models.checks import checks_for
+
+    try:
+        ch = checks_for(cohort, models, chosen)
+    except CohortError as exc:
+        return "\n".join([f"<h3>Model checks — {_e(chosen)}</h3>",
+                          _p(f"Not available: {exc}", "note")])
+    s = ch.summary()
+    share = 100.0 * s["beyond_2"] / max(s["n_obs"], 1)
+    out = [f"<h3>Model checks — {_e(ch.model)}</h3>",
+           _p(f"Standardised residuals of {s['n_obs']:,} visits: mean {fmt(s['mean'], 3)}, "
+              f"SD {fmt(s['sd'], 3)} (about 0 and 1 if the model is right); {share:.1f}% lie "
+              f"beyond ±2 (about {100 * 2 * stats.norm.sf(2):.1f}% for standard normal draws)."),
+           *figures, _p(CHECKS_NOTE, "note")]
+    if not ch.serial:
+        out.append(_p("This model has no serial process, so the subject's prediction is its "
+                      "fixed effects plus its random effects.", "note"))
+    return "\n".join(out)
+
+
+def _exploration_html(ex, unit: str, placed=None) -> str:
+    placed = placed or {}
     out = ["<h2>Groups of the baseline covariate</h2>"]
-    out.append(table_html(ex.summaries.stratum_table))
+    strata = stratum_frame(ex.summaries.stratum_table, covariate=ex.cohort.covariate, unit=unit)
+    shown = strata.copy()
+    for c in shown.columns[1:]:
+        shown[c] = [v if isinstance(v, str) else format_number(v, 4) for v in shown[c]]
+    out.append(table_html(shown, numeric=tuple(shown.columns[1:])))
+    if placed.get("courses"):
+        out.append("<h2>Courses over time, by group</h2>")
+        out += placed["courses"]
     vg = ex.variogram
     out.append("<h2>Semivariogram of the residuals</h2>")
+    out += placed.get("semivariogram", [])
     out.append(_p(f"{ex.residuals.description.rstrip('.')}. "
                   f"{vg.n_pairs:,} within-subject pairs up to a lag of {fmt(vg.max_lag, 3)} "
                   f"{unit}; total residual (process) variance {fmt(vg.process_variance)}."))
@@ -410,16 +606,22 @@ def _exploration_html(ex, unit: str) -> str:
                   "each cell gives the correlation and the number of subjects seen in both "
                   "windows. Blank (—) where too few subjects.", "note"))
     out.append(table_html(lag_matrix_frame(lc)))
-    out.append(_dropout_html(ex.summaries.dropout, unit))
+    if placed.get("lines"):
+        out.append("<h2>Each subject's own straight line</h2>")
+        out += placed["lines"]
+    if placed.get("rate"):
+        out.append("<h2>Rate of change and the baseline covariate</h2>")
+        out += placed["rate"]
+    out.append(_dropout_html(ex.summaries.dropout, unit, placed.get("followup", [])))
     return "\n".join(out)
 
 
-def _dropout_html(d, unit: str) -> str:
+def _dropout_html(d, unit: str, figures=()) -> str:
     """Loss to follow-up: the counts per status in the page's words, the rule, the table."""
     from ..exploration.summaries import BAND_METHOD, STATUSES
 
     h = d.horizon_text(unit)
-    out = ["<h2>Visits and loss to follow-up</h2>", _p(d.sentence(unit))]
+    out = ["<h2>Visits and loss to follow-up</h2>", _p(d.sentence(unit)), *figures]
     if d.classified:
         names = {"left_early": f"left before {h}", "censored": f"had not reached {h}",
                  "complete": f"followed to {h}"}
@@ -434,7 +636,8 @@ def _dropout_html(d, unit: str) -> str:
     return "\n".join(out)
 
 
-def _models_html(models, *, chosen, unit, x_note="") -> str:
+def _models_html(models, *, chosen, unit, x_note="", placed=None, cohort=None) -> str:
+    placed = placed or {}
     out = ["<h2>Models</h2>"]
     if models is None:
         out.append(_p("No models were fitted for this report.", "note"))
@@ -457,6 +660,7 @@ def _models_html(models, *, chosen, unit, x_note="") -> str:
                       "there is no effect statement.", "note"))
     out.append("<h3>Comparison of working covariance structures</h3>")
     out.append(table_html(t.comparison))
+    out += placed.get("models", [])
     out += [_p("At the boundary — " + n, "note") for n in t.boundary_notes]
     out.append(_p(PREFERRED_RULE, "note"))
     out.append(_p(t.method_note, "note"))
@@ -474,6 +678,8 @@ def _models_html(models, *, chosen, unit, x_note="") -> str:
                       "Mancl–DeRouen small-sample correction.".strip(), "note"))
         out.append(f"<h3>Variance parameters — {_e(t.chosen)}</h3>")
         out.append(table_html(t.variance))
+    if t.chosen is not None and cohort is not None:
+        out.append(checks_html(models, cohort, t.chosen, placed.get("checks", [])))
     if len(t.gee):
         out.append("<h3>GEE robustness rows</h3>")
         out.append(table_html(t.gee))
@@ -523,9 +729,13 @@ def plan_html(made, *, unit: str = "time unit", figure: str | None = None) -> st
         "name": "model", "subjects_needed": "subjects needed", "per_group": "per group",
         "standard_error": "standard error", "error": "problem"})
     out.append(table_html(per, numeric=("subjects needed", "per group", "standard error")))
-    out.append("<h3>Where the inputs come from</h3>" + _dict_table(made.sources, "input", "source"))
-    out.append("<h3>Variance parameters assumed</h3>"
-               + _dict_table(made.inputs.covariance.variance, "parameter"))
+    out.append("<h3>Where the inputs come from</h3>" + _dict_table(
+        {PLAN_INPUT_LABELS.get(k, k.replace("_", " ")): v for k, v in made.sources.items()},
+        "input", "source"))
+    per = per_unit(unit)
+    out.append("<h3>Variance parameters assumed</h3>" + _dict_table(
+        {VARIANCE_LABELS.get(k, k).format(unit=unit, per=per): fmt(v)
+         for k, v in made.inputs.covariance.variance.items()}, "parameter"))
     out += [_p(n, "note") for n in made.notes]
     out.append('<div class="caution">' + "".join(_p(c) for c in made.plan.cautions) + "</div>")
     return "\n".join(out)

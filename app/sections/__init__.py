@@ -11,6 +11,7 @@ from __future__ import annotations
 
 from . import (courses, data, followup, kept, lagcorr, lines, models, plan, rate, selection,
                semivariogram)
+from . import checks
 
 #: page order
 SECTIONS = (
@@ -24,5 +25,6 @@ SECTIONS = (
     rate,
     followup,
     models,
+    checks,
     plan,
 )

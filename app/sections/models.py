@@ -25,7 +25,8 @@ from analysis.output.report import (ASSOCIATION_NOTE, CAUTIONS, MIXTURE_NOTE, PR
 
 from .. import ids
 from ..components import GRAPH_CONFIG, message, section
-from ..figures import OVERLAY_CAPTION, cohort_look, fitted_variogram_figure, report_figures
+from ..figures import (OVERLAY_CAPTION, cohort_look, empty_figure, fitted_variogram_figure,
+                       report_figures)
 from ..session import AppContext, NeedsInput, attempt
 from ..text import option
 
@@ -103,7 +104,7 @@ def models_section() -> html.Section:
         message(ids.MODELS_MSG),
         html.Div(id=ids.MODELS_SUMMARY),
         html.Div(className="cl-graph", children=dcc.Graph(
-            id=ids.MODELS_GRAPH, config=GRAPH_CONFIG, style={"height": "460px"},
+            id=ids.MODELS_GRAPH, config=GRAPH_CONFIG, style={"height": "520px"},
             figure=placeholder_figure())),
         html.P(OVERLAY_CAPTION, className="cl-hint"),
         html.Div(className="cl-view-controls", children=[
@@ -161,10 +162,8 @@ def fit_for_view(context: AppContext, data, roles, settings, choices: ModelChoic
 
 
 def placeholder_figure(text: str = "Press “Fit models” to draw the fitted semivariograms.") -> dict:
-    return {"data": [], "layout": {
-        "xaxis": {"visible": False}, "yaxis": {"visible": False},
-        "annotations": [{"text": text, "showarrow": False, "font": {"size": 16},
-                         "xref": "paper", "yref": "paper", "x": 0.5, "y": 0.5}]}}
+    """A blank figure with ``text``, in the page's figure style."""
+    return empty_figure(text).to_plotly_json()
 
 
 def datatable(frame: pd.DataFrame, **extra) -> dash_table.DataTable:
@@ -240,7 +239,8 @@ def detail_children(models, chosen: str | None, *, unit: str, x_note: str = "") 
 
 
 def report_text(context: AppContext, data, roles, settings, snapshot: dict | None,
-                chosen: str | None = None, plan_request: dict | None = None) -> tuple[str, str]:
+                chosen: str | None = None, plan_request: dict | None = None,
+                subject: str | None = None) -> tuple[str, str]:
     """(file name, HTML) of the report for the current choices.
 
     Models are included when the last fit (``snapshot``) was made for these
@@ -258,7 +258,7 @@ def report_text(context: AppContext, data, roles, settings, snapshot: dict | Non
             models = wb.models(dataset, r, s, choices)
         else:
             choices = None
-    figures = report_figures(exploration, models)
+    figures = report_figures(exploration, models, chosen=chosen, subject=subject)
     # the file name this session gave its table (the shared store keeps none for uploads)
     name = (data or {}).get("name") or dataset.name
     made = plan_figure = None
@@ -350,11 +350,11 @@ def register(app, context: AppContext) -> None:
     @app.callback(Output(ids.MODELS_DOWNLOAD, "data"), Output(ids.MODELS_EXPORT_MSG, "children"),
                   Input(ids.MODELS_EXPORT, "n_clicks"), *STORES,
                   State(ids.MODELS_SNAPSHOT, "data"), State(ids.MODELS_CHOSEN, "value"),
-                  State("plan-request", "data"),
+                  State("plan-request", "data"), State(ids.STORE_SUBJECT, "data"),
                   prevent_initial_call=True)
-    def export(n, data, roles, settings, snapshot, chosen, plan_request):
+    def export(n, data, roles, settings, snapshot, chosen, plan_request, subject):
         value, msg, _ = attempt(lambda: report_text(context, data, roles, settings, snapshot,
-                                                    chosen, plan_request),
+                                                    chosen, plan_request, subject),
                                 what="writing the report")
         if value is None:
             return no_update, msg

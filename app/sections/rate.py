@@ -15,6 +15,8 @@ from .. import palette as pal
 from ..components import graph, message, section
 from ..figures import (GL_POINTS, CohortLook, _finish, _parenthesis, _plural, _present_strata,
                        _robust_range, _strength, cohort_look, colour_alpha, empty_figure)
+from ..figures import (RATE_LEFT, RATE_TOP, _log_ticks,  # noqa: F401  (Dash-free: the report
+                       slope_vs_covariate_figure)        # draws it too)
 from ..session import AppContext
 from ..text import short
 from ..views import HIGHLIGHT, STORES, finish, render_key, skip_if_same, summary_inputs
@@ -83,12 +85,6 @@ def rate_table_columns(present, cohort) -> list[dict]:
     ]
     have = set(present)
     return [{"name": list(name), "id": col} for col, name in spec if col in have]
-
-
-#: the two rate-of-change plots sit side by side: room above for title + subtitle,
-#: and on the left for a two-line slope axis title
-RATE_TOP = 96
-RATE_LEFT = 96
 
 
 def category_ticks(labels: Sequence[str], *, width: int = 40) -> list[str]:
@@ -164,72 +160,3 @@ def slopes_by_stratum_figure(lines: pd.DataFrame, *, look: CohortLook, highlight
     return fig
 
 
-def slope_vs_covariate_figure(lines: pd.DataFrame, smooth: pd.DataFrame | None, *,
-                              look: CohortLook, highlight_subject=None,
-                              highlight_stratum=None) -> go.Figure:
-    """Per-subject slope against the raw baseline covariate, coloured by group, with a lowess line.
-
-    The x axis is logarithmic when the covariate is analysed on a log scale
-    (and every value is positive).
-    """
-    name = look.covariate or "covariate"
-    cov = pd.to_numeric(lines["covariate"], errors="coerce").to_numpy(float)
-    df = lines[np.isfinite(lines["slope"].to_numpy(float)) & np.isfinite(cov)].assign(
-        covariate=cov[np.isfinite(lines["slope"].to_numpy(float)) & np.isfinite(cov)])
-    if df.empty:
-        return empty_figure(f"{name} has no numeric values here, so slopes cannot be plotted "
-                            "against it; the box plot compares its groups.",
-                            title=f"Subject slope against {name}")
-    log_axis = look.transform.startswith("log") and bool((df["covariate"] > 0).all())
-    fig = go.Figure()
-    kind = go.Scattergl if len(df) > GL_POINTS else go.Scatter   # one kind: order = trace order
-    for lab in _present_strata(look, df["stratum_label"]):
-        g = df[df["stratum_label"].astype(str) == lab]
-        strength = _strength(look, lab, highlight_stratum)
-        fig.add_trace(kind(
-            x=g["covariate"].to_numpy(), y=g["slope"].to_numpy(), mode="markers",
-            name=look.group_title(lab),
-            customdata=np.c_[g["subject"].astype(str).to_numpy(dtype=object),
-                             np.full(len(g), lab, dtype=object)],
-            marker={"color": colour_alpha(look, lab, 0.7 * strength), "size": 7,
-                    "line": {"width": 0.5, "color": "#ffffff"}},
-            hovertemplate=(f"subject %{{customdata[0]}}<br>{name} %{{x:.3g}}"
-                           f"<br>slope %{{y:.3g}} {look.per_time}<extra></extra>")))
-    if smooth is not None and len(smooth):
-        fig.add_trace(kind(
-            x=smooth["covariate"].to_numpy(), y=smooth["slope_smooth"].to_numpy(), mode="lines",
-            name="lowess smooth, all subjects", line={"color": pal.HIGHLIGHT_COLOR, "width": 3.5},
-            hovertemplate=f"{name} %{{x:.3g}}<br>smoothed slope %{{y:.3g}}<extra></extra>"))
-    if highlight_subject is not None:
-        h = df[df["subject"].astype(str) == str(highlight_subject)]
-        if len(h):
-            fig.add_trace(kind(
-                x=h["covariate"].to_numpy(), y=h["slope"].to_numpy(), mode="markers",
-                customdata=[[str(highlight_subject), str(h["stratum_label"].iloc[0])]],
-                name=f"subject {highlight_subject}",
-                marker={"size": 18, "color": pal.HIGHLIGHT_COLOR, "symbol": "diamond-open",
-                        "line": {"width": 3, "color": pal.HIGHLIGHT_COLOR}},
-                hovertemplate="subject %{customdata[0]}<extra></extra>"))
-    yr, outside = _robust_range(df["slope"].to_numpy(float))
-    unit = look.covariate_unit
-    xt = name + _parenthesis(", ".join(p for p in (unit, "log scale" if log_axis else "") if p))
-    _finish(fig, f"Subject slope against {name}",
-            subtitle=(f"axis cut at the 1st–99th percentile; {outside} outside" if yr else
-                      f"{_plural(len(df), 'subject')}; line: lowess smooth"),
-            top=RATE_TOP, bottom=150, left=RATE_LEFT)
-    fig.add_hline(y=0, line={"color": pal.REFERENCE_COLOR, "width": 1.2, "dash": "dot"})
-    fig.update_xaxes(title_text=xt, type="log" if log_axis else "linear",
-                     **(_log_ticks(df["covariate"].to_numpy(float)) if log_axis else {}))
-    fig.update_yaxes(title_text=look.slope_label_wrapped, range=yr)
-    return fig
-
-
-def _log_ticks(values: np.ndarray) -> dict:
-    """1-2-5 tick values covering positive ``values``, written as plain numbers."""
-    v = values[np.isfinite(values) & (values > 0)]
-    if v.size == 0:
-        return {}
-    lo, hi = np.floor(np.log10(v.min())), np.ceil(np.log10(v.max()))
-    ticks = (np.array([1.0, 2.0, 5.0])[None, :] * 10.0 ** np.arange(lo, hi + 1)[:, None]).ravel()
-    ticks = ticks[(ticks >= v.min() / 1.5) & (ticks <= v.max() * 1.5)]
-    return {"tickvals": ticks.tolist(), "ticktext": [f"{t:g}" for t in ticks]}
