@@ -130,6 +130,7 @@ class Setting:
     radio: bool = False
     needed_text: str | None = None   # the panel's message when another choice needs this blank one
     panel_min: float | None = None   # smallest value the page's number box steps to
+    panel_step: float | None = None  # what the page's +/− add (a number box; counts step by 1)
 
 
 def setting(default, kind: str, **declared):
@@ -234,7 +235,7 @@ class Settings:
     lowess_frac: float = setting(
         0.3, "number", lo=0, hi=1, lo_open=True, label="Lowess span",
         help="lowess span for --detrend lowess", stage="residuals", flag="--lowess-frac",
-        group=_RESIDUALS, pair="smooth", panel_min=0.01)
+        group=_RESIDUALS, pair="smooth", panel_min=0.01, panel_step=0.01)
     detrend_within_strata: bool = setting(
         False, "switch", label="Separate curve per group",
         help="fit the detrending curve per stratum", stage="residuals",
@@ -272,20 +273,22 @@ class Settings:
         if (self.time_min is not None and self.time_max is not None
                 and self.time_min >= self.time_max):
             raise SettingsError(
-                f"time window [{self.time_min}, {self.time_max}] is empty: time_min must be < time_max",
-                field="time_min")
+                f"{_label('time_min')} ({_num(self.time_min)}) must be smaller than "
+                f"{_label('time_max')} ({_num(self.time_max)}).", field="time_min")
         most = DECLARED["n_strata"].hi
         if len(self.breaks) > most - 1:
             raise SettingsError(
-                f"breaks: {len(self.breaks)} break points make {len(self.breaks) + 1} groups; "
-                f"at most {most - 1} break points ({most} groups) are allowed", field="breaks")
+                f"{_label('breaks')}: {len(self.breaks)} points make {len(self.breaks) + 1} "
+                f"groups; at most {most - 1} points ({most} groups) are allowed.", field="breaks")
         if self.strata_method == "custom":
             if not self.breaks:
-                raise SettingsError("strata_method == 'custom' needs breaks, e.g. breaks=(1.5, 3.0)",
-                                    field="breaks")
+                raise SettingsError(
+                    f"{_label('strata_method')} is set to your own break points, which needs "
+                    f"{_label('breaks')}, e.g. 10, 20, 40.", field="breaks")
             if any(b <= a for a, b in zip(self.breaks, self.breaks[1:])):
-                raise SettingsError(f"breaks {list(self.breaks)} must be strictly increasing",
-                                    field="breaks")
+                raise SettingsError(
+                    f"{_label('breaks')} ({', '.join(map(_num, self.breaks))}) must be strictly "
+                    "increasing: each larger than the one before.", field="breaks")
 
     # -- serialisation ----------------------------------------------------
     def to_dict(self) -> dict[str, Any]:
@@ -367,35 +370,35 @@ def check_value(name: str, value, decl: Setting | None = None) -> None:
         if value is None and decl.optional:
             return
         if value is None:
-            raise SettingsError(f"{name} == None, must be a number in {_interval(decl)}",
-                                field=name)
+            raise SettingsError(f"{_label(name)} needs a number {_interval(decl)}.", field=name)
         _number_or_none(name, value)
         lo_ok = decl.lo is None or (value > decl.lo if decl.lo_open else value >= decl.lo)
         if not lo_ok or decl.hi is not None and not value <= decl.hi:
-            word = _interval(decl)
-            raise SettingsError(f"{name} == {value}, must be "
-                                f"{word if word[0] in '<>' else 'in ' + word}", field=name)
+            raise SettingsError(f"{_label(name)} must be {_interval(decl)}; "
+                                f"{_num(value)} is outside.", field=name)
     elif kind == "switch":
         if not isinstance(value, bool):
-            raise SettingsError(f"{name} == {_short(value)}, must be true or false", field=name)
+            raise SettingsError(f"{_label(name)} must be on or off (true or false), not "
+                                f"{_short(value)}.", field=name)
     elif kind == "column":
         if value is not None and not isinstance(value, str):
-            raise SettingsError(f"{name} == {_short(value)}, must be a column name or empty",
-                                field=name)
+            raise SettingsError(f"{_label(name)} must name a column or be left empty, not "
+                                f"{_short(value)}.", field=name)
     elif kind == "date":
         if value is not None:
             _date_text(name, value)
     elif kind == "center":
         if isinstance(value, str) and value not in decl.choices:
-            raise SettingsError(f"{name} == {_short(value)}, must be one of "
-                                f"{list(decl.choices)} or a number", field=name)
+            raise SettingsError(f"{_label(name)} must be {', '.join(decl.choices)} or a number, "
+                                f"not {_short(value)}.", field=name)
         if not isinstance(value, (str, float)) or (
                 isinstance(value, float) and not np.isfinite(value)):
-            raise SettingsError(f"{name} == {_short(value)}, must be one of "
-                                f"{list(decl.choices)} or a finite number", field=name)
+            raise SettingsError(f"{_label(name)} must be {', '.join(decl.choices)} or a finite "
+                                f"number, not {_short(value)}.", field=name)
     elif kind == "breaks":
         if not all(np.isfinite(value)):
-            raise SettingsError(f"{name} {list(value)} must be finite numbers", field=name)
+            raise SettingsError(f"{_label(name)} must be finite numbers, not "
+                                f"{', '.join(map(_num, value))}.", field=name)
 
 
 def check_choice(value, choices: tuple) -> None:
@@ -406,9 +409,46 @@ def check_choice(value, choices: tuple) -> None:
 
 
 def _interval(decl: Setting) -> str:
+    """The allowed values of a number or count in words ("from 1 to 1000", "greater than 0")."""
+    whole = "a whole number " if decl.kind == "count" else ""
+    if decl.lo is None and decl.hi is None:
+        return "(any number)"
     if decl.hi is None:
-        return f"{'>' if decl.lo_open else '>='} {decl.lo:g}"
-    return f"{'(' if decl.lo_open else '['}{decl.lo:g}, {decl.hi:g}]"
+        return f"{whole}{'greater than' if decl.lo_open else 'at least'} {_num(decl.lo)}"
+    if decl.lo_open:
+        return f"{whole}greater than {_num(decl.lo)} and at most {_num(decl.hi)}"
+    return f"{whole}from {_num(decl.lo)} to {_num(decl.hi)}"
+
+
+def allowed_text(name: str) -> str:
+    """What setting ``name`` accepts, in words, for messages beside its control
+    (e.g. "a whole number from 1 to 1000")."""
+    decl = DECLARED[name]
+    if decl.kind in ("count", "number"):
+        text = _interval(decl)
+        return text if decl.kind == "count" else f"a number {text}".replace(" (any number)", "")
+    if decl.kind in ("choice", "center"):
+        return _words(decl.choices)
+    return decl.help
+
+
+def _label(name: str) -> str:
+    """A setting's label as the settings panel shows it (its name for anything undeclared)."""
+    decl = DECLARED.get(name) if "DECLARED" in globals() else None
+    return decl.label if decl is not None else name
+
+
+def _num(v) -> str:
+    """A number in a message: plain, no trailing zeros, true minus (analysis.numbers)."""
+    from .numbers import format_number
+
+    return format_number(v, 6)
+
+
+def _words(choices) -> str:
+    """'a, b or c'."""
+    items = [str(c) for c in choices]
+    return items[0] if len(items) == 1 else ", ".join(items[:-1]) + " or " + items[-1]
 
 
 def json_key(value, length: int | None = None) -> str:
@@ -430,31 +470,33 @@ def _choice(name: str, value, allowed) -> None:
     except TypeError:                     # unhashable or otherwise incomparable
         ok = False
     if not ok:
-        raise SettingsError(f"{name} == {_short(value)}, must be one of {list(allowed)}",
-                            field=name)
+        raise SettingsError(f"{_label(name)} cannot be {_short(value)}; choose "
+                            f"{_words(allowed)}.", field=name)
 
 
 def _date_text(name: str, value) -> None:
     try:
         date.fromisoformat(value)
     except (TypeError, ValueError):
-        raise SettingsError(f"{name} == {_short(value)}, must be a date written YYYY-MM-DD, "
-                            "e.g. 2024-06-30", field=name) from None
+        raise SettingsError(f"{_label(name)} must be a date written YYYY-MM-DD, e.g. "
+                            f"2024-06-30, not {_short(value)}.", field=name) from None
 
 
 def _int_between(name: str, value, lo: int, hi: int) -> None:
     if isinstance(value, bool) or not isinstance(value, int):
-        raise SettingsError(f"{name} == {_short(value)}, must be a whole number from {lo} to {hi}",
-                            field=name)
+        raise SettingsError(f"{_label(name)} must be a whole number from {lo} to {hi}, not "
+                            f"{_short(value)}.", field=name)
     if not lo <= value <= hi:
-        raise SettingsError(f"{name} == {value}, must be from {lo} to {hi}", field=name)
+        raise SettingsError(f"{_label(name)} must be a whole number from {lo} to {hi}; "
+                            f"{value} is too {'small' if value < lo else 'large'}.", field=name)
 
 
 def _number_or_none(name: str, value) -> None:
     if value is None:
         return
     if isinstance(value, bool) or not isinstance(value, (int, float)) or not np.isfinite(value):
-        raise SettingsError(f"{name} == {_short(value)}, must be a finite number", field=name)
+        raise SettingsError(f"{_label(name)} must be a finite number, not {_short(value)}.",
+                            field=name)
 
 
 def _breaks(value) -> tuple[float, ...]:
@@ -462,12 +504,12 @@ def _breaks(value) -> tuple[float, ...]:
     if value is None:
         return ()
     if isinstance(value, (str, bytes, dict)) or not hasattr(value, "__iter__"):
-        raise SettingsError(f"breaks == {_short(value)}, must be a list of numbers, "
-                            "e.g. [10, 20, 40]", field="breaks")
+        raise SettingsError(f"{_label('breaks')} must be a list of numbers, e.g. [10, 20, 40], "
+                            f"not {_short(value)}.", field="breaks")
     out = []
     for b in value:
         if isinstance(b, bool) or not isinstance(b, (int, float)):
-            raise SettingsError(f"breaks holds {_short(b)}, must be a list of numbers, "
-                                "e.g. [10, 20, 40]", field="breaks")
+            raise SettingsError(f"{_label('breaks')} must be a list of numbers, e.g. "
+                                f"[10, 20, 40]; {_short(b)} is not a number.", field="breaks")
         out.append(float(b))
     return tuple(out)

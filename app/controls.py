@@ -6,8 +6,10 @@ and back again when a link restores a view.
 """
 from __future__ import annotations
 
+import math
+
 from analysis.errors import CohortError
-from analysis.settings import DECLARED, Roles, Settings
+from analysis.settings import DECLARED, Roles, Settings, allowed_text
 
 from . import ids
 from .text import short
@@ -83,17 +85,22 @@ def _field_value(f: str, v, values: dict, fallback: Settings):
     if kind == "switch":
         return bool(v) and ON in v
     if kind in ("count", "number"):
+        needs = f"{FIELD_LABELS[f]} must be {allowed_text(f)}."
         if v is None or v == "":
+            # the browser sends an empty box, and a typed value outside the box's range, as
+            # blank: say what is allowed
             if f in REQUIRED_NUMBERS:
-                raise ValueError("enter a number")
+                raise ValueError(needs)
             return None
         try:
             num = float(v)
         except (TypeError, ValueError):
-            raise ValueError(f"expected a number, got {v!r}") from None
+            raise ValueError(needs) from None
+        if not math.isfinite(num):
+            raise ValueError(needs)
         if kind == "count":
             if not num.is_integer():
-                raise ValueError(f"expected a whole number, got {v}")
+                raise ValueError(needs)
             return int(num)
         return num
     if kind == "breaks":
@@ -108,14 +115,15 @@ def _field_value(f: str, v, values: dict, fallback: Settings):
             try:
                 out.append(float(part))
             except ValueError:
-                raise ValueError(f"'{part}' is not a number; write break points like 10, 20, 40"
+                raise ValueError(f"Break points: '{part}' is not a number; write them like "
+                                 "10, 20, 40."
                                  ) from None
         return tuple(out)
     if kind == "center":
         if v == "value":
             cv = values.get("center_value")
             if cv is None or cv == "":
-                raise ValueError("enter the value to centre at")
+                raise ValueError("Centre at needs the value to centre at, a number.")
             return float(cv)
         return v or "none"
     if kind == "column":
@@ -126,11 +134,10 @@ def _field_value(f: str, v, values: dict, fallback: Settings):
 
 
 def plain_message(message: str) -> str:
-    """Settings messages name fields as in code; say them as the panel does."""
+    """A settings message as the panel shows it: the declarations already word their messages
+    with the panel's labels (analysis.settings); an older "name ==" form still reads as one."""
     for f in ids.SETTING_FIELDS:
-        message = message.replace(f"{f} ==", f"{FIELD_LABELS[f].lower()} is")
-    for f in ids.SETTING_FIELDS:
-        message = message.replace(f, f"'{FIELD_LABELS[f].lower()}'")
+        message = message.replace(f"{f} ==", f"{FIELD_LABELS[f]} is")
     return message
 
 

@@ -17,7 +17,7 @@ from dash import Input, Output, State, ctx, no_update
 
 from analysis.errors import CohortError
 from analysis.preparation.loading import describe_columns, read_table
-from analysis.settings import DECLARED
+from analysis.settings import DECLARED, Settings
 
 from . import controls as ctl
 from . import ids, urlstate
@@ -69,15 +69,16 @@ def register(app, context: AppContext) -> None:
         filename=State(ids.DATA_UPLOAD, "filename"),
         data=State(ids.STORE_DATA, "data"),
         subject=State(ids.STORE_SUBJECT, "data"),
+        good=State(ids.STORE_SETTINGS, "data"),
     )
 
     @app.callback(output=outputs, inputs=inputs, state=state)
     def hub(search, upload, demo, reset, roles, settings, view, stratum, clicks, stratum_click,
-            clear, filename, data, subject):
+            clear, filename, data, subject, good):
         out = _unchanged(outputs)
         trig = ctx.triggered_id
         now = dict(data=data, roles=roles, settings=settings, view=view, stratum=stratum,
-                   subject=subject)
+                   subject=subject, good=good)
         if (trig == ids.PAGE_URL and data is not None
                 and _same_query(search, _encode(context, now))):
             # Location echoes every query this callback writes back as a new input:
@@ -106,7 +107,8 @@ def register(app, context: AppContext) -> None:
             out["covariate_options"] = {f: opts for f in _COLUMN_SETTINGS}
         elif trig in _CLICK_GRAPHS:
             picked = clicked_subject(clicks.get(trig))
-            if picked is None or not _analysed_subject(context, data, roles, settings, picked):
+            if picked is None or not _analysed_subject(context, data, roles, settings, picked,
+                                                       good):
                 return out   # a click on a mean curve, a smooth or a band names no subject
             now["subject"] = out["subject"] = picked
         elif trig == ids.RATE_STRATA_GRAPH:
@@ -213,9 +215,21 @@ def _fit_covariate_choices(roles: dict, settings: dict, out: dict, now: dict) ->
     now["settings"] = changed
 
 
+def _settings_in_force(context: AppContext, values: dict, good):
+    """The settings the controls show, or while one of them holds a bad value, the last good
+    ones (the settings store), so that a group, a subject and the address still follow."""
+    settings, _ = ctl.settings_from_controls(dict(values or {}),
+                                             fallback=context.default_settings)
+    if settings is None and isinstance(good, dict):
+        try:
+            settings = Settings.from_dict(good)
+        except CohortError:
+            settings = None
+    return settings
+
+
 def _encode(context: AppContext, now: dict):
-    values = dict(now["settings"])
-    settings, problems = ctl.settings_from_controls(values, fallback=context.default_settings)
+    settings = _settings_in_force(context, now["settings"], now.get("good"))
     if settings is None:
         return no_update
     roles, _ = ctl.roles_from_controls(now["roles"], known=context.default_roles)
@@ -229,11 +243,11 @@ def _encode(context: AppContext, now: dict):
 
 
 # ------------------------------------------------------------------ small pure helpers
-def _analysed_subject(context: AppContext, data, roles: dict, settings: dict, picked: str
-                      ) -> bool:
+def _analysed_subject(context: AppContext, data, roles: dict, settings: dict, picked: str,
+                      good=None) -> bool:
     """Whether ``picked`` is a subject of the analysed cohort (from the cached selection)."""
     r, _ = ctl.roles_from_controls(roles, known=context.default_roles)
-    s, _ = ctl.settings_from_controls(dict(settings), fallback=context.default_settings)
+    s = _settings_in_force(context, settings, good)
     dataset = context.datasets.get((data or {}).get("key"))
     if r is None or s is None or dataset is None:
         return False

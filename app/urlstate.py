@@ -17,6 +17,7 @@ from analysis.settings import DECLARED, Roles, Settings
 VIEW_DEFAULTS: dict = {"draw": 40, "seed": 1, "order": "slope"}
 LINE_ORDERS: tuple[str, ...] = ("slope", "intercept", "covariate", "subject")
 MAX_DRAW = 500
+MAX_SEED = 10**9
 
 _ROLE_PARAMS = {"subject": "col-subject", "time": "col-time", "response": "col-response",
                 "event_date": "col-event", "covariates": "col-cov", "followup_end": "col-fu-end"}

@@ -154,7 +154,7 @@ def test_cli_report_writes_a_file(tmp_path, demo_slice, capsys):
 @pytest.mark.parametrize("extra, pattern", [
     (["--models", "bogus"], "structures ['bogus'] not known"),
     (["--confounders", "urine_protein_ratio"], "is the primary covariate"),
-    (["--min-visits", "0"], "min_visits == 0, must be from 1 to 1000"),
+    (["--min-visits", "0"], "Fewest visits per subject must be a whole number from 1 to 1000; 0 is too small"),
 ])
 def test_cli_report_bad_input_exits_2(tmp_path, demo_slice, capsys, extra, pattern):
     csv = tmp_path / "slice.csv"

@@ -18,7 +18,7 @@ from ..components import graph, message, number, section
 from ..figures import (GL_POINTS, PANEL_TITLE_SIZE, CohortLook, _finish, _present_strata,
                        _segments, _strength, cohort_look)
 from ..session import AppContext
-from ..urlstate import VIEW_DEFAULTS
+from ..urlstate import MAX_DRAW, MAX_SEED, VIEW_DEFAULTS
 from ..views import HIGHLIGHT, STORES, finish, render_key, skip_if_same, stage_call
 
 ANCHOR = "section-course"
@@ -31,9 +31,11 @@ def layout(settings=None, max_upload_bytes=None):
                    "in each, with the group's smoothed mean.",
                    html.Div(className="cl-view-controls", children=[
                        html.Label("Subjects drawn per group", className="cl-label"),
-                       number(ids.COURSE_DRAW, VIEW_DEFAULTS["draw"], step=1, min_=1),
+                       number(ids.COURSE_DRAW, VIEW_DEFAULTS["draw"], step=1, min_=1,
+                              max_=MAX_DRAW),
                        html.Label("Sample number", className="cl-label"),
-                       number(ids.COURSE_SEED, VIEW_DEFAULTS["seed"], step=1, min_=1),
+                       number(ids.COURSE_SEED, VIEW_DEFAULTS["seed"], step=1, min_=1,
+                              max_=MAX_SEED),
                        html.Span(id=ids.COURSE_NOTE, className="cl-note"),
                    ]),
                    message(ids.COURSE_MSG),
