@@ -44,6 +44,10 @@ def build_parser() -> argparse.ArgumentParser:
     serve.add_argument("--host", default="127.0.0.1", help="address to bind [127.0.0.1]")
     serve.add_argument("--port", type=int, default=8050, help="port [8050]")
     serve.add_argument("--debug", action="store_true", help="Dash debug mode (development only)")
+    serve.add_argument("--verbose", action="store_true",
+                       help="log every request the page makes [quiet]")
+    serve.add_argument("--open", dest="open_browser", action="store_true",
+                       help="open the dashboard in the default web browser [off]")
     serve.add_argument("--cache-mb", type=float, default=None, metavar="MB",
                        help="memory budget of uploaded tables plus cached results, half each; "
                             "least recently used dropped first [1024]")
@@ -435,7 +439,8 @@ def cmd_serve(args) -> int:
         raise CohortError(f"--cache-mb {cache_mb:g}: must be from 16 to 1000000 (MB)")
     data, roles, settings = resolve(args)
     run_server(data_path=data, roles=roles, settings=settings, host=args.host, port=args.port,
-               debug=args.debug, cache_mb=cache_mb)
+               debug=args.debug, cache_mb=cache_mb, verbose=args.verbose,
+               open_browser=args.open_browser)
     return 0
 
 
