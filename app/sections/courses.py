@@ -28,7 +28,8 @@ NAV = "Courses over time"
 def layout(settings=None, max_upload_bytes=None):
     return section(ANCHOR, "Courses over time, by group",
                    "One panel per group; a reproducible random sample of subjects is drawn "
-                   "in each, with the group's smoothed mean.",
+                   "in each, with the group's binned mean (the mean of every subject's visits in each "
+                   "time bin).",
                    html.Div(className="cl-view-controls", children=[
                        html.Label("Subjects drawn per group", className="cl-label"),
                        number(ids.COURSE_DRAW, VIEW_DEFAULTS["draw"], step=1, min_=1,
