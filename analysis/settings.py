@@ -131,6 +131,8 @@ class Setting:
     needed_text: str | None = None   # the panel's message when another choice needs this blank one
     panel_min: float | None = None   # smallest value the page's number box steps to
     panel_step: float | None = None  # what the page's +/− add (a number box; counts step by 1)
+    per_dataset: bool = False        # describes one table (its times, columns, values): a newly
+    #                                  loaded table starts from the default again
 
 
 def setting(default, kind: str, **declared):
@@ -151,7 +153,7 @@ class Settings:
 
     origin: str = setting(
         "as-is", "choice", choices=opt.ORIGINS, label="Time origin", help="time origin",
-        stage="cohort", flag="--origin", group=_TIME, choice_labels={
+        stage="cohort", flag="--origin", group=_TIME, per_dataset=True, choice_labels={
             "as-is": "Time column as given (already time since origin)",
             "event-date": "Since each subject's event date",
             "first-visit": "Since each subject's first visit"})
@@ -161,11 +163,11 @@ class Settings:
     time_min: float | None = setting(
         None, "number", optional=True, label="Window from", default_text="none",
         help="drop visits before this time since origin", stage="cohort", flag="--time-min",
-        group=_TIME, pair="window", placeholder="start")
+        group=_TIME, pair="window", placeholder="start", per_dataset=True)
     time_max: float | None = setting(
         None, "number", optional=True, label="Window to", default_text="none",
         help="drop visits after this time since origin", stage="cohort", flag="--time-max",
-        group=_TIME, pair="window", placeholder="end")
+        group=_TIME, pair="window", placeholder="end", per_dataset=True)
     min_visits: int = setting(
         3, "count", lo=1, hi=1000, label="Fewest visits per subject",
         help="minimum visits per subject", stage="cohort", flag="--min-visits",
@@ -180,7 +182,7 @@ class Settings:
         None, "column", label="Baseline covariate", default_text="first covariate",
         help="which baseline covariate is transformed and enters the interaction",
         stage="cohort", flag="--covariate-primary", group="Baseline covariate",
-        placeholder="first covariate")
+        placeholder="first covariate", per_dataset=True)
     duplicates: str = setting(
         "reject", "choice", choices=opt.DUPLICATE_POLICIES, label="Two visits at the same time",
         help="repeated (subject, time) rows: reject or average", stage="cohort",
@@ -196,22 +198,23 @@ class Settings:
     transform: str = setting(
         "none", "choice", choices=opt.TRANSFORMS, label="Transform",
         help="covariate transform", stage="strata", flag="--transform",
-        group="Baseline covariate", choice_labels={
+        group="Baseline covariate", per_dataset=True, choice_labels={
             "none": "none", "log": "natural log", "log2": "log base 2", "log10": "log base 10"})
     center: str | float = setting(
         "none", "center", choices=opt.CENTER_WORDS, label="Centre at",
         help="covariate centring: none, mean, median or a number", stage="strata",
         flag="--center", group="Baseline covariate", hint="On the transformed scale.",
+        per_dataset=True,
         choice_labels={"none": "no centring", "mean": "cohort mean", "median": "cohort median",
                        "value": "a value I give"})
     stratify_by: str | None = setting(
         None, "column", label="Group subjects by", default_text="primary covariate",
         help="covariate to cut into strata", stage="strata", flag="--stratify-by",
-        group=_GROUPS, placeholder="the baseline covariate")
+        group=_GROUPS, placeholder="the baseline covariate", per_dataset=True)
     strata_method: str = setting(
         "quantile", "choice", choices=opt.STRATA_METHODS, label="How to cut groups",
         help="how to cut strata", stage="strata", flag="--strata-method", group=_GROUPS,
-        radio=True, choice_labels={"quantile": "equal counts (quantiles)",
+        radio=True, per_dataset=True, choice_labels={"quantile": "equal counts (quantiles)",
                                    "equal-width": "equal widths", "custom": "my own break points"})
     n_strata: int = setting(
         4, "count", lo=1, hi=50, label="Number of groups", help="number of strata",
@@ -219,7 +222,7 @@ class Settings:
     breaks: tuple[float, ...] = setting(
         (), "breaks", label="Break points", help="custom inner break points, e.g. 10,20,40",
         default_text="none", stage="strata", flag="--breaks", group=_GROUPS,
-        flag_sets={"strata_method": "custom"},
+        flag_sets={"strata_method": "custom"}, per_dataset=True,
         needed_text="Enter the inner break points for your own groups, e.g. 10, 20, 40.",
         placeholder="e.g. 10, 20, 40", hint="Inner cut points in the covariate's own units.")
     detrend: str = setting(
@@ -247,16 +250,17 @@ class Settings:
     variogram_max_lag: float | None = setting(
         None, "number", lo=0, lo_open=True, optional=True, label="Largest time apart",
         default_text="all lags", help="largest lag binned", stage="variogram",
-        flag="--variogram-max-lag", group=_VIEWS, pair="variogram", placeholder="all")
+        flag="--variogram-max-lag", group=_VIEWS, pair="variogram", placeholder="all",
+        per_dataset=True)
     lag_width: float | None = setting(
         None, "number", lo=0, lo_open=True, optional=True, label="Lag window width",
         default_text="automatic", help="window width for lag correlations", stage="lagcorr",
-        flag="--lag-width", group=_VIEWS, placeholder="auto",
+        flag="--lag-width", group=_VIEWS, placeholder="auto", per_dataset=True,
         hint="Width of each time-apart window, in time units.")
     data_cut: str | None = setting(
         None, "date", label="Data cut (date)", default_text="latest visit date",
         help="date the data end, YYYY-MM-DD, for the dropout view", stage="summaries",
-        flag="--data-cut", group=_TIME, placeholder="latest visit date",
+        flag="--data-cut", group=_TIME, placeholder="latest visit date", per_dataset=True,
         hint="YYYY-MM-DD: when the data end, for loss to follow-up.")
 
     def __post_init__(self):
@@ -327,6 +331,10 @@ class Settings:
 
 #: each setting's declaration, in field order
 DECLARED: dict[str, Setting] = {f.name: f.metadata["setting"] for f in fields(Settings)}
+
+#: settings that describe one table (its time span, columns, covariate values); a newly
+#: loaded table starts them from their defaults
+PER_DATASET: tuple[str, ...] = tuple(n for n, d in DECLARED.items() if d.per_dataset)
 
 #: Upper limits of the count settings, checked before anything is allocated (a shared link or
 #: a flag can otherwise ask for millions of bins or groups). Generous for real use: more than

@@ -9,7 +9,7 @@ from __future__ import annotations
 import math
 
 from analysis.errors import CohortError
-from analysis.settings import DECLARED, Roles, Settings, allowed_text
+from analysis.settings import PER_DATASET, DECLARED, Roles, Settings, allowed_text
 
 from . import ids
 from .text import short
@@ -131,6 +131,51 @@ def _field_value(f: str, v, values: dict, fallback: Settings):
     if kind == "date":
         return (v or "").strip() or None
     return v if v is not None else getattr(fallback, f)
+
+
+def reset_per_dataset(values: dict, target: Settings) -> tuple[dict, list[str]]:
+    """Control values with every setting that describes one table (declared ``per_dataset``)
+    put back to ``target``'s, and a note per setting that changed ("Window to: 60 → none").
+
+    ``values`` are the panel's control values (:func:`control_values`, plus ``center_value``);
+    returns only the changed controls and the notes.
+    """
+    fresh = control_values(target)
+    changed, notes = {}, []
+    for name in PER_DATASET:
+        keys = (name, "center_value") if DECLARED[name].kind == "center" else (name,)
+        if all(_same_value(values.get(k), fresh[k]) for k in keys):
+            continue
+        for k in keys:
+            changed[k] = fresh[k]
+        notes.append(f"{FIELD_LABELS[name]}: {_shown(name, values, keys)} → "
+                     f"{_shown(name, fresh, keys)}")
+    return changed, notes
+
+
+def _same_value(a, b) -> bool:
+    blank = (None, "", [])
+    if a in blank and b in blank:
+        return True
+    try:
+        return float(a) == float(b)
+    except (TypeError, ValueError):
+        return a == b
+
+
+def _shown(name: str, values: dict, keys) -> str:
+    """A control's value in the panel's words (a choice's label, a number, "none")."""
+    v = values.get(name)
+    if DECLARED[name].kind == "center" and v == "value":
+        v = values.get("center_value")
+    if v in (None, "", []):
+        return "none"
+    labels = choice_labels(name) if DECLARED[name].choices else {}
+    if isinstance(v, str) and v in labels:
+        return labels[v]
+    if isinstance(v, (int, float)) and not isinstance(v, bool):
+        return _num(v)
+    return str(v)
 
 
 def plain_message(message: str) -> str:

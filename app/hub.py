@@ -97,6 +97,8 @@ def register(app, context: AppContext) -> None:
             _show_dataset(context, context.default_key, context.default_roles, out)
             now.update(data=out["data"], roles=out["roles"], subject=None, stratum=None)
             out["subject"], out["stratum"] = None, None
+            # the start-up table comes back with its own start-up choices
+            _reset_for_new_data(settings, context.default_settings, out, now)
         elif trig == ids.SETTINGS_RESET:
             values = ctl.control_values(context.default_settings)
             out["settings"] = {k: values[k] for k in _SETTING_KEYS}
@@ -175,7 +177,30 @@ def _from_upload(context: AppContext, contents, filename, now: dict, out: dict) 
     out["upload_msg"] = clip_message(renamed_note(renamed))
     out["subject"], out["stratum"] = None, None
     now.update(data=out["data"], roles=out["roles"], subject=None, stratum=None)
+    # choices that described the previous table (its window, transform, centring, groups ...)
+    # start again from the neutral defaults, and the page says which
+    _reset_for_new_data(now["settings"], Settings(), out, now)
     return True
+
+
+def _reset_for_new_data(values: dict, target: Settings, out: dict, now: dict) -> None:
+    changed, notes = ctl.reset_per_dataset(values or {}, target)
+    if not changed:
+        return
+    for k, v in changed.items():
+        out["settings"][k] = v
+    now["settings"] = {**(values or {}), **changed}
+    out["alert"] = reset_note(notes)
+
+
+def reset_note(notes: list[str]):
+    """The visible note of what a new table put back to its default."""
+    from dash import html
+
+    return html.Div(className="cl-reset-note", children=[
+        html.Strong("New data: these choices described the previous table and are back at "
+                    "their defaults — "),
+        html.Span("; ".join(notes) + ".")])
 
 
 def _show_dataset(context: AppContext, key: str, roles, out: dict, name: str | None = None
