@@ -32,6 +32,9 @@ class Roles:
     covariates (numeric or categorical), the first being the primary one unless
     ``Settings.covariate`` names another. ``response_unit`` and ``covariate_unit``
     (optional, e.g. "mL/min/1.73m²", "mg/mmol") only label axes and effect statements.
+    ``labels`` (optional) gives a role column a display label ("egfr" → "eGFR"), used in every
+    title, axis, table and statement instead of the column name (:meth:`label`); given as a
+    mapping or (column, label) pairs, kept as sorted pairs so Roles stay hashable.
     """
 
     subject: str
@@ -42,13 +45,25 @@ class Roles:
     response_unit: str = ""
     covariate_unit: str = ""
     followup_end: str | None = None
+    labels: tuple[tuple[str, str], ...] = ()
 
     def __post_init__(self):
         object.__setattr__(self, "covariates", tuple(self.covariates))
+        object.__setattr__(self, "labels", _label_pairs(self.labels))
+
+    def label(self, column: str | None) -> str | None:
+        """The display label of ``column`` (the column name unless a label was given)."""
+        if column is None:
+            return None
+        return dict(self.labels).get(column, column)
 
     def to_dict(self) -> dict[str, Any]:
         d = asdict(self)
         d["covariates"] = list(self.covariates)
+        if self.labels:
+            d["labels"] = dict(self.labels)
+        else:                    # no labels: the JSON stays as it was before labels existed
+            d.pop("labels")
         return d
 
     @classmethod
@@ -82,7 +97,7 @@ class Roles:
             if name in d and not isinstance(d[name], str):
                 raise SettingsError(f"role {name} == {_short(d[name])}, must be text",
                                     field="roles")
-        return cls(**{**d, "covariates": tuple(covs)})
+        return cls(**{**d, "covariates": tuple(covs), "labels": d.get("labels") or ()})
 
     def columns(self) -> tuple[str, ...]:
         cols = [self.subject, self.time, self.response, *self.covariates]
@@ -91,6 +106,32 @@ class Roles:
         if self.followup_end:
             cols.append(self.followup_end)
         return tuple(dict.fromkeys(cols))
+
+
+#: longest display label kept (a label is a short name, not a description)
+LABEL_LIMIT = 60
+
+
+def _label_pairs(labels) -> tuple[tuple[str, str], ...]:
+    """Display labels as sorted (column, label) pairs; blank labels and labels equal to their
+    column are dropped. A mapping or pairs of text, else a message."""
+    if not labels:
+        return ()
+    items = labels.items() if isinstance(labels, dict) else labels
+    try:
+        pairs = [(c, t) for c, t in items]
+    except (TypeError, ValueError):
+        raise SettingsError(f"Display labels must be column: label pairs, not {_short(labels)}.",
+                            field="roles") from None
+    out = {}
+    for column, text in pairs:
+        if not isinstance(column, str) or not isinstance(text, str):
+            raise SettingsError(f"Display label {_short(text)} of column {_short(column)} must "
+                                "be text.", field="roles")
+        text = " ".join(text.split())[:LABEL_LIMIT]
+        if text and text != column:
+            out[column] = text
+    return tuple(sorted(out.items()))
 
 
 @dataclass(frozen=True)

@@ -156,6 +156,9 @@ def _add_roles(p: argparse.ArgumentParser, *, required: bool) -> None:
                                           "leaving early from the end of the data")
     g.add_argument("--response-unit", help="unit of the response, for labels (e.g. 'mg/dL')")
     g.add_argument("--covariate-unit", help="unit of the primary covariate, for labels")
+    g.add_argument("--label", action="append", default=None, metavar="COL=TEXT",
+                   help="display label of a column, used in titles, axes, tables and "
+                        "statements instead of its name (repeat for more columns)")
 
 
 def _add_settings(p: argparse.ArgumentParser) -> None:
@@ -223,6 +226,8 @@ def resolve(args: argparse.Namespace) -> tuple[object, Roles | None, Settings]:
         if covariates:
             merged["covariates"] = covariates
         merged.update({k: v for k, v in units.items() if v})
+        if getattr(args, "label", None):
+            merged["labels"] = {**(merged.get("labels") or {}), **_parse_labels(args.label)}
         missing = [k for k in ("subject", "time", "response") if not merged.get(k)]
         if missing:
             if args.command == "serve":
@@ -295,6 +300,18 @@ def _parse_breaks(text: str) -> tuple[float, ...]:
     except ValueError:
         raise SettingsError(f"--breaks {text!r}: expected numbers separated by commas, "
                             "e.g. 10,20,40", field="breaks") from None
+
+
+def _parse_labels(items: list[str]) -> dict[str, str]:
+    """``--label COL=TEXT`` flags as {column: label}."""
+    out = {}
+    for item in items:
+        column, sep, text = item.partition("=")
+        if not sep or not column.strip():
+            raise SettingsError(f"--label {item!r}: write the column, '=' and its display "
+                                "label, e.g. --label egfr=eGFR", field="roles")
+        out[column.strip()] = text.strip()
+    return out
 
 
 def _parse_center(text: str):

@@ -89,7 +89,7 @@ def setting_field(name: str, v: dict) -> html.Div:
                                clearable=kind == "column", searchable=False,
                                placeholder=decl.placeholder)
         if kind == "center":
-            control = html.Div(className="cl-pair", children=[
+            control = html.Div(className="cl-pair cl-pair-center", children=[
                 control, number(ids.SETTING_CENTER_VALUE, v["center_value"], placeholder="value")])
     elif kind in ("count", "number"):
         control = number(id_, v[name], step=panel_step(decl),

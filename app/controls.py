@@ -224,9 +224,47 @@ def roles_from_controls(values: dict, *, known: Roles | None = None
             units["response_unit"] = known.response_unit
         if covs and known.covariates and known.covariates[0] == covs[0]:
             units["covariate_unit"] = known.covariate_unit
-    return Roles(subject=values["subject"], time=values["time"], response=values["response"],
-                 covariates=covs, event_date=values.get("event_date") or None,
-                 followup_end=values.get("followup_end") or None, **units), {}
+    roles = Roles(subject=values["subject"], time=values["time"], response=values["response"],
+                  covariates=covs, event_date=values.get("event_date") or None,
+                  followup_end=values.get("followup_end") or None, **units)
+    return roles.__class__(**{**roles.__dict__,
+                              "labels": _labels(roles, values.get("labels"), known)}), {}
+
+
+def _label_column(roles: Roles, role: str) -> str | None:
+    """The column a role's label field names (the primary covariate for the covariates)."""
+    if role == "covariates":
+        return roles.covariates[0] if roles.covariates else None
+    return getattr(roles, role)
+
+
+def _labels(roles: Roles, typed: dict | None, known: Roles | None) -> dict:
+    """Display labels: the start-up roles' labels of the chosen columns, then what the label
+    fields say (a field left blank means the column name)."""
+    used = set(roles.columns())
+    out = {c: t for c, t in (known.labels if known is not None else ()) if c in used}
+    if typed is None:
+        return out
+    for role in ids.LABEL_ROLES:
+        column = _label_column(roles, role)
+        if column is None:
+            continue
+        text = (typed.get(role) or "").strip()
+        if text:
+            out[column] = text
+        else:
+            out.pop(column, None)
+    return out
+
+
+def label_values(roles: Roles | None) -> dict:
+    """The value of each role's label field that shows ``roles`` (blank: the column name)."""
+    out = {}
+    for role in ids.LABEL_ROLES:
+        column = None if roles is None else _label_column(roles, role)
+        label = None if column is None else roles.label(column)
+        out[role] = "" if label in (None, column) else label
+    return out
 
 
 def keep_roles_that_fit(roles: Roles | None, columns) -> Roles | None:

@@ -45,6 +45,7 @@ def register(app, context: AppContext) -> None:
         preview_cols=Output(ids.DATA_PREVIEW, "columns"),
         role_options={r: Output(ids.ROLE_INPUT[r], "options") for r in ids.ROLE_FIELDS},
         roles={r: Output(ids.ROLE_INPUT[r], "value") for r in ids.ROLE_FIELDS},
+        labels={r: Output(ids.ROLE_LABEL[r], "value") for r in ids.LABEL_ROLES},
         settings={k: Output(_SETTING_IDS[k], "value") for k in _SETTING_KEYS},
         view={k: Output(i, "value") for k, i in _VIEW_IDS.items()},
         covariate_options={f: Output(ids.SETTING_INPUT[f], "options")
@@ -58,6 +59,7 @@ def register(app, context: AppContext) -> None:
         demo=Input(ids.DATA_USE_DEMO, "n_clicks"),
         reset=Input(ids.SETTINGS_RESET, "n_clicks"),
         roles={r: Input(ids.ROLE_INPUT[r], "value") for r in ids.ROLE_FIELDS},
+        labels={r: Input(ids.ROLE_LABEL[r], "value") for r in ids.LABEL_ROLES},
         settings={k: Input(_SETTING_IDS[k], "value") for k in _SETTING_KEYS},
         view={k: Input(i, "value") for k, i in _VIEW_IDS.items()},
         stratum=Input(ids.LINK_STRATA, "value"),
@@ -73,10 +75,11 @@ def register(app, context: AppContext) -> None:
     )
 
     @app.callback(output=outputs, inputs=inputs, state=state)
-    def hub(search, upload, demo, reset, roles, settings, view, stratum, clicks, stratum_click,
-            clear, filename, data, subject, good):
+    def hub(search, upload, demo, reset, roles, labels, settings, view, stratum, clicks,
+            stratum_click, clear, filename, data, subject, good):
         out = _unchanged(outputs)
         trig = ctx.triggered_id
+        roles = {**roles, "labels": dict(labels or {})}
         now = dict(data=data, roles=roles, settings=settings, view=view, stratum=stratum,
                    subject=subject, good=good)
         if (trig == ids.PAGE_URL and data is not None
@@ -95,7 +98,7 @@ def register(app, context: AppContext) -> None:
                 return out
         elif trig == ids.DATA_USE_DEMO:
             _show_dataset(context, context.default_key, context.default_roles, out)
-            now.update(data=out["data"], roles=out["roles"], subject=None, stratum=None)
+            now.update(data=out["data"], roles=_shown_roles(out), subject=None, stratum=None)
             out["subject"], out["stratum"] = None, None
             # the start-up table comes back with its own start-up choices
             _reset_for_new_data(settings, context.default_settings, out, now)
@@ -103,6 +106,8 @@ def register(app, context: AppContext) -> None:
             values = ctl.control_values(context.default_settings)
             out["settings"] = {k: values[k] for k in _SETTING_KEYS}
             now["settings"] = out["settings"]
+        elif trig in ids.ROLE_LABEL.values():
+            pass                                  # a display label: only the address changes
         elif trig in ids.ROLE_INPUT.values():
             _fit_covariate_choices(roles, settings, out, now)
             opts = _covariate_options(roles.get("covariates"))
@@ -176,7 +181,7 @@ def _from_upload(context: AppContext, contents, filename, now: dict, out: dict) 
     _show_dataset(context, dataset.key, keep, out, name=name)
     out["upload_msg"] = clip_message(renamed_note(renamed))
     out["subject"], out["stratum"] = None, None
-    now.update(data=out["data"], roles=out["roles"], subject=None, stratum=None)
+    now.update(data=out["data"], roles=_shown_roles(out), subject=None, stratum=None)
     # choices that described the previous table (its window, transform, centring, groups ...)
     # start again from the neutral defaults, and the page says which
     _reset_for_new_data(now["settings"], Settings(), out, now)
@@ -221,12 +226,18 @@ def _show_dataset(context: AppContext, key: str, roles, out: dict, name: str | N
                         f"{dataset.frame.shape[1]} columns{subjects}")
     out["role_options"] = {r: options for r in ids.ROLE_FIELDS}
     out["roles"] = ctl.role_values(roles)
+    out["labels"] = ctl.label_values(roles)
     # with their values in the same response, so the dropdowns never drop a choice
     # that their options do not list yet
     opts = _covariate_options(out["roles"]["covariates"])
     out["covariate_options"] = {f: opts for f in _COLUMN_SETTINGS}
     out["preview"], out["preview_cols"] = preview(dataset.frame, described)
     out["upload_msg"] = ""
+
+
+def _shown_roles(out: dict) -> dict:
+    """The role controls' values as just set (dropdowns and display labels)."""
+    return {**out["roles"], "labels": out["labels"]}
 
 
 def _fit_covariate_choices(roles: dict, settings: dict, out: dict, now: dict) -> None:

@@ -19,6 +19,7 @@ LINE_ORDERS: tuple[str, ...] = ("slope", "intercept", "covariate", "subject")
 MAX_DRAW = 500
 MAX_SEED = 10**9
 
+_LABEL_PARAM = "label"
 _ROLE_PARAMS = {"subject": "col-subject", "time": "col-time", "response": "col-response",
                 "event_date": "col-event", "covariates": "col-cov", "followup_end": "col-fu-end"}
 
@@ -58,6 +59,8 @@ def encode(*, data_key: str | None, roles: Roles | None, settings: Settings,
                 pairs.extend((param, c) for c in value)
             elif value:
                 pairs.append((param, value))
+        # display labels: one "label=COLUMN=TEXT" each
+        pairs.extend((_LABEL_PARAM, f"{c}={t}") for c, t in roles.labels)
     now, ref = settings.to_dict(), base.to_dict()
     for f in fields(Settings):
         if now[f.name] != ref[f.name]:
@@ -153,9 +156,16 @@ def _decode_roles(params: dict, base_roles: Roles | None, problems: list) -> Rol
         problems.append("the link names column roles but not " + ", ".join(missing)
                         + "; choose them under Data")
         return None
+    labels = {}
+    for item in params.get(_LABEL_PARAM) or []:
+        column, sep, text = item.partition("=")
+        if sep and column:
+            labels[column] = text
+        else:
+            problems.append(f"link display label '{item}': expected COLUMN=LABEL; left out")
     return Roles(subject=d["subject"], time=d["time"], response=d["response"],
                  covariates=d["covariates"], event_date=d.get("event_date") or None,
-                 followup_end=d.get("followup_end") or None)
+                 followup_end=d.get("followup_end") or None, labels=labels)
 
 
 def _parse_setting(name: str, text: str):

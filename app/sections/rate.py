@@ -98,7 +98,7 @@ def first_read_table(table: pd.DataFrame, cohort) -> tuple[list[dict], list[dict
 
 def rate_table_columns(present, cohort) -> list[dict]:
     """Two-row headers for the group summary table (the internal group code is left out)."""
-    cov = short(cohort.covariate or "covariate")
+    cov = short(cohort.roles.label(cohort.covariate) or "covariate")
     unit = cohort.settings.unit
     per = f"slope per {unit[:-1] if unit.endswith('s') else unit}"
     spec = [
