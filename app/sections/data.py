@@ -58,11 +58,12 @@ def layout(settings: Settings | None = None,
         if r not in ids.ROLE_LABEL:
             return drop
         return html.Div(className="cl-role-pick", children=[
-            drop, dcc.Input(id=ids.ROLE_LABEL[r], type="text", value="", debounce=True,
-                            placeholder="label", className="cl-input cl-label-input",
-                            title=("Display label used in titles, axes, tables and statements "
-                                   "instead of the column name" +
-                                   (" (the primary covariate's)" if multi else "")))])
+            drop, html.Div(title=("Display label used in titles, axes, tables and statements "
+                                  "instead of the column name" +
+                                  (" (the primary covariate's)" if multi else "")),
+                           children=dcc.Input(id=ids.ROLE_LABEL[r], type="text", value="",
+                                              debounce=True, placeholder="label",
+                                              className="cl-input cl-label-input"))])
 
     return section(ANCHOR, "Data & column roles",
                    "Upload a CSV or Parquet table with one row per visit. It is read in memory "
