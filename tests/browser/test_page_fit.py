@@ -22,7 +22,7 @@ from app import ids
 from app.layout import SECTIONS
 from app.sections.rate import RATE_TABLE_MAIN
 
-from .test_dashboard import TIMEOUT, figure, open_demo, wait_idle
+from test_dashboard import TIMEOUT, figure, open_demo, wait_idle
 
 SIZES = [(1280, 800), (1920, 1080)]
 
@@ -95,7 +95,8 @@ def test_a_new_upload_resets_the_window_and_says_so(server_url, page, tmp_path):
     text = alert.inner_text()
     assert "Transform: log base 2 → none" in text and "Centre at: cohort median" in text
     assert page.input_value(f"#{ids.SETTING_INPUT['time_max']}") == ""
-    page.wait_for_function("() => !new URLSearchParams(location.search).has('time-max')"
+    # the address says "no upper limit" (the start-up table's link default is 60)
+    page.wait_for_function("() => new URLSearchParams(location.search).get('time-max') === 'none'"
                            " && new URLSearchParams(location.search).has('data')",
                            timeout=TIMEOUT)
     wait_idle(page)
