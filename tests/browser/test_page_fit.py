@@ -106,7 +106,8 @@ def test_a_new_upload_resets_the_window_and_says_so(server_url, page, tmp_path):
 def test_layout_fits_a_projector(server_url, page, artifacts, width, height):
     url, _ = server_url
     page.set_viewport_size({"width": width, "height": height})
-    open_demo(page, url)
+    open_demo(page, url + "?focus=R00001")             # a followed subject: its card is open
+    page.locator(".cl-card-head").wait_for(timeout=TIMEOUT)
     for anchor, label in SECTIONS:
         box = page.locator(".cl-nav a", has_text=label).bounding_box()
         assert box is not None, label
@@ -121,6 +122,12 @@ def test_layout_fits_a_projector(server_url, page, artifacts, width, height):
     bar = page.locator(".cl-selection").bounding_box()
     fixed = max(head["y"] + head["height"], bar["y"] + bar["height"])
     assert fixed <= 0.15 * height, (head, bar)
+    # the card's visits open over the page only when asked
+    card = page.locator(".cl-card-visits-toggle summary")
+    card.click()
+    assert page.locator(".cl-card-visits").is_visible()
+    assert page.locator(".cl-selection").bounding_box()["height"] == bar["height"]
+    card.click()
     # the section title is not under the fixed part
     title = page.locator("#section-rate h2").bounding_box()
     assert title["y"] >= fixed - 1
