@@ -115,8 +115,8 @@ def decode(query: str | None, *, base: Settings | None = None,
         try:
             changes[f.name] = _parse_setting(f.name, text)
         except ValueError as exc:
-            problems.append(f"link setting '{param_name(f.name)}={text}': {exc}; "
-                            "the default is used")
+            problems.append(f"The link's {param_name(f.name)}={text} was not used "
+                            f"({DECLARED[f.name].label}: {exc}); the start-up value is kept.")
     settings = _combine(base, changes, problems)
 
     view = dict(VIEW_DEFAULTS)
@@ -228,5 +228,6 @@ def _combine(base: Settings, changes: dict, problems: list) -> Settings:
         try:
             settings = settings.replace(**{name: value})
         except CohortError as exc:
-            problems.append(f"link setting '{param_name(name)}': {exc}; the default is used")
+            problems.append(f"The link's {param_name(name)} was not used: {exc} The start-up "
+                            "value is kept.")
     return settings
