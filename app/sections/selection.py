@@ -65,15 +65,14 @@ def _card(context, data, roles, settings, subject):
     look = cohort_look(cohort)
     head = html.Div(className="cl-card-head", children=[
         html.Strong(f"Subject {short(subject)}"),
+        html.Details(className="cl-card-visits-toggle", children=[
+            html.Summary(f"{len(mine)} visits", title="show this subject's visits"),
+            html.Div(visits_table(mine, cohort, look), className="cl-card-visits")]),
         html.Span(f"line: {line_text(r['intercept'], r['slope'])}{se}",
                   title="this subject's own straight line (OLS)"),
-        html.Span(f"{len(mine)} visits"),
         html.Span(f"group {short(r['stratum_label'])}", className="cl-card-line"),
         *([html.Span(f"{short(look.covariate or cov)} {fmt(r['covariate'], 4)}",
                      className="cl-card-line")] if cov else []),
-        html.Details(className="cl-card-visits-toggle", children=[
-            html.Summary("visits"), html.Div(visits_table(mine, cohort, look),
-                                             className="cl-card-visits")]),
     ])
     return [head]
 
