@@ -22,7 +22,7 @@ from app import ids
 from app.layout import SECTIONS
 from app.sections.rate import RATE_TABLE_MAIN
 
-from test_dashboard import TIMEOUT, figure, open_demo, wait_idle
+from test_dashboard import CLICK_JS, TIMEOUT, figure, open_demo, wait_idle
 
 SIZES = [(1280, 800), (1920, 1080)]
 
@@ -74,6 +74,11 @@ def test_a_bad_value_keeps_the_last_good_settings(server_url, page):
     page.wait_for_function("() => new URLSearchParams(location.search).has('stratum')",
                            timeout=TIMEOUT)
     assert "min-visits" not in query(page)              # the last good value (the demo's 3)
+    # clicking a subject still follows it
+    subject = page.evaluate(CLICK_JS, [ids.COURSE_GRAPH, ""])
+    page.locator(f"#{ids.LINK_CARD}").get_by_text(f"Subject {subject}", exact=True).wait_for(
+        timeout=TIMEOUT)
+    wait_query(page, "focus", subject)
     # typing a good value back recovers
     box.fill("5")
     box.press("Enter")
