@@ -110,7 +110,8 @@ def register(app, context: AppContext) -> None:
             pass                                  # a display label: only the address changes
         elif trig in ids.ROLE_INPUT.values():
             _fit_covariate_choices(roles, settings, out, now)
-            opts = _covariate_options(roles.get("covariates"))
+            shown, _ = ctl.roles_from_controls(roles, known=context.default_roles)
+            opts = _covariate_options(roles.get("covariates"), shown)
             out["covariate_options"] = {f: opts for f in _COLUMN_SETTINGS}
         elif trig in _CLICK_GRAPHS:
             picked = clicked_subject(clicks.get(trig))
@@ -229,7 +230,7 @@ def _show_dataset(context: AppContext, key: str, roles, out: dict, name: str | N
     out["labels"] = ctl.label_values(roles)
     # with their values in the same response, so the dropdowns never drop a choice
     # that their options do not list yet
-    opts = _covariate_options(out["roles"]["covariates"])
+    opts = _covariate_options(out["roles"]["covariates"], roles)
     out["covariate_options"] = {f: opts for f in _COLUMN_SETTINGS}
     out["preview"], out["preview_cols"] = preview(dataset.frame, described)
     out["upload_msg"] = ""
@@ -292,9 +293,12 @@ def _analysed_subject(context: AppContext, data, roles: dict, settings: dict, pi
     return selection is not None and picked in set(map(str, selection.subject_ids))
 
 
-def _covariate_options(covariates) -> list[dict]:
-    """Choices of the covariate and grouping dropdowns: the columns chosen as covariates."""
-    return [option(c, c) for c in (covariates or [])]
+def _covariate_options(covariates, roles=None) -> list[dict]:
+    """Choices of the covariate and grouping dropdowns: the columns chosen as covariates, by
+    their display labels when they have one."""
+    name = roles.label if roles is not None else (lambda c: c)
+    return [option(name(c) if name(c) == c else f"{name(c)} ({c})", c)
+            for c in (covariates or [])]
 
 
 def _same_query(a, b) -> bool:
