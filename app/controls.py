@@ -85,7 +85,9 @@ def _field_value(f: str, v, values: dict, fallback: Settings):
     if kind == "switch":
         return bool(v) and ON in v
     if kind in ("count", "number"):
-        needs = f"{FIELD_LABELS[f]} must be {allowed_text(f)}."
+        step = DECLARED[f].panel_step
+        needs = (f"{FIELD_LABELS[f]} must be {allowed_text(f)}"
+                 f"{f', in steps of {_num(step)}' if step else ''}.")
         if v is None or v == "":
             # the browser sends an empty box, and a typed value outside the box's range, as
             # blank: say what is allowed
