@@ -113,8 +113,11 @@ def test_report_effect_statement_is_the_one_from_analysis_effects(report, demo_s
     fit = direct.fits[direct.preferred]
     s = ex.cohort.settings
     summary = interaction_summary(fit, term="time × x", transform=s.transform,
-                                  covariate_label=f"baseline {ex.cohort.covariate}",
-                                  response_label="egfr", time_unit=s.unit,
+                                  # the demo's display labels name the columns
+                                  covariate_label="baseline "
+                                  + ex.cohort.roles.label(ex.cohort.covariate),
+                                  response_label=ex.cohort.roles.label("egfr"),
+                                  time_unit=s.unit,
                                   response_unit=ex.cohort.response_unit)
     visible = " ".join(parse(text).text)
     assert summary.statement in visible

@@ -352,7 +352,7 @@ def build_report(cohort, exploration=None, models=None, *, data_name: str = "dat
     parts.append("<h2>Who is analysed</h2>")
     parts.append(_p(f"{cohort.panel.n_subjects:,} subjects and {cohort.panel.n_obs:,} visits. "
                     f"Time: {cohort.time_label}. Primary covariate: "
-                    f"{cohort.covariate or 'none'} (transform {s.transform}, centring "
+                    f"{cohort.roles.label(cohort.covariate) or 'none'} (transform {s.transform}, centring "
                     f"{s.center}, centre value {fmt(cohort.center_value)} on the transformed "
                     "scale)."))
     att = cohort.attrition.to_frame().rename(columns={

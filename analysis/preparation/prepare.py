@@ -234,7 +234,7 @@ class PreparedCohort:
     @property
     def covariate_label(self) -> str:
         """The primary covariate as the effect statement names it, e.g. 'log2(marker)'."""
-        c = self.covariate or "covariate"
+        c = self.roles.label(self.covariate) or "covariate"      # its display label
         t = self.settings.transform
         return c if t == "none" else f"{t}({c})"
 
