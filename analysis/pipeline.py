@@ -45,8 +45,8 @@ def check_group_limit(selection: CohortSelection, settings: Settings) -> None:
     n = selection.panel.n_subjects
     if settings.n_strata > n:
         hi = min(n, COUNT_LIMITS["n_strata"])
-        raise SettingsError(f"n_strata == {settings.n_strata}: the cohort has {n:,} subjects, "
-                            f"so the number of groups must be from 1 to {hi}", field="n_strata")
+        raise SettingsError(f"Number of groups ({settings.n_strata}) is more than the cohort's "
+                            f"{n:,} subjects; choose from 1 to {hi}.", field="n_strata")
 
 
 def deep_nbytes(obj, _seen: set | None = None, _depth: int = 0) -> int:

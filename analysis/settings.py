@@ -32,6 +32,9 @@ class Roles:
     covariates (numeric or categorical), the first being the primary one unless
     ``Settings.covariate`` names another. ``response_unit`` and ``covariate_unit``
     (optional, e.g. "mL/min/1.73m²", "mg/mmol") only label axes and effect statements.
+    ``labels`` (optional) gives a role column a display label ("egfr" → "eGFR"), used in every
+    title, axis, table and statement instead of the column name (:meth:`label`); given as a
+    mapping or (column, label) pairs, kept as sorted pairs so Roles stay hashable.
     """
 
     subject: str
@@ -42,13 +45,25 @@ class Roles:
     response_unit: str = ""
     covariate_unit: str = ""
     followup_end: str | None = None
+    labels: tuple[tuple[str, str], ...] = ()
 
     def __post_init__(self):
         object.__setattr__(self, "covariates", tuple(self.covariates))
+        object.__setattr__(self, "labels", _label_pairs(self.labels))
+
+    def label(self, column: str | None) -> str | None:
+        """The display label of ``column`` (the column name unless a label was given)."""
+        if column is None:
+            return None
+        return dict(self.labels).get(column, column)
 
     def to_dict(self) -> dict[str, Any]:
         d = asdict(self)
         d["covariates"] = list(self.covariates)
+        if self.labels:
+            d["labels"] = dict(self.labels)
+        else:                    # no labels: the JSON stays as it was before labels existed
+            d.pop("labels")
         return d
 
     @classmethod
@@ -82,7 +97,7 @@ class Roles:
             if name in d and not isinstance(d[name], str):
                 raise SettingsError(f"role {name} == {_short(d[name])}, must be text",
                                     field="roles")
-        return cls(**{**d, "covariates": tuple(covs)})
+        return cls(**{**d, "covariates": tuple(covs), "labels": d.get("labels") or ()})
 
     def columns(self) -> tuple[str, ...]:
         cols = [self.subject, self.time, self.response, *self.covariates]
@@ -91,6 +106,32 @@ class Roles:
         if self.followup_end:
             cols.append(self.followup_end)
         return tuple(dict.fromkeys(cols))
+
+
+#: longest display label kept (a label is a short name, not a description)
+LABEL_LIMIT = 60
+
+
+def _label_pairs(labels) -> tuple[tuple[str, str], ...]:
+    """Display labels as sorted (column, label) pairs; blank labels and labels equal to their
+    column are dropped. A mapping or pairs of text, else a message."""
+    if not labels:
+        return ()
+    items = labels.items() if isinstance(labels, dict) else labels
+    try:
+        pairs = [(c, t) for c, t in items]
+    except (TypeError, ValueError):
+        raise SettingsError(f"Display labels must be column: label pairs, not {_short(labels)}.",
+                            field="roles") from None
+    out = {}
+    for column, text in pairs:
+        if not isinstance(column, str) or not isinstance(text, str):
+            raise SettingsError(f"Display label {_short(text)} of column {_short(column)} must "
+                                "be text.", field="roles")
+        text = " ".join(text.split())[:LABEL_LIMIT]
+        if text and text != column:
+            out[column] = text
+    return tuple(sorted(out.items()))
 
 
 @dataclass(frozen=True)
@@ -130,6 +171,9 @@ class Setting:
     radio: bool = False
     needed_text: str | None = None   # the panel's message when another choice needs this blank one
     panel_min: float | None = None   # smallest value the page's number box steps to
+    panel_step: float | None = None  # what the page's +/− add (a number box; counts step by 1)
+    per_dataset: bool = False        # describes one table (its times, columns, values): a newly
+    #                                  loaded table starts from the default again
 
 
 def setting(default, kind: str, **declared):
@@ -150,7 +194,7 @@ class Settings:
 
     origin: str = setting(
         "as-is", "choice", choices=opt.ORIGINS, label="Time origin", help="time origin",
-        stage="cohort", flag="--origin", group=_TIME, choice_labels={
+        stage="cohort", flag="--origin", group=_TIME, per_dataset=True, choice_labels={
             "as-is": "Time column as given (already time since origin)",
             "event-date": "Since each subject's event date",
             "first-visit": "Since each subject's first visit"})
@@ -160,11 +204,11 @@ class Settings:
     time_min: float | None = setting(
         None, "number", optional=True, label="Window from", default_text="none",
         help="drop visits before this time since origin", stage="cohort", flag="--time-min",
-        group=_TIME, pair="window", placeholder="start")
+        group=_TIME, pair="window", placeholder="start", per_dataset=True)
     time_max: float | None = setting(
         None, "number", optional=True, label="Window to", default_text="none",
         help="drop visits after this time since origin", stage="cohort", flag="--time-max",
-        group=_TIME, pair="window", placeholder="end")
+        group=_TIME, pair="window", placeholder="end", per_dataset=True)
     min_visits: int = setting(
         3, "count", lo=1, hi=1000, label="Fewest visits per subject",
         help="minimum visits per subject", stage="cohort", flag="--min-visits",
@@ -179,7 +223,7 @@ class Settings:
         None, "column", label="Baseline covariate", default_text="first covariate",
         help="which baseline covariate is transformed and enters the interaction",
         stage="cohort", flag="--covariate-primary", group="Baseline covariate",
-        placeholder="first covariate")
+        placeholder="first covariate", per_dataset=True)
     duplicates: str = setting(
         "reject", "choice", choices=opt.DUPLICATE_POLICIES, label="Two visits at the same time",
         help="repeated (subject, time) rows: reject or average", stage="cohort",
@@ -195,22 +239,23 @@ class Settings:
     transform: str = setting(
         "none", "choice", choices=opt.TRANSFORMS, label="Transform",
         help="covariate transform", stage="strata", flag="--transform",
-        group="Baseline covariate", choice_labels={
+        group="Baseline covariate", per_dataset=True, choice_labels={
             "none": "none", "log": "natural log", "log2": "log base 2", "log10": "log base 10"})
     center: str | float = setting(
         "none", "center", choices=opt.CENTER_WORDS, label="Centre at",
         help="covariate centring: none, mean, median or a number", stage="strata",
         flag="--center", group="Baseline covariate", hint="On the transformed scale.",
+        per_dataset=True,
         choice_labels={"none": "no centring", "mean": "cohort mean", "median": "cohort median",
                        "value": "a value I give"})
     stratify_by: str | None = setting(
         None, "column", label="Group subjects by", default_text="primary covariate",
         help="covariate to cut into strata", stage="strata", flag="--stratify-by",
-        group=_GROUPS, placeholder="the baseline covariate")
+        group=_GROUPS, placeholder="the baseline covariate", per_dataset=True)
     strata_method: str = setting(
         "quantile", "choice", choices=opt.STRATA_METHODS, label="How to cut groups",
         help="how to cut strata", stage="strata", flag="--strata-method", group=_GROUPS,
-        radio=True, choice_labels={"quantile": "equal counts (quantiles)",
+        radio=True, per_dataset=True, choice_labels={"quantile": "equal counts (quantiles)",
                                    "equal-width": "equal widths", "custom": "my own break points"})
     n_strata: int = setting(
         4, "count", lo=1, hi=50, label="Number of groups", help="number of strata",
@@ -218,7 +263,7 @@ class Settings:
     breaks: tuple[float, ...] = setting(
         (), "breaks", label="Break points", help="custom inner break points, e.g. 10,20,40",
         default_text="none", stage="strata", flag="--breaks", group=_GROUPS,
-        flag_sets={"strata_method": "custom"},
+        flag_sets={"strata_method": "custom"}, per_dataset=True,
         needed_text="Enter the inner break points for your own groups, e.g. 10, 20, 40.",
         placeholder="e.g. 10, 20, 40", hint="Inner cut points in the covariate's own units.")
     detrend: str = setting(
@@ -234,7 +279,7 @@ class Settings:
     lowess_frac: float = setting(
         0.3, "number", lo=0, hi=1, lo_open=True, label="Lowess span",
         help="lowess span for --detrend lowess", stage="residuals", flag="--lowess-frac",
-        group=_RESIDUALS, pair="smooth", panel_min=0.01)
+        group=_RESIDUALS, pair="smooth", panel_min=0.01, panel_step=0.01)
     detrend_within_strata: bool = setting(
         False, "switch", label="Separate curve per group",
         help="fit the detrending curve per stratum", stage="residuals",
@@ -246,16 +291,17 @@ class Settings:
     variogram_max_lag: float | None = setting(
         None, "number", lo=0, lo_open=True, optional=True, label="Largest time apart",
         default_text="all lags", help="largest lag binned", stage="variogram",
-        flag="--variogram-max-lag", group=_VIEWS, pair="variogram", placeholder="all")
+        flag="--variogram-max-lag", group=_VIEWS, pair="variogram", placeholder="all",
+        per_dataset=True)
     lag_width: float | None = setting(
         None, "number", lo=0, lo_open=True, optional=True, label="Lag window width",
         default_text="automatic", help="window width for lag correlations", stage="lagcorr",
-        flag="--lag-width", group=_VIEWS, placeholder="auto",
+        flag="--lag-width", group=_VIEWS, placeholder="auto", per_dataset=True,
         hint="Width of each time-apart window, in time units.")
     data_cut: str | None = setting(
         None, "date", label="Data cut (date)", default_text="latest visit date",
         help="date the data end, YYYY-MM-DD, for the dropout view", stage="summaries",
-        flag="--data-cut", group=_TIME, placeholder="latest visit date",
+        flag="--data-cut", group=_TIME, placeholder="latest visit date", per_dataset=True,
         hint="YYYY-MM-DD: when the data end, for loss to follow-up.")
 
     def __post_init__(self):
@@ -272,20 +318,22 @@ class Settings:
         if (self.time_min is not None and self.time_max is not None
                 and self.time_min >= self.time_max):
             raise SettingsError(
-                f"time window [{self.time_min}, {self.time_max}] is empty: time_min must be < time_max",
-                field="time_min")
+                f"{_label('time_min')} ({_num(self.time_min)}) must be smaller than "
+                f"{_label('time_max')} ({_num(self.time_max)}).", field="time_min")
         most = DECLARED["n_strata"].hi
         if len(self.breaks) > most - 1:
             raise SettingsError(
-                f"breaks: {len(self.breaks)} break points make {len(self.breaks) + 1} groups; "
-                f"at most {most - 1} break points ({most} groups) are allowed", field="breaks")
+                f"{_label('breaks')}: {len(self.breaks)} points make {len(self.breaks) + 1} "
+                f"groups; at most {most - 1} points ({most} groups) are allowed.", field="breaks")
         if self.strata_method == "custom":
             if not self.breaks:
-                raise SettingsError("strata_method == 'custom' needs breaks, e.g. breaks=(1.5, 3.0)",
-                                    field="breaks")
+                raise SettingsError(
+                    f"{_label('strata_method')} is set to your own break points, which needs "
+                    f"{_label('breaks')}, e.g. 10, 20, 40.", field="breaks")
             if any(b <= a for a, b in zip(self.breaks, self.breaks[1:])):
-                raise SettingsError(f"breaks {list(self.breaks)} must be strictly increasing",
-                                    field="breaks")
+                raise SettingsError(
+                    f"{_label('breaks')} ({', '.join(map(_num, self.breaks))}) must be strictly "
+                    "increasing: each larger than the one before.", field="breaks")
 
     # -- serialisation ----------------------------------------------------
     def to_dict(self) -> dict[str, Any]:
@@ -324,6 +372,10 @@ class Settings:
 
 #: each setting's declaration, in field order
 DECLARED: dict[str, Setting] = {f.name: f.metadata["setting"] for f in fields(Settings)}
+
+#: settings that describe one table (its time span, columns, covariate values); a newly
+#: loaded table starts them from their defaults
+PER_DATASET: tuple[str, ...] = tuple(n for n, d in DECLARED.items() if d.per_dataset)
 
 #: Upper limits of the count settings, checked before anything is allocated (a shared link or
 #: a flag can otherwise ask for millions of bins or groups). Generous for real use: more than
@@ -367,35 +419,35 @@ def check_value(name: str, value, decl: Setting | None = None) -> None:
         if value is None and decl.optional:
             return
         if value is None:
-            raise SettingsError(f"{name} == None, must be a number in {_interval(decl)}",
-                                field=name)
+            raise SettingsError(f"{_label(name)} needs a number {_interval(decl)}.", field=name)
         _number_or_none(name, value)
         lo_ok = decl.lo is None or (value > decl.lo if decl.lo_open else value >= decl.lo)
         if not lo_ok or decl.hi is not None and not value <= decl.hi:
-            word = _interval(decl)
-            raise SettingsError(f"{name} == {value}, must be "
-                                f"{word if word[0] in '<>' else 'in ' + word}", field=name)
+            raise SettingsError(f"{_label(name)} must be {_interval(decl)}; "
+                                f"{_num(value)} is outside.", field=name)
     elif kind == "switch":
         if not isinstance(value, bool):
-            raise SettingsError(f"{name} == {_short(value)}, must be true or false", field=name)
+            raise SettingsError(f"{_label(name)} must be on or off (true or false), not "
+                                f"{_short(value)}.", field=name)
     elif kind == "column":
         if value is not None and not isinstance(value, str):
-            raise SettingsError(f"{name} == {_short(value)}, must be a column name or empty",
-                                field=name)
+            raise SettingsError(f"{_label(name)} must name a column or be left empty, not "
+                                f"{_short(value)}.", field=name)
     elif kind == "date":
         if value is not None:
             _date_text(name, value)
     elif kind == "center":
         if isinstance(value, str) and value not in decl.choices:
-            raise SettingsError(f"{name} == {_short(value)}, must be one of "
-                                f"{list(decl.choices)} or a number", field=name)
+            raise SettingsError(f"{_label(name)} must be {', '.join(decl.choices)} or a number, "
+                                f"not {_short(value)}.", field=name)
         if not isinstance(value, (str, float)) or (
                 isinstance(value, float) and not np.isfinite(value)):
-            raise SettingsError(f"{name} == {_short(value)}, must be one of "
-                                f"{list(decl.choices)} or a finite number", field=name)
+            raise SettingsError(f"{_label(name)} must be {', '.join(decl.choices)} or a finite "
+                                f"number, not {_short(value)}.", field=name)
     elif kind == "breaks":
         if not all(np.isfinite(value)):
-            raise SettingsError(f"{name} {list(value)} must be finite numbers", field=name)
+            raise SettingsError(f"{_label(name)} must be finite numbers, not "
+                                f"{', '.join(map(_num, value))}.", field=name)
 
 
 def check_choice(value, choices: tuple) -> None:
@@ -406,9 +458,46 @@ def check_choice(value, choices: tuple) -> None:
 
 
 def _interval(decl: Setting) -> str:
+    """The allowed values of a number or count in words ("from 1 to 1000", "greater than 0")."""
+    whole = "a whole number " if decl.kind == "count" else ""
+    if decl.lo is None and decl.hi is None:
+        return "(any number)"
     if decl.hi is None:
-        return f"{'>' if decl.lo_open else '>='} {decl.lo:g}"
-    return f"{'(' if decl.lo_open else '['}{decl.lo:g}, {decl.hi:g}]"
+        return f"{whole}{'greater than' if decl.lo_open else 'at least'} {_num(decl.lo)}"
+    if decl.lo_open:
+        return f"{whole}greater than {_num(decl.lo)} and at most {_num(decl.hi)}"
+    return f"{whole}from {_num(decl.lo)} to {_num(decl.hi)}"
+
+
+def allowed_text(name: str) -> str:
+    """What setting ``name`` accepts, in words, for messages beside its control
+    (e.g. "a whole number from 1 to 1000")."""
+    decl = DECLARED[name]
+    if decl.kind in ("count", "number"):
+        text = _interval(decl)
+        return text if decl.kind == "count" else f"a number {text}".replace(" (any number)", "")
+    if decl.kind in ("choice", "center"):
+        return _words(decl.choices)
+    return decl.help
+
+
+def _label(name: str) -> str:
+    """A setting's label as the settings panel shows it (its name for anything undeclared)."""
+    decl = DECLARED.get(name) if "DECLARED" in globals() else None
+    return decl.label if decl is not None else name
+
+
+def _num(v) -> str:
+    """A number in a message: plain, no trailing zeros, true minus (analysis.numbers)."""
+    from .numbers import format_number
+
+    return format_number(v, 6)
+
+
+def _words(choices) -> str:
+    """'a, b or c'."""
+    items = [str(c) for c in choices]
+    return items[0] if len(items) == 1 else ", ".join(items[:-1]) + " or " + items[-1]
 
 
 def json_key(value, length: int | None = None) -> str:
@@ -430,31 +519,33 @@ def _choice(name: str, value, allowed) -> None:
     except TypeError:                     # unhashable or otherwise incomparable
         ok = False
     if not ok:
-        raise SettingsError(f"{name} == {_short(value)}, must be one of {list(allowed)}",
-                            field=name)
+        raise SettingsError(f"{_label(name)} cannot be {_short(value)}; choose "
+                            f"{_words(allowed)}.", field=name)
 
 
 def _date_text(name: str, value) -> None:
     try:
         date.fromisoformat(value)
     except (TypeError, ValueError):
-        raise SettingsError(f"{name} == {_short(value)}, must be a date written YYYY-MM-DD, "
-                            "e.g. 2024-06-30", field=name) from None
+        raise SettingsError(f"{_label(name)} must be a date written YYYY-MM-DD, e.g. "
+                            f"2024-06-30, not {_short(value)}.", field=name) from None
 
 
 def _int_between(name: str, value, lo: int, hi: int) -> None:
     if isinstance(value, bool) or not isinstance(value, int):
-        raise SettingsError(f"{name} == {_short(value)}, must be a whole number from {lo} to {hi}",
-                            field=name)
+        raise SettingsError(f"{_label(name)} must be a whole number from {lo} to {hi}, not "
+                            f"{_short(value)}.", field=name)
     if not lo <= value <= hi:
-        raise SettingsError(f"{name} == {value}, must be from {lo} to {hi}", field=name)
+        raise SettingsError(f"{_label(name)} must be a whole number from {lo} to {hi}; "
+                            f"{value} is too {'small' if value < lo else 'large'}.", field=name)
 
 
 def _number_or_none(name: str, value) -> None:
     if value is None:
         return
     if isinstance(value, bool) or not isinstance(value, (int, float)) or not np.isfinite(value):
-        raise SettingsError(f"{name} == {_short(value)}, must be a finite number", field=name)
+        raise SettingsError(f"{_label(name)} must be a finite number, not {_short(value)}.",
+                            field=name)
 
 
 def _breaks(value) -> tuple[float, ...]:
@@ -462,12 +553,12 @@ def _breaks(value) -> tuple[float, ...]:
     if value is None:
         return ()
     if isinstance(value, (str, bytes, dict)) or not hasattr(value, "__iter__"):
-        raise SettingsError(f"breaks == {_short(value)}, must be a list of numbers, "
-                            "e.g. [10, 20, 40]", field="breaks")
+        raise SettingsError(f"{_label('breaks')} must be a list of numbers, e.g. [10, 20, 40], "
+                            f"not {_short(value)}.", field="breaks")
     out = []
     for b in value:
         if isinstance(b, bool) or not isinstance(b, (int, float)):
-            raise SettingsError(f"breaks holds {_short(b)}, must be a list of numbers, "
-                                "e.g. [10, 20, 40]", field="breaks")
+            raise SettingsError(f"{_label('breaks')} must be a list of numbers, e.g. "
+                                f"[10, 20, 40]; {_short(b)} is not a number.", field="breaks")
         out.append(float(b))
     return tuple(out)

@@ -44,6 +44,10 @@ def build_parser() -> argparse.ArgumentParser:
     serve.add_argument("--host", default="127.0.0.1", help="address to bind [127.0.0.1]")
     serve.add_argument("--port", type=int, default=8050, help="port [8050]")
     serve.add_argument("--debug", action="store_true", help="Dash debug mode (development only)")
+    serve.add_argument("--verbose", action="store_true",
+                       help="log every request the page makes [quiet]")
+    serve.add_argument("--open", dest="open_browser", action="store_true",
+                       help="open the dashboard in the default web browser [off]")
     serve.add_argument("--cache-mb", type=float, default=None, metavar="MB",
                        help="memory budget of uploaded tables plus cached results, half each; "
                             "least recently used dropped first [1024]")
@@ -152,6 +156,9 @@ def _add_roles(p: argparse.ArgumentParser, *, required: bool) -> None:
                                           "leaving early from the end of the data")
     g.add_argument("--response-unit", help="unit of the response, for labels (e.g. 'mg/dL')")
     g.add_argument("--covariate-unit", help="unit of the primary covariate, for labels")
+    g.add_argument("--label", action="append", default=None, metavar="COL=TEXT",
+                   help="display label of a column, used in titles, axes, tables and "
+                        "statements instead of its name (repeat for more columns)")
 
 
 def _add_settings(p: argparse.ArgumentParser) -> None:
@@ -219,6 +226,8 @@ def resolve(args: argparse.Namespace) -> tuple[object, Roles | None, Settings]:
         if covariates:
             merged["covariates"] = covariates
         merged.update({k: v for k, v in units.items() if v})
+        if getattr(args, "label", None):
+            merged["labels"] = {**(merged.get("labels") or {}), **_parse_labels(args.label)}
         missing = [k for k in ("subject", "time", "response") if not merged.get(k)]
         if missing:
             if args.command == "serve":
@@ -291,6 +300,18 @@ def _parse_breaks(text: str) -> tuple[float, ...]:
     except ValueError:
         raise SettingsError(f"--breaks {text!r}: expected numbers separated by commas, "
                             "e.g. 10,20,40", field="breaks") from None
+
+
+def _parse_labels(items: list[str]) -> dict[str, str]:
+    """``--label COL=TEXT`` flags as {column: label}."""
+    out = {}
+    for item in items:
+        column, sep, text = item.partition("=")
+        if not sep or not column.strip():
+            raise SettingsError(f"--label {item!r}: write the column, '=' and its display "
+                                "label, e.g. --label egfr=eGFR", field="roles")
+        out[column.strip()] = text.strip()
+    return out
 
 
 def _parse_center(text: str):
@@ -435,7 +456,8 @@ def cmd_serve(args) -> int:
         raise CohortError(f"--cache-mb {cache_mb:g}: must be from 16 to 1000000 (MB)")
     data, roles, settings = resolve(args)
     run_server(data_path=data, roles=roles, settings=settings, host=args.host, port=args.port,
-               debug=args.debug, cache_mb=cache_mb)
+               debug=args.debug, cache_mb=cache_mb, verbose=args.verbose,
+               open_browser=args.open_browser)
     return 0
 
 

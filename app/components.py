@@ -55,9 +55,20 @@ def field(label: str, control, msg_id: str, hint: str | None = None) -> html.Div
     ])
 
 
-def number(id_: str, value, *, step="any", min_=None, placeholder=None) -> dcc.Input:
-    return dcc.Input(id=id_, type="number", value=value, step=step, min=min_, debounce=True,
-                     placeholder=placeholder, className="cl-input")
+def number(id_: str, value, *, step="any", min_=None, max_=None, placeholder=None) -> dcc.Input:
+    """A number box with +/− buttons. ``min`` and ``max`` are always sent, ``None`` as null:
+    Dash 4's steppers clamp to ``max`` whenever it is absent (undefined) and so turn every
+    value into NaN; null means "no limit". ``step="any"`` steps by 1."""
+    return dcc.Input(id=id_, type="number", value=value, step=step, min=min_, max=max_,
+                     debounce=True, placeholder=placeholder, className="cl-input")
+
+
+def panel_step(decl) -> float | str:
+    """The step of a setting's number box: 1 for a count, the declared ``panel_step``, else
+    "any" (any typed number is valid; the buttons then step by 1)."""
+    if decl.kind == "count":
+        return 1
+    return decl.panel_step if decl.panel_step is not None else "any"
 
 
 def setting_field(name: str, v: dict) -> html.Div:
@@ -78,12 +89,12 @@ def setting_field(name: str, v: dict) -> html.Div:
                                clearable=kind == "column", searchable=False,
                                placeholder=decl.placeholder)
         if kind == "center":
-            control = html.Div(className="cl-pair", children=[
+            control = html.Div(className="cl-pair cl-pair-center", children=[
                 control, number(ids.SETTING_CENTER_VALUE, v["center_value"], placeholder="value")])
     elif kind in ("count", "number"):
-        control = number(id_, v[name], step=1 if kind == "count" else "any",
+        control = number(id_, v[name], step=panel_step(decl),
                          min_=decl.lo if kind == "count" else decl.panel_min,
-                         placeholder=decl.placeholder)
+                         max_=decl.hi, placeholder=decl.placeholder)
     else:                                 # date, breaks: typed text
         control = dcc.Input(id=id_, type="text", value=v[name], debounce=True,
                             placeholder=decl.placeholder, className="cl-input")

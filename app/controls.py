@@ -6,8 +6,10 @@ and back again when a link restores a view.
 """
 from __future__ import annotations
 
+import math
+
 from analysis.errors import CohortError
-from analysis.settings import DECLARED, Roles, Settings
+from analysis.settings import PER_DATASET, DECLARED, Roles, Settings, allowed_text
 
 from . import ids
 from .text import short
@@ -83,17 +85,24 @@ def _field_value(f: str, v, values: dict, fallback: Settings):
     if kind == "switch":
         return bool(v) and ON in v
     if kind in ("count", "number"):
+        step = DECLARED[f].panel_step
+        needs = (f"{FIELD_LABELS[f]} must be {allowed_text(f)}"
+                 f"{f', in steps of {_num(step)}' if step else ''}.")
         if v is None or v == "":
+            # the browser sends an empty box, and a typed value outside the box's range, as
+            # blank: say what is allowed
             if f in REQUIRED_NUMBERS:
-                raise ValueError("enter a number")
+                raise ValueError(needs)
             return None
         try:
             num = float(v)
         except (TypeError, ValueError):
-            raise ValueError(f"expected a number, got {v!r}") from None
+            raise ValueError(needs) from None
+        if not math.isfinite(num):
+            raise ValueError(needs)
         if kind == "count":
             if not num.is_integer():
-                raise ValueError(f"expected a whole number, got {v}")
+                raise ValueError(needs)
             return int(num)
         return num
     if kind == "breaks":
@@ -108,14 +117,15 @@ def _field_value(f: str, v, values: dict, fallback: Settings):
             try:
                 out.append(float(part))
             except ValueError:
-                raise ValueError(f"'{part}' is not a number; write break points like 10, 20, 40"
+                raise ValueError(f"Break points: '{part}' is not a number; write them like "
+                                 "10, 20, 40."
                                  ) from None
         return tuple(out)
     if kind == "center":
         if v == "value":
             cv = values.get("center_value")
             if cv is None or cv == "":
-                raise ValueError("enter the value to centre at")
+                raise ValueError("Centre at needs the value to centre at, a number.")
             return float(cv)
         return v or "none"
     if kind == "column":
@@ -125,12 +135,56 @@ def _field_value(f: str, v, values: dict, fallback: Settings):
     return v if v is not None else getattr(fallback, f)
 
 
+def reset_per_dataset(values: dict, target: Settings) -> tuple[dict, list[str]]:
+    """Control values with every setting that describes one table (declared ``per_dataset``)
+    put back to ``target``'s, and a note per setting that changed ("Window to: 60 → none").
+
+    ``values`` are the panel's control values (:func:`control_values`, plus ``center_value``);
+    returns only the changed controls and the notes.
+    """
+    fresh = control_values(target)
+    changed, notes = {}, []
+    for name in PER_DATASET:
+        keys = (name, "center_value") if DECLARED[name].kind == "center" else (name,)
+        if all(_same_value(values.get(k), fresh[k]) for k in keys):
+            continue
+        for k in keys:
+            changed[k] = fresh[k]
+        notes.append(f"{FIELD_LABELS[name]}: {_shown(name, values, keys)} → "
+                     f"{_shown(name, fresh, keys)}")
+    return changed, notes
+
+
+def _same_value(a, b) -> bool:
+    blank = (None, "", [])
+    if a in blank and b in blank:
+        return True
+    try:
+        return float(a) == float(b)
+    except (TypeError, ValueError):
+        return a == b
+
+
+def _shown(name: str, values: dict, keys) -> str:
+    """A control's value in the panel's words (a choice's label, a number, "none")."""
+    v = values.get(name)
+    if DECLARED[name].kind == "center" and v == "value":
+        v = values.get("center_value")
+    if v in (None, "", []):
+        return "none"
+    labels = choice_labels(name) if DECLARED[name].choices else {}
+    if isinstance(v, str) and v in labels:
+        return labels[v]
+    if isinstance(v, (int, float)) and not isinstance(v, bool):
+        return _num(v)
+    return str(v)
+
+
 def plain_message(message: str) -> str:
-    """Settings messages name fields as in code; say them as the panel does."""
+    """A settings message as the panel shows it: the declarations already word their messages
+    with the panel's labels (analysis.settings); an older "name ==" form still reads as one."""
     for f in ids.SETTING_FIELDS:
-        message = message.replace(f"{f} ==", f"{FIELD_LABELS[f].lower()} is")
-    for f in ids.SETTING_FIELDS:
-        message = message.replace(f, f"'{FIELD_LABELS[f].lower()}'")
+        message = message.replace(f"{f} ==", f"{FIELD_LABELS[f]} is")
     return message
 
 
@@ -172,9 +226,47 @@ def roles_from_controls(values: dict, *, known: Roles | None = None
             units["response_unit"] = known.response_unit
         if covs and known.covariates and known.covariates[0] == covs[0]:
             units["covariate_unit"] = known.covariate_unit
-    return Roles(subject=values["subject"], time=values["time"], response=values["response"],
-                 covariates=covs, event_date=values.get("event_date") or None,
-                 followup_end=values.get("followup_end") or None, **units), {}
+    roles = Roles(subject=values["subject"], time=values["time"], response=values["response"],
+                  covariates=covs, event_date=values.get("event_date") or None,
+                  followup_end=values.get("followup_end") or None, **units)
+    return roles.__class__(**{**roles.__dict__,
+                              "labels": _labels(roles, values.get("labels"), known)}), {}
+
+
+def _label_column(roles: Roles, role: str) -> str | None:
+    """The column a role's label field names (the primary covariate for the covariates)."""
+    if role == "covariates":
+        return roles.covariates[0] if roles.covariates else None
+    return getattr(roles, role)
+
+
+def _labels(roles: Roles, typed: dict | None, known: Roles | None) -> dict:
+    """Display labels: the start-up roles' labels of the chosen columns, then what the label
+    fields say (a field left blank means the column name)."""
+    used = set(roles.columns())
+    out = {c: t for c, t in (known.labels if known is not None else ()) if c in used}
+    if typed is None:
+        return out
+    for role in ids.LABEL_ROLES:
+        column = _label_column(roles, role)
+        if column is None:
+            continue
+        text = (typed.get(role) or "").strip()
+        if text:
+            out[column] = text
+        else:
+            out.pop(column, None)
+    return out
+
+
+def label_values(roles: Roles | None) -> dict:
+    """The value of each role's label field that shows ``roles`` (blank: the column name)."""
+    out = {}
+    for role in ids.LABEL_ROLES:
+        column = None if roles is None else _label_column(roles, role)
+        label = None if column is None else roles.label(column)
+        out[role] = "" if label in (None, column) else label
+    return out
 
 
 def keep_roles_that_fit(roles: Roles | None, columns) -> Roles | None:

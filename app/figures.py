@@ -165,17 +165,19 @@ def cohort_look(cohort) -> CohortLook:
         count_map[pal.NO_VALUE_LABEL] = int((codes < 0).sum())
     cov_unit = getattr(roles, "covariate_unit", "") or ""
     stratifier = cohort.strata.name or "group"
+    # display labels (Roles.labels) in place of column names
+    name = roles.label if hasattr(roles, "label") else (lambda c: c)
     # names from the user's file are cut to a display length (axis titles, legends)
     return CohortLook(
         strata=tuple(labels),
         colours=dict(pal.stratum_colours(labels)),
         time_label=short(cohort.time_label),
         time_unit=cohort.settings.unit,
-        response=short(roles.response),
+        response=short(name(roles.response)),
         response_unit=short(getattr(roles, "response_unit", "") or "", 30),
-        stratifier=short(stratifier),
+        stratifier=short(name(stratifier)),
         stratifier_unit=short(cov_unit, 30) if stratifier == cohort.covariate else "",
-        covariate=None if cohort.covariate is None else short(cohort.covariate),
+        covariate=None if cohort.covariate is None else short(name(cohort.covariate)),
         covariate_unit=short(cov_unit, 30),
         transform=cohort.settings.transform,
         counts=count_map,

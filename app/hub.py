@@ -17,7 +17,7 @@ from dash import Input, Output, State, ctx, no_update
 
 from analysis.errors import CohortError
 from analysis.preparation.loading import describe_columns, read_table
-from analysis.settings import DECLARED
+from analysis.settings import DECLARED, Settings
 
 from . import controls as ctl
 from . import ids, urlstate
@@ -45,6 +45,7 @@ def register(app, context: AppContext) -> None:
         preview_cols=Output(ids.DATA_PREVIEW, "columns"),
         role_options={r: Output(ids.ROLE_INPUT[r], "options") for r in ids.ROLE_FIELDS},
         roles={r: Output(ids.ROLE_INPUT[r], "value") for r in ids.ROLE_FIELDS},
+        labels={r: Output(ids.ROLE_LABEL[r], "value") for r in ids.LABEL_ROLES},
         settings={k: Output(_SETTING_IDS[k], "value") for k in _SETTING_KEYS},
         view={k: Output(i, "value") for k, i in _VIEW_IDS.items()},
         covariate_options={f: Output(ids.SETTING_INPUT[f], "options")
@@ -58,6 +59,7 @@ def register(app, context: AppContext) -> None:
         demo=Input(ids.DATA_USE_DEMO, "n_clicks"),
         reset=Input(ids.SETTINGS_RESET, "n_clicks"),
         roles={r: Input(ids.ROLE_INPUT[r], "value") for r in ids.ROLE_FIELDS},
+        labels={r: Input(ids.ROLE_LABEL[r], "value") for r in ids.LABEL_ROLES},
         settings={k: Input(_SETTING_IDS[k], "value") for k in _SETTING_KEYS},
         view={k: Input(i, "value") for k, i in _VIEW_IDS.items()},
         stratum=Input(ids.LINK_STRATA, "value"),
@@ -69,15 +71,17 @@ def register(app, context: AppContext) -> None:
         filename=State(ids.DATA_UPLOAD, "filename"),
         data=State(ids.STORE_DATA, "data"),
         subject=State(ids.STORE_SUBJECT, "data"),
+        good=State(ids.STORE_SETTINGS, "data"),
     )
 
     @app.callback(output=outputs, inputs=inputs, state=state)
-    def hub(search, upload, demo, reset, roles, settings, view, stratum, clicks, stratum_click,
-            clear, filename, data, subject):
+    def hub(search, upload, demo, reset, roles, labels, settings, view, stratum, clicks,
+            stratum_click, clear, filename, data, subject, good):
         out = _unchanged(outputs)
         trig = ctx.triggered_id
+        roles = {**roles, "labels": dict(labels or {})}
         now = dict(data=data, roles=roles, settings=settings, view=view, stratum=stratum,
-                   subject=subject)
+                   subject=subject, good=good)
         if (trig == ids.PAGE_URL and data is not None
                 and _same_query(search, _encode(context, now))):
             # Location echoes every query this callback writes back as a new input:
@@ -94,19 +98,25 @@ def register(app, context: AppContext) -> None:
                 return out
         elif trig == ids.DATA_USE_DEMO:
             _show_dataset(context, context.default_key, context.default_roles, out)
-            now.update(data=out["data"], roles=out["roles"], subject=None, stratum=None)
+            now.update(data=out["data"], roles=_shown_roles(out), subject=None, stratum=None)
             out["subject"], out["stratum"] = None, None
+            # the start-up table comes back with its own start-up choices
+            _reset_for_new_data(settings, context.default_settings, out, now)
         elif trig == ids.SETTINGS_RESET:
             values = ctl.control_values(context.default_settings)
             out["settings"] = {k: values[k] for k in _SETTING_KEYS}
             now["settings"] = out["settings"]
+        elif trig in ids.ROLE_LABEL.values():
+            pass                                  # a display label: only the address changes
         elif trig in ids.ROLE_INPUT.values():
             _fit_covariate_choices(roles, settings, out, now)
-            opts = _covariate_options(roles.get("covariates"))
+            shown, _ = ctl.roles_from_controls(roles, known=context.default_roles)
+            opts = _covariate_options(roles.get("covariates"), shown)
             out["covariate_options"] = {f: opts for f in _COLUMN_SETTINGS}
         elif trig in _CLICK_GRAPHS:
             picked = clicked_subject(clicks.get(trig))
-            if picked is None or not _analysed_subject(context, data, roles, settings, picked):
+            if picked is None or not _analysed_subject(context, data, roles, settings, picked,
+                                                       good):
                 return out   # a click on a mean curve, a smooth or a band names no subject
             now["subject"] = out["subject"] = picked
         elif trig == ids.RATE_STRATA_GRAPH:
@@ -172,8 +182,31 @@ def _from_upload(context: AppContext, contents, filename, now: dict, out: dict) 
     _show_dataset(context, dataset.key, keep, out, name=name)
     out["upload_msg"] = clip_message(renamed_note(renamed))
     out["subject"], out["stratum"] = None, None
-    now.update(data=out["data"], roles=out["roles"], subject=None, stratum=None)
+    now.update(data=out["data"], roles=_shown_roles(out), subject=None, stratum=None)
+    # choices that described the previous table (its window, transform, centring, groups ...)
+    # start again from the neutral defaults, and the page says which
+    _reset_for_new_data(now["settings"], Settings(), out, now)
     return True
+
+
+def _reset_for_new_data(values: dict, target: Settings, out: dict, now: dict) -> None:
+    changed, notes = ctl.reset_per_dataset(values or {}, target)
+    if not changed:
+        return
+    for k, v in changed.items():
+        out["settings"][k] = v
+    now["settings"] = {**(values or {}), **changed}
+    out["alert"] = reset_note(notes)
+
+
+def reset_note(notes: list[str]):
+    """The visible note of what a new table put back to its default."""
+    from dash import html
+
+    return html.Div(className="cl-reset-note", children=[
+        html.Strong("New data: these choices described the previous table and are back at "
+                    "their defaults — "),
+        html.Span("; ".join(notes) + ".")])
 
 
 def _show_dataset(context: AppContext, key: str, roles, out: dict, name: str | None = None
@@ -194,12 +227,18 @@ def _show_dataset(context: AppContext, key: str, roles, out: dict, name: str | N
                         f"{dataset.frame.shape[1]} columns{subjects}")
     out["role_options"] = {r: options for r in ids.ROLE_FIELDS}
     out["roles"] = ctl.role_values(roles)
+    out["labels"] = ctl.label_values(roles)
     # with their values in the same response, so the dropdowns never drop a choice
     # that their options do not list yet
-    opts = _covariate_options(out["roles"]["covariates"])
+    opts = _covariate_options(out["roles"]["covariates"], roles)
     out["covariate_options"] = {f: opts for f in _COLUMN_SETTINGS}
     out["preview"], out["preview_cols"] = preview(dataset.frame, described)
     out["upload_msg"] = ""
+
+
+def _shown_roles(out: dict) -> dict:
+    """The role controls' values as just set (dropdowns and display labels)."""
+    return {**out["roles"], "labels": out["labels"]}
 
 
 def _fit_covariate_choices(roles: dict, settings: dict, out: dict, now: dict) -> None:
@@ -213,9 +252,21 @@ def _fit_covariate_choices(roles: dict, settings: dict, out: dict, now: dict) ->
     now["settings"] = changed
 
 
+def _settings_in_force(context: AppContext, values: dict, good):
+    """The settings the controls show, or while one of them holds a bad value, the last good
+    ones (the settings store), so that a group, a subject and the address still follow."""
+    settings, _ = ctl.settings_from_controls(dict(values or {}),
+                                             fallback=context.default_settings)
+    if settings is None and isinstance(good, dict):
+        try:
+            settings = Settings.from_dict(good)
+        except CohortError:
+            settings = None
+    return settings
+
+
 def _encode(context: AppContext, now: dict):
-    values = dict(now["settings"])
-    settings, problems = ctl.settings_from_controls(values, fallback=context.default_settings)
+    settings = _settings_in_force(context, now["settings"], now.get("good"))
     if settings is None:
         return no_update
     roles, _ = ctl.roles_from_controls(now["roles"], known=context.default_roles)
@@ -229,11 +280,11 @@ def _encode(context: AppContext, now: dict):
 
 
 # ------------------------------------------------------------------ small pure helpers
-def _analysed_subject(context: AppContext, data, roles: dict, settings: dict, picked: str
-                      ) -> bool:
+def _analysed_subject(context: AppContext, data, roles: dict, settings: dict, picked: str,
+                      good=None) -> bool:
     """Whether ``picked`` is a subject of the analysed cohort (from the cached selection)."""
     r, _ = ctl.roles_from_controls(roles, known=context.default_roles)
-    s, _ = ctl.settings_from_controls(dict(settings), fallback=context.default_settings)
+    s = _settings_in_force(context, settings, good)
     dataset = context.datasets.get((data or {}).get("key"))
     if r is None or s is None or dataset is None:
         return False
@@ -242,9 +293,12 @@ def _analysed_subject(context: AppContext, data, roles: dict, settings: dict, pi
     return selection is not None and picked in set(map(str, selection.subject_ids))
 
 
-def _covariate_options(covariates) -> list[dict]:
-    """Choices of the covariate and grouping dropdowns: the columns chosen as covariates."""
-    return [option(c, c) for c in (covariates or [])]
+def _covariate_options(covariates, roles=None) -> list[dict]:
+    """Choices of the covariate and grouping dropdowns: the columns chosen as covariates, by
+    their display labels when they have one."""
+    name = roles.label if roles is not None else (lambda c: c)
+    return [option(name(c) if name(c) == c else f"{name(c)} ({c})", c)
+            for c in (covariates or [])]
 
 
 def _same_query(a, b) -> bool:

@@ -29,6 +29,10 @@ ROLE_FIELDS = ("subject", "time", "event_date", "response", "covariates", "follo
 ROLE_INPUT = {r: f"roles-{r.replace('_', '-')}" for r in ROLE_FIELDS}
 ROLE_MSG = {r: f"roles-{r.replace('_', '-')}-msg" for r in ROLE_FIELDS}
 ROLES_STATUS = "roles-status"
+#: roles whose column can carry a display label typed beside its dropdown (the covariates'
+#: label names the primary, first, covariate)
+LABEL_ROLES = ("time", "event_date", "response", "covariates")
+ROLE_LABEL = {r: f"roles-{r.replace('_', '-')}-label" for r in LABEL_ROLES}
 
 # -- settings panel: one control + one message per Settings field ------------
 SETTING_FIELDS = tuple(DECLARED)     # every declared setting, in field order

@@ -112,13 +112,33 @@ def _register_page(app, context: AppContext) -> None:
 
 
 # ------------------------------------------------------------------ running
+def request_logging(verbose: bool) -> None:
+    """One log line per request only when ``verbose``; otherwise the server's request log
+    (werkzeug) says warnings and errors only."""
+    logging.basicConfig(level=logging.INFO, format="%(levelname)s %(name)s: %(message)s")
+    logging.getLogger("werkzeug").setLevel(logging.INFO if verbose else logging.WARNING)
+
+
+def open_browser_later(url: str, delay: float = 1.0):
+    """Open ``url`` in the default browser once the server has had ``delay`` s to start."""
+    import threading
+    import webbrowser
+
+    timer = threading.Timer(delay, webbrowser.open, args=(url,))
+    timer.daemon = True
+    timer.start()
+    return timer
+
+
 def run_server(*, data_path=None, roles: Roles | None = None, settings: Settings | None = None,
                host: str = "127.0.0.1", port: int = 8050, debug: bool = False,
-               cache_mb: float = DEFAULT_CACHE_MB) -> None:
-    """Serve the dashboard until interrupted (loopback only unless ``host`` says otherwise)."""
+               cache_mb: float = DEFAULT_CACHE_MB, verbose: bool = False,
+               open_browser: bool = False) -> None:
+    """Serve the dashboard until interrupted (loopback only unless ``host`` says otherwise);
+    quiet unless ``verbose``; ``open_browser`` opens the page in the default browser."""
     from analysis.preparation.demo import DEMO_CSV
 
-    logging.basicConfig(level=logging.INFO, format="%(levelname)s %(name)s: %(message)s")
+    request_logging(verbose)
     if data_path is None or Path(data_path) == DEMO_CSV:
         app = create_app(roles=roles, settings=settings, cache_mb=cache_mb)
     else:
@@ -130,7 +150,10 @@ def run_server(*, data_path=None, roles: Roles | None = None, settings: Settings
     if host not in ("127.0.0.1", "localhost", "::1"):
         print(f"cohortlens: WARNING binding {host}: other computers on the network can reach "
               "this dashboard and its data.")
-    print(f"cohortlens: open http://{'127.0.0.1' if host == '0.0.0.0' else host}:{port}/ "
+    url = f"http://{'127.0.0.1' if host == '0.0.0.0' else host}:{port}/"
+    print(f"cohortlens: open {url} "
           "(Ctrl+C stops it). Exploratory research statistics, not for individual care "
           "decisions.", flush=True)
+    if open_browser:
+        open_browser_later(url)
     app.run(host=host, port=port, debug=bool(debug))

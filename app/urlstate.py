@@ -17,7 +17,9 @@ from analysis.settings import DECLARED, Roles, Settings
 VIEW_DEFAULTS: dict = {"draw": 40, "seed": 1, "order": "slope"}
 LINE_ORDERS: tuple[str, ...] = ("slope", "intercept", "covariate", "subject")
 MAX_DRAW = 500
+MAX_SEED = 10**9
 
+_LABEL_PARAM = "label"
 _ROLE_PARAMS = {"subject": "col-subject", "time": "col-time", "response": "col-response",
                 "event_date": "col-event", "covariates": "col-cov", "followup_end": "col-fu-end"}
 
@@ -57,6 +59,8 @@ def encode(*, data_key: str | None, roles: Roles | None, settings: Settings,
                 pairs.extend((param, c) for c in value)
             elif value:
                 pairs.append((param, value))
+        # display labels: one "label=COLUMN=TEXT" each
+        pairs.extend((_LABEL_PARAM, f"{c}={t}") for c, t in roles.labels)
     now, ref = settings.to_dict(), base.to_dict()
     for f in fields(Settings):
         if now[f.name] != ref[f.name]:
@@ -111,8 +115,8 @@ def decode(query: str | None, *, base: Settings | None = None,
         try:
             changes[f.name] = _parse_setting(f.name, text)
         except ValueError as exc:
-            problems.append(f"link setting '{param_name(f.name)}={text}': {exc}; "
-                            "the default is used")
+            problems.append(f"The link's {param_name(f.name)}={text} was not used "
+                            f"({DECLARED[f.name].label}: {exc}); the start-up value is kept.")
     settings = _combine(base, changes, problems)
 
     view = dict(VIEW_DEFAULTS)
@@ -152,9 +156,16 @@ def _decode_roles(params: dict, base_roles: Roles | None, problems: list) -> Rol
         problems.append("the link names column roles but not " + ", ".join(missing)
                         + "; choose them under Data")
         return None
+    labels = {}
+    for item in params.get(_LABEL_PARAM) or []:
+        column, sep, text = item.partition("=")
+        if sep and column:
+            labels[column] = text
+        else:
+            problems.append(f"link display label '{item}': expected COLUMN=LABEL; left out")
     return Roles(subject=d["subject"], time=d["time"], response=d["response"],
                  covariates=d["covariates"], event_date=d.get("event_date") or None,
-                 followup_end=d.get("followup_end") or None)
+                 followup_end=d.get("followup_end") or None, labels=labels)
 
 
 def _parse_setting(name: str, text: str):
@@ -217,5 +228,6 @@ def _combine(base: Settings, changes: dict, problems: list) -> Settings:
         try:
             settings = settings.replace(**{name: value})
         except CohortError as exc:
-            problems.append(f"link setting '{param_name(name)}': {exc}; the default is used")
+            problems.append(f"The link's {param_name(name)} was not used: {exc} The start-up "
+                            "value is kept.")
     return settings

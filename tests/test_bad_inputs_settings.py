@@ -14,13 +14,13 @@ from app.cli import main
 BAD = Path(__file__).parent / "data" / "bad"
 
 SETTINGS_FILES = {
-    "settings_breaks_number.json": "breaks == 10, must be a list of numbers",
-    "settings_breaks_strings.json": "breaks holds '10', must be a list of numbers",
+    "settings_breaks_number.json": "Break points must be a list of numbers, e.g. [10, 20, 40], not 10",
+    "settings_breaks_strings.json": "Break points must be a list of numbers, e.g. [10, 20, 40]; '10' is not a number",
     "settings_numbers_as_strings.json": "must be a whole number from 1 to",
     "settings_list.json": "expected a JSON object of setting: value pairs, found a list",
     "settings_roles_string.json": "'roles' must be a JSON object",
-    "settings_huge_bins.json": "variogram_bins == 20000000, must be from 1 to 200",
-    "settings_center_boolean.json": "center == True",
+    "settings_huge_bins.json": "Time-apart bins must be a whole number from 1 to 200; 20000000 is too large",
+    "settings_center_boolean.json": "Centre at must be none, mean, median or a finite number, not True",
 }
 
 

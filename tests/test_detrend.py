@@ -116,11 +116,11 @@ def test_curve_agrees_with_fit_at_data_times_orthodont():
 
 def test_bad_options():
     p = make_panel()
-    with pytest.raises(SettingsError, match="detrend == 'quadratic'"):
+    with pytest.raises(SettingsError, match="Mean curve removed cannot be 'quadratic'"):
         detrend(p, method="quadratic")
-    with pytest.raises(SettingsError, match="spline_df == 0"):
+    with pytest.raises(SettingsError, match="Spline degrees of freedom must be a whole number of at least 1, not 0"):
         detrend(p, method="spline", spline_df=0)
-    with pytest.raises(SettingsError, match="lowess_frac == 0.0"):
+    with pytest.raises(SettingsError, match="Lowess span must be greater than 0 and at most 1; 0 is outside"):
         detrend(p, method="lowess", lowess_frac=0.0)
     with pytest.raises(DataError, match="groups has 3 entries"):
         detrend(p, method="linear", groups=np.zeros(3, dtype=int))

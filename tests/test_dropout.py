@@ -212,5 +212,5 @@ def test_bad_followup_end_is_explained(change, pattern):
 
 @pytest.mark.parametrize("value", ["30/06/2024", "2024-13-01", "soon", 20240630])
 def test_bad_data_cut_is_explained(value):
-    with pytest.raises(SettingsError, match="data_cut .* YYYY-MM-DD"):
+    with pytest.raises(SettingsError, match="Data cut \\(date\\) must be a date written YYYY-MM-DD"):
         Settings(data_cut=value)

@@ -146,7 +146,7 @@ def test_courses_one_panel_per_group_means_from_every_subject(res):
         np.testing.assert_allclose(np.asarray(tr.y, float), want["response"], rtol=1e-10)
     # the covariate is named once, in the figure title; each panel title is the group's
     # range with its subject count (reference: pandas nunique of subjects per group)
-    assert c.strata.name in fig.layout.title.text
+    assert c.roles.label(c.strata.name) in fig.layout.title.text     # its display label
     per = frame.groupby("stratum_label")["subject"].nunique()
     assert len(fig.layout.annotations) >= len(labels)
     for lab, ann in zip(labels, fig.layout.annotations):

@@ -144,7 +144,7 @@ def test_default_width_is_round_and_gives_about_eight_windows(lo, span):
 
 def test_bad_width_and_start():
     p = Panel.from_arrays(np.array([0, 0, 1]), np.array([0.0, 5.0, 1.0]), np.ones(3))
-    with pytest.raises(SettingsError, match="width == 0"):
+    with pytest.raises(SettingsError, match="Lag window width must be a number greater than 0, not 0"):
         lag_correlation(p, width=0)
     with pytest.raises(SettingsError, match="default_lag_width"):
         lag_correlation(p, width=None)

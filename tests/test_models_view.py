@@ -129,7 +129,7 @@ def test_overlay_figure_curves_and_labels(fitted):
     fig = out["fig"]
     assert fig.layout.title.text and fig.layout.xaxis.title.text == "time apart (months)"
     assert fig.layout.yaxis.title.text == "semivariance, (mL/min/1.73m²)²"
-    assert fig.layout.title.text.startswith("egfr: ")
+    assert fig.layout.title.text.startswith("eGFR: ")      # the demo's display label of egfr
     names = [t.name for t in fig.data]
     assert names[0].startswith("empirical") and len(names) == 1 + len(models.fits)
     fit = models.fits["intercept+slope (REML)"]

@@ -116,8 +116,11 @@ def test_report_effect_statement_is_the_one_from_analysis_effects(report, demo_s
     fit = direct.fits[direct.preferred]
     s = ex.cohort.settings
     summary = interaction_summary(fit, term="time × x", transform=s.transform,
-                                  covariate_label=f"baseline {ex.cohort.covariate}",
-                                  response_label="egfr", time_unit=s.unit,
+                                  # the demo's display labels name the columns
+                                  covariate_label="baseline "
+                                  + ex.cohort.roles.label(ex.cohort.covariate),
+                                  response_label=ex.cohort.roles.label("egfr"),
+                                  time_unit=s.unit,
                                   response_unit=ex.cohort.response_unit)
     visible = " ".join(parse(text).text)
     assert summary.statement in visible
@@ -157,7 +160,7 @@ def test_cli_report_writes_a_file(tmp_path, demo_slice, capsys):
 @pytest.mark.parametrize("extra, pattern", [
     (["--models", "bogus"], "structures ['bogus'] not known"),
     (["--confounders", "urine_protein_ratio"], "is the primary covariate"),
-    (["--min-visits", "0"], "min_visits == 0, must be from 1 to 1000"),
+    (["--min-visits", "0"], "Fewest visits per subject must be a whole number from 1 to 1000; 0 is too small"),
 ])
 def test_cli_report_bad_input_exits_2(tmp_path, demo_slice, capsys, extra, pattern):
     csv = tmp_path / "slice.csv"

@@ -15,16 +15,18 @@ def test_json_round_trip_and_hash():
 
 
 @pytest.mark.parametrize("kwargs, pattern", [
-    ({"origin": "start"}, r"origin == 'start', must be one of"),
-    ({"min_visits": 0}, r"min_visits == 0, must be from 1 to 1000"),
-    ({"min_visits": 2.5}, r"min_visits == 2.5, must be a whole number"),
-    ({"transform": "sqrt"}, r"transform == 'sqrt'"),
-    ({"center": "mode"}, r"center == 'mode'"),
-    ({"strata_method": "custom"}, r"needs breaks"),
+    ({"origin": "start"}, r"Time origin cannot be 'start'; choose as-is, event-date or"),
+    ({"min_visits": 0}, r"Fewest visits per subject must be a whole number from 1 to 1000; "
+                        r"0 is too small"),
+    ({"min_visits": 2.5}, r"Fewest visits per subject must be a whole number .*not 2.5"),
+    ({"transform": "sqrt"}, r"Transform cannot be 'sqrt'"),
+    ({"center": "mode"}, r"Centre at must be none, mean, median or a number, not 'mode'"),
+    ({"strata_method": "custom"}, r"needs Break points"),
     ({"strata_method": "custom", "breaks": (3, 2)}, r"strictly increasing"),
-    ({"time_min": 5, "time_max": 1}, r"time window \[5, 1\] is empty"),
-    ({"lag_width": 0}, r"lag_width == 0, must be > 0"),
-    ({"lowess_frac": 1.5}, r"lowess_frac == 1.5"),
+    ({"time_min": 5, "time_max": 1},
+     r"^Window from \(5\) must be smaller than Window to \(1\)\.$"),
+    ({"lag_width": 0}, r"Lag window width must be greater than 0; 0 is outside"),
+    ({"lowess_frac": 1.5}, r"Lowess span must be greater than 0 and at most 1; 1.5 is"),
 ])
 def test_bad_settings_name_the_field_and_the_rule(kwargs, pattern):
     with pytest.raises(SettingsError, match=pattern):

@@ -16,7 +16,7 @@ from analysis.preparation.demo import demo_roles, demo_settings, load_demo
 from analysis.errors import SettingsError
 from analysis.preparation.loading import Dataset
 from analysis.pipeline import Workbench
-from analysis.settings import COUNT_LIMITS, Settings
+from analysis.settings import COUNT_LIMITS, DECLARED, Settings
 
 
 @pytest.mark.parametrize("field", sorted(COUNT_LIMITS))
@@ -27,7 +27,8 @@ def test_count_settings_outside_their_range_name_field_and_range(field, value):
     with pytest.raises(SettingsError) as info:
         Settings(**{field: value})
     assert info.value.field == field
-    assert field in str(info.value) and f"from 1 to {hi}" in str(info.value)
+    # the message names the setting as the settings panel labels it
+    assert DECLARED[field].label in str(info.value) and f"from 1 to {hi}" in str(info.value)
 
 
 @pytest.mark.parametrize("field", sorted(COUNT_LIMITS))

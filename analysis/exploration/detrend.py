@@ -107,7 +107,8 @@ def detrend(panel: Panel, *, method: str, spline_df: int = 4, lowess_frac: float
     """
     check_choice(method, opt.DETRENDS)
     if isinstance(spline_df, bool) or not isinstance(spline_df, (int, np.integer)) or spline_df < 1:
-        raise SettingsError(f"spline_df == {spline_df!r}, must be an integer >= 1",
+        raise SettingsError(f"Spline degrees of freedom must be a whole number of at least 1, "
+                            f"not {spline_df!r}.",
                             field="spline_df")
     lowess_frac = float(lowess_frac)
     check_value("lowess_frac", lowess_frac)

@@ -21,6 +21,7 @@ from ..errors import DataError, SettingsError
 from .lagbins import bin_count, bin_index
 from ..preparation.panel import Panel
 from ..jsonsafe import json_float
+from ..numbers import format_number
 
 #: fewer subjects in both windows than this gives a NaN correlation (count kept)
 MIN_PAIRS = 3
@@ -164,8 +165,10 @@ def lag_correlation(panel: Panel, *, width: float, start: float | None = None
         raise SettingsError(f"start == {start!r}, must be a number <= the earliest time {tmin:g}")
     n_win = bin_count(start, tmax, width=width)
     if n_win > MAX_WINDOWS:
-        raise SettingsError(f"width == {width:g} cuts the time range {start:g}..{tmax:g} into "
-                            f"{n_win} windows, more than {MAX_WINDOWS}; choose a wider window")
+        raise SettingsError(f"Lag window width {format_number(width)} cuts the time from "
+                            f"{format_number(start)} to {format_number(tmax)} into {n_win:,} "
+                            f"windows, more than {MAX_WINDOWS}; choose a wider window.",
+                            field="lag_width")
     # shared edge rule (analysis.exploration.lagbins): a time lying on an edge up to float rounding
     # (e.g. 0.3 with width 0.1) is in the upper window
     k = bin_index(t, start=start, width=width, n=n_win)
@@ -215,5 +218,6 @@ def _check_width(width) -> float:
     except (TypeError, ValueError):
         raise SettingsError(f"width == {width!r}, must be a number > 0") from None
     if not (np.isfinite(w) and w > 0):
-        raise SettingsError(f"width == {width!r}, must be a number > 0")
+        raise SettingsError(f"Lag window width must be a number greater than 0, not {width!r}.",
+                            field="lag_width")
     return w

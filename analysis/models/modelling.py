@@ -341,11 +341,16 @@ def _preferred(ok) -> str | None:
 def _labels(cohort) -> dict:
     settings = getattr(cohort, "settings", None)
     roles = getattr(cohort, "roles", None)
-    cov = getattr(cohort, "covariate", None) or "the covariate"
+    cov = getattr(cohort, "covariate", None)
+    response = getattr(roles, "response", None)
+    if roles is not None and hasattr(roles, "label"):        # display labels (Roles.labels)
+        cov, response = roles.label(cov), roles.label(response)
+    cov = cov or "the covariate"
     return {
         "transform": getattr(settings, "transform", "none"),
-        "covariate_label": f"baseline {cov}",
-        "response_label": getattr(roles, "response", None) or "response",
+        # "baseline" once, even when the name says it already ("Baseline marker")
+        "covariate_label": cov if cov.lower().startswith("baseline") else f"baseline {cov}",
+        "response_label": response or "response",
         "response_unit": getattr(cohort, "response_unit", None) or "",
         "time_unit": getattr(settings, "unit", None) or "time units",
     }

@@ -17,7 +17,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from ..numbers import fmt, fmt_p, interval
+from ..numbers import fmt, fmt_p, format_number, interval
 
 TITLE = "cohortlens analysis report"
 CAUTIONS = (
@@ -488,7 +488,7 @@ def build_report(cohort, exploration=None, models=None, *, data_name: str = "dat
     parts.append("<h2>Who is analysed</h2>")
     parts.append(_p(f"{cohort.panel.n_subjects:,} subjects and {cohort.panel.n_obs:,} visits. "
                     f"Time: {cohort.time_label}. Primary covariate: "
-                    f"{cohort.covariate or 'none'} (transform {s.transform}, centring "
+                    f"{cohort.roles.label(cohort.covariate) or 'none'} (transform {s.transform}, centring "
                     f"{s.center}, centre value {fmt(cohort.center_value)} on the transformed "
                     "scale)."))
     att = cohort.attrition.to_frame().rename(columns={

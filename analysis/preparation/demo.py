@@ -108,6 +108,9 @@ def demo_roles() -> Roles:
         event_date="tx_date",
         response_unit="mL/min/1.73m²",
         covariate_unit="mg/mmol",
+        labels={"egfr": "eGFR", "urine_protein_ratio": "urine protein ratio",
+                "tx_date": "transplant", "visit_date": "visit date",
+                "age_at_tx": "age at transplant", "donor_type": "donor type"},
     )
 
 

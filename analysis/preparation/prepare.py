@@ -234,7 +234,7 @@ class PreparedCohort:
     @property
     def covariate_label(self) -> str:
         """The primary covariate as the effect statement names it, e.g. 'log2(marker)'."""
-        c = self.covariate or "covariate"
+        c = self.roles.label(self.covariate) or "covariate"      # its display label
         t = self.settings.transform
         return c if t == "none" else f"{t}({c})"
 
@@ -712,7 +712,7 @@ def _sort_key(v):
 def _time_label(roles: Roles, settings: Settings) -> str:
     unit = settings.unit.capitalize()
     if settings.origin == "event-date":
-        return f"{unit} since {roles.event_date}"
+        return f"{unit} since {roles.label(roles.event_date)}"
     if settings.origin == "first-visit":
         return f"{unit} since first visit"
-    return f"{roles.time} ({settings.unit})"
+    return f"{roles.label(roles.time)} ({settings.unit})"

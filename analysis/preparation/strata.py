@@ -170,12 +170,12 @@ def center_values(x, center, *, name: str = "covariate") -> tuple[np.ndarray, fl
     """
     x = np.asarray(x, dtype=float)
     if isinstance(center, bool):
-        raise SettingsError(f"center == {center!r}, must be one of {list(opt.CENTER_WORDS)} or a number",
-                            field="center")
+        raise SettingsError(f"Centre at must be {', '.join(opt.CENTER_WORDS)} or a number, "
+                            f"not {center!r}.", field="center")
     if isinstance(center, str):
         if center not in opt.CENTER_WORDS:
             raise SettingsError(
-                f"center == {center!r}, must be one of {list(opt.CENTER_WORDS)} or a number",
+                f"Centre at must be {', '.join(opt.CENTER_WORDS)} or a number, not {center!r}.",
                 field="center")
         if center == "none":
             return x.copy(), 0.0
@@ -187,7 +187,8 @@ def center_values(x, center, *, name: str = "covariate") -> tuple[np.ndarray, fl
     else:
         value = float(center)
         if not math.isfinite(value):
-            raise SettingsError(f"center == {center!r}, must be a finite number", field="center")
+            raise SettingsError(f"Centre at must be a finite number, not {center!r}.",
+                                field="center")
     return x - value, value
 
 
@@ -234,7 +235,8 @@ def cut_strata(values, *, method: str, n: int = 4, breaks=(), name: str = "covar
     """
     check_choice(method, opt.STRATA_METHODS)
     if isinstance(n, bool) or not isinstance(n, (int, np.integer)) or n < 1:
-        raise SettingsError(f"n_strata == {n!r}, must be an integer >= 1", field="n_strata")
+        raise SettingsError(f"Number of groups must be a whole number of at least 1, not {n!r}.",
+                            field="n_strata")
     check_choice(transform, opt.TRANSFORMS)
     v = np.asarray(values, dtype=float)
     if v.ndim != 1:
@@ -262,10 +264,11 @@ def cut_strata(values, *, method: str, n: int = 4, breaks=(), name: str = "covar
     else:
         b = np.asarray(tuple(breaks), dtype=float)
         if b.size == 0:
-            raise SettingsError("the custom method needs breaks, e.g. breaks=(1.5, 3.0)",
+            raise SettingsError("Your own groups need Break points, e.g. 10, 20, 40.",
                                 field="breaks")
         if np.any(np.diff(b) <= 0):
-            raise SettingsError(f"breaks {b.tolist()} must be strictly increasing", field="breaks")
+            raise SettingsError(f"Break points {', '.join(f'{x:g}' for x in b)} must be strictly "
+                                "increasing: each larger than the one before.", field="breaks")
         for x in b:
             if not lo < x < hi:
                 raise SettingsError(

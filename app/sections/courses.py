@@ -19,7 +19,7 @@ from ..figures import (GL_POINTS, PANEL_TITLE_SIZE, CohortLook, _finish, _presen
                        _segments, _strength, cohort_look)
 from ..figures import courses_figure, panel_title, sample_subjects  # noqa: F401  (Dash-free: the report draws it too)
 from ..session import AppContext
-from ..urlstate import VIEW_DEFAULTS
+from ..urlstate import MAX_DRAW, MAX_SEED, VIEW_DEFAULTS
 from ..views import HIGHLIGHT, STORES, finish, render_key, skip_if_same, stage_call
 
 ANCHOR = "section-course"
@@ -29,12 +29,15 @@ NAV = "Courses over time"
 def layout(settings=None, max_upload_bytes=None):
     return section(ANCHOR, "Courses over time, by group",
                    "One panel per group; a reproducible random sample of subjects is drawn "
-                   "in each, with the group's smoothed mean.",
+                   "in each, with the group's binned mean (the mean of every subject's visits in each "
+                   "time bin).",
                    html.Div(className="cl-view-controls", children=[
                        html.Label("Subjects drawn per group", className="cl-label"),
-                       number(ids.COURSE_DRAW, VIEW_DEFAULTS["draw"], step=1, min_=1),
+                       number(ids.COURSE_DRAW, VIEW_DEFAULTS["draw"], step=1, min_=1,
+                              max_=MAX_DRAW),
                        html.Label("Sample number", className="cl-label"),
-                       number(ids.COURSE_SEED, VIEW_DEFAULTS["seed"], step=1, min_=1),
+                       number(ids.COURSE_SEED, VIEW_DEFAULTS["seed"], step=1, min_=1,
+                              max_=MAX_SEED),
                        html.Span(id=ids.COURSE_NOTE, className="cl-note"),
                    ]),
                    message(ids.COURSE_MSG),

@@ -51,6 +51,20 @@ def layout(settings: Settings | None = None,
          "Per subject: when its follow-up was due to end (date or time), so that leaving early "
          "is told apart from the end of the data."),
     ]
+    def pick(r, multi):
+        """A role's dropdown, with a small display-label field beside it when it has one."""
+        drop = dcc.Dropdown(id=ids.ROLE_INPUT[r], multi=multi, options=[],
+                            placeholder="choose a column…", clearable=True)
+        if r not in ids.ROLE_LABEL:
+            return drop
+        return html.Div(className="cl-role-pick", children=[
+            drop, html.Div(title=("Display label used in titles, axes, tables and statements "
+                                  "instead of the column name" +
+                                  (" (the primary covariate's)" if multi else "")),
+                           children=dcc.Input(id=ids.ROLE_LABEL[r], type="text", value="",
+                                              debounce=True, placeholder="label",
+                                              className="cl-input cl-label-input"))])
+
     return section(ANCHOR, "Data & column roles",
                    "Upload a CSV or Parquet table with one row per visit. It is read in memory "
                    "on this computer and never saved to disk.",
@@ -64,18 +78,12 @@ def layout(settings: Settings | None = None,
                    ]),
                    message(ids.DATA_UPLOAD_MSG),
                    html.Div(className="cl-roles", children=[
-                       *[field(label, dcc.Dropdown(id=ids.ROLE_INPUT[r], multi=multi, options=[],
-                                                   placeholder="choose a column…",
-                                                   clearable=True),
-                               ids.ROLE_MSG[r], hint)
+                       *[field(label, pick(r, multi), ids.ROLE_MSG[r], hint)
                          for r, label, multi, hint in role_rows[:2]],
                        # read with the time role: how year-last dates in the time and
                        # event-date columns are read
                        setting_field("date_order", ctl.control_values(settings or Settings())),
-                       *[field(label, dcc.Dropdown(id=ids.ROLE_INPUT[r], multi=multi, options=[],
-                                                   placeholder="choose a column…",
-                                                   clearable=True),
-                               ids.ROLE_MSG[r], hint)
+                       *[field(label, pick(r, multi), ids.ROLE_MSG[r], hint)
                          for r, label, multi, hint in role_rows[2:]]]),
                    html.Div(id=ids.ROLES_STATUS, className="cl-status"),
                    html.Details(className="cl-preview", open=True, children=[
@@ -92,8 +100,11 @@ def layout(settings: Settings | None = None,
 def register(app, context: AppContext) -> None:
     """The roles store (the upload, the demo button and the previews are the hub's)."""
     @app.callback(Output(ids.STORE_ROLES, "data"),
-                  *[Input(ids.ROLE_INPUT[r], "value") for r in ids.ROLE_FIELDS])
+                  *[Input(ids.ROLE_INPUT[r], "value") for r in ids.ROLE_FIELDS],
+                  *[Input(ids.ROLE_LABEL[r], "value") for r in ids.LABEL_ROLES])
     def roles_store(*values):
-        roles, problems = ctl.roles_from_controls(dict(zip(ids.ROLE_FIELDS, values)),
-                                                  known=context.default_roles)
+        n = len(ids.ROLE_FIELDS)
+        picked = dict(zip(ids.ROLE_FIELDS, values[:n]))
+        picked["labels"] = dict(zip(ids.LABEL_ROLES, values[n:]))
+        roles, problems = ctl.roles_from_controls(picked, known=context.default_roles)
         return {"roles": roles.to_dict() if roles else None, "problems": problems}

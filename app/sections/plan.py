@@ -95,7 +95,7 @@ def plan_section() -> html.Section:
                                                 placeholder="0, 6, 12, 24",
                                                 className="cl-input"), "schedule",
                "since the origin, in the cohort's time unit, separated by commas"),
-        _field("Dropout rate per time unit", dcc.Input(id=DROPOUT, type="number", min=0,
+        _field("Dropout rate per time unit", dcc.Input(id=DROPOUT, type="number", min=0, max=None,
                                                        step="any", debounce=True,
                                                        className="cl-input"), "dropout",
                "constant hazard; starts at this cohort's rate"),

@@ -10,6 +10,8 @@ import pandas as pd
 import plotly.graph_objects as go
 from dash import Output, State, dash_table, html
 
+from analysis.numbers import fmt, interval
+
 from .. import ids
 from .. import palette as pal
 from ..components import graph, message, section
@@ -23,6 +25,8 @@ from ..views import HIGHLIGHT, STORES, finish, render_key, skip_if_same, summary
 
 ANCHOR = "section-rate"
 NAV = "Rate of change vs covariate"
+#: the group table's first-read columns (group, subjects, median slope, its quartiles)
+RATE_TABLE_MAIN = "rate-table-main"
 
 
 def layout(settings=None, max_upload_bytes=None):
@@ -34,16 +38,25 @@ def layout(settings=None, max_upload_bytes=None):
                        graph(ids.RATE_STRATA_GRAPH, 440),
                        graph(ids.RATE_COVARIATE_GRAPH, 440),
                    ]),
-                   dash_table.DataTable(id=ids.RATE_TABLE, style_as_list_view=True,
-                                        merge_duplicate_headers=True,
+                   # the columns a clinician reads first; every column folded below
+                   dash_table.DataTable(id=RATE_TABLE_MAIN, style_as_list_view=True,
                                         style_cell={"fontFamily": "inherit", "fontSize": "15px",
                                                     "padding": "4px 10px"},
-                                        style_header={"fontWeight": "600"}))
+                                        style_header={"fontWeight": "600"}),
+                   html.Details(className="cl-fold", children=[
+                       html.Summary("All columns: covariate range, visits, slope quartiles"),
+                       dash_table.DataTable(id=ids.RATE_TABLE, style_as_list_view=True,
+                                            merge_duplicate_headers=True,
+                                            style_cell={"fontFamily": "inherit",
+                                                        "fontSize": "15px",
+                                                        "padding": "4px 10px"},
+                                            style_header={"fontWeight": "600"})]))
 
 
 def register(app, context: AppContext) -> None:
     @app.callback(Output(ids.RATE_STRATA_GRAPH, "figure"), Output(ids.RATE_COVARIATE_GRAPH, "figure"),
                   Output(ids.RATE_TABLE, "data"), Output(ids.RATE_TABLE, "columns"),
+                  Output(RATE_TABLE_MAIN, "data"), Output(RATE_TABLE_MAIN, "columns"),
                   Output(ids.RATE_MSG, "children"), Output(ids.VIEW_RENDERED["rate"], "data"),
                   *STORES, *HIGHLIGHT, State(ids.VIEW_RENDERED["rate"], "data"))
     def rate(data, roles, settings, subject, stratum, last):
@@ -62,14 +75,32 @@ def register(app, context: AppContext) -> None:
                                               highlight_subject=subject,
                                               highlight_stratum=stratum),
                     table.astype(object).where(table.notna(), None).to_dict("records"),
-                    columns)
+                    columns, *first_read_table(summ.stratum_table, cohort))
 
-        return finish(make, "summarising rates of change", key, ("fig", "fig", "list", "list"))
+        return finish(make, "summarising rates of change", key,
+                      ("fig", "fig", "list", "list", "list", "list"))
+
+
+def first_read_table(table: pd.DataFrame, cohort) -> tuple[list[dict], list[dict]]:
+    """Rows and columns of the short group table: group, subjects, the median subject slope
+    and the lower to upper quartile of the slopes (display text, true minus)."""
+    unit = cohort.settings.unit
+    per = f"per {unit[:-1] if unit.endswith('s') else unit}"
+    rows = []
+    for _, r in table.iterrows():
+        rows.append({"label": str(r.get("label", "")),
+                     "subjects": fmt(r.get("subjects")),
+                     "slope_median": fmt(r.get("slope_median"), 3),
+                     "slope_range": interval(r.get("slope_q1"), r.get("slope_q3"), 3)})
+    columns = [{"name": "group", "id": "label"}, {"name": "subjects", "id": "subjects"},
+               {"name": f"median slope ({per})", "id": "slope_median"},
+               {"name": "middle half of slopes (quartiles)", "id": "slope_range"}]
+    return rows, columns
 
 
 def rate_table_columns(present, cohort) -> list[dict]:
     """Two-row headers for the group summary table (the internal group code is left out)."""
-    cov = short(cohort.covariate or "covariate")
+    cov = short(cohort.roles.label(cohort.covariate) or "covariate")
     unit = cohort.settings.unit
     per = f"slope per {unit[:-1] if unit.endswith('s') else unit}"
     spec = [

@@ -9,6 +9,7 @@ from analysis.numbers import fmt, signed_term
 
 from .. import ids
 from ..components import busy
+from ..figures import cohort_look
 from ..session import AppContext, attempt
 from ..text import short
 from ..views import stage_call
@@ -59,22 +60,38 @@ def _card(context, data, roles, settings, subject):
         return html.Span(f"Subject {subject} is not in the analysed cohort with these choices.",
                          className="cl-hint")
     r = row.iloc[0]
-
     se = f" (SE {fmt(r['slope_se'], 3)})" if "slope_se" in row.columns else ""
     cov = cohort.covariate
+    look = cohort_look(cohort)
     head = html.Div(className="cl-card-head", children=[
         html.Strong(f"Subject {short(subject)}"),
-        html.Span(f"group {short(r['stratum_label'])}"),
-        *([html.Span(f"{short(cov)} = {short(r['covariate'])}")] if cov else []),
-        html.Span(f"{len(mine)} visits"),
-        html.Span(f"fitted line: {fmt(r['intercept'], 3)} {signed_term(r['slope'], 3)}{se} × time"),
+        html.Details(className="cl-card-visits-toggle", children=[
+            html.Summary(f"{len(mine)} visits", title="show this subject's visits"),
+            html.Div(visits_table(mine, cohort, look), className="cl-card-visits")]),
+        html.Span(f"line: {line_text(r['intercept'], r['slope'])}{se}",
+                  title="this subject's own straight line (OLS)"),
+        html.Span(f"group {short(r['stratum_label'])}", className="cl-card-line"),
+        *([html.Span(f"{short(look.covariate or cov)} {fmt(r['covariate'], 4)}",
+                     className="cl-card-line")] if cov else []),
     ])
-    visits = dash_table.DataTable(
-        data=[{"time": round(float(t), 2), "response": round(float(y), 2)}
+    return [head]
+
+
+def line_text(intercept, slope) -> str:
+    """"75.2 − 0.113 × time": a straight line with a true minus and never "+ −"."""
+    try:
+        b = float(slope)
+    except (TypeError, ValueError):
+        return "—"
+    return f"{fmt(intercept, 3)} {signed_term(b, 3)} × time"
+
+
+def visits_table(mine, cohort, look):
+    return dash_table.DataTable(
+        data=[{"time": fmt(t, 4), "response": fmt(y, 4)}
               for t, y in zip(mine["time"], mine["response"])],
         columns=[{"name": short(cohort.time_label), "id": "time"},
-                 {"name": short(cohort.roles.response), "id": "response"}],
+                 {"name": short(look.response), "id": "response"}],
         fill_width=False,
-        style_table={"maxHeight": "8rem", "overflowY": "auto"},
+        style_table={"maxHeight": "13rem", "overflowY": "auto"},
         style_cell={"fontFamily": "inherit", "fontSize": "14px", "padding": "2px 8px"})
-    return [head, html.Div(visits, className="cl-card-visits")]
