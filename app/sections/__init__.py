@@ -11,9 +11,11 @@ from __future__ import annotations
 
 from . import (courses, data, followup, kept, lagcorr, lines, models, plan, rate, selection,
                semivariogram)
+from . import summary
 
 #: page order
 SECTIONS = (
+    summary,
     data,
     kept,
     selection,
