@@ -32,13 +32,14 @@ def _strip_counts(page) -> tuple[int, int]:
 
 
 def _top_gap(page, anchor: str) -> float:
-    """Distance from the bottom of what stays fixed (header; the groups bar when stuck) to the
+    """Distance from the bottom of what stays fixed (header; the groups bar when sticky) to the
     top of a section."""
     return page.evaluate("""(id) => {
         const head = document.querySelector('.cl-head').getBoundingClientRect().bottom;
         const bar = document.querySelector('.cl-selection');
         const target = document.getElementById(id);
-        const after = bar && (bar.compareDocumentPosition(target) & Node.DOCUMENT_POSITION_FOLLOWING);
+        const after = bar && getComputedStyle(bar).position === 'sticky' &&
+            (bar.compareDocumentPosition(target) & Node.DOCUMENT_POSITION_FOLLOWING);
         const fixed = head + (after ? bar.getBoundingClientRect().height : 0);
         return target.getBoundingClientRect().top - fixed; }""", anchor)
 
