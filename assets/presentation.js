@@ -62,6 +62,53 @@
     if (tag === "INPUT" || tag === "TEXTAREA" || tag === "SELECT") { return true; }
     return !!(el.closest && el.closest(".dash-dropdown, .Select, [role=listbox], [role=combobox]"));
   }
+  /* figures: every font of a figure grows by SCALE while presenting. Idempotent: a figure
+     remembers the base font size it was scaled from, and a figure the page redraws (new
+     layout from the server) is scaled again on the next check. */
+  var SCALE = 1.35;
+  function fontPaths(layout) {
+    var out = [["font.size", layout.font && layout.font.size],
+               ["title.font.size", layout.title && layout.title.font && layout.title.font.size],
+               ["title.subtitle.font.size", layout.title && layout.title.subtitle &&
+                 layout.title.subtitle.font && layout.title.subtitle.font.size],
+               ["legend.font.size", layout.legend && layout.legend.font && layout.legend.font.size],
+               ["hoverlabel.font.size", layout.hoverlabel && layout.hoverlabel.font &&
+                 layout.hoverlabel.font.size]];
+    ["t", "b", "l"].forEach(function (side) {      /* room for the larger titles and legend */
+      out.push(["margin." + side, layout.margin && layout.margin[side]]);
+    });
+    Object.keys(layout).forEach(function (key) {
+      if (/^[xy]axis\d*$/.test(key) && layout[key]) {
+        var ax = layout[key];
+        out.push([key + ".title.font.size", ax.title && ax.title.font && ax.title.font.size]);
+        out.push([key + ".tickfont.size", ax.tickfont && ax.tickfont.size]);
+      }
+    });
+    (layout.annotations || []).forEach(function (a, i) {
+      out.push(["annotations[" + i + "].font.size", a && a.font && a.font.size]);
+    });
+    return out.filter(function (p) { return typeof p[1] === "number"; });
+  }
+  function scaleFigure(gd, on) {
+    var layout = gd.layout;
+    if (!window.Plotly || !layout || !gd.data || !gd.data.length) { return; }
+    var size = layout.font && layout.font.size;
+    var scaled = gd._clScaledSize !== undefined && size === gd._clScaledSize;
+    if (on === scaled) { return; }
+    var f = on ? SCALE : 1 / SCALE, update = {};
+    fontPaths(layout).forEach(function (p) { update[p[0]] = Math.round(p[1] * f * 10) / 10; });
+    if (typeof size !== "number") { update["font.size"] = Math.round(12 * f * 10) / 10; }
+    gd._clScaledSize = on ? update["font.size"] : undefined;
+    window.Plotly.relayout(gd, update);
+  }
+  function scaleAll() {
+    var on = document.body.classList.contains("cl-present");
+    document.querySelectorAll(".js-plotly-plot").forEach(function (gd) {
+      if (on || gd._clScaledSize !== undefined) { scaleFigure(gd, on); }
+    });
+  }
+  window.setInterval(scaleAll, 700);
+
   document.addEventListener("keydown", function (e) {
     if (!document.body.classList.contains("cl-present")) { return; }
     if (e.altKey || e.ctrlKey || e.metaKey || typing(e.target)) { return; }

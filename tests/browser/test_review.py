@@ -78,6 +78,11 @@ def test_presentation_mode_round_trips_through_the_url_and_steps_by_keyboard(ser
     main_w = page.evaluate("document.querySelector('.cl-main').getBoundingClientRect().width")
     assert main_w > 1100                                          # the whole width for views
     page.screenshot(path=str(artifacts / "review-present-1280.png"))
+    # figures' fonts grow with the page's (the figure style's base size, app/figures.py FONT)
+    from app.figures import FONT
+    font_js = ("(((document.querySelector('#course-graph .js-plotly-plot') || {}).layout || {})"
+               ".font || {}).size")
+    page.wait_for_function(f"{font_js} > {FONT['size']}", timeout=TIMEOUT)
 
     # the keyboard steps through the page: each press moves down, and the sections come to
     # the top one after another (a section taller than the screen one screen at a time)
@@ -106,10 +111,12 @@ def test_presentation_mode_round_trips_through_the_url_and_steps_by_keyboard(ser
     page.wait_for_function("!document.body.classList.contains('cl-present')", timeout=TIMEOUT)
     assert page.is_visible(".cl-side")
     assert page.inner_text("#present-toggle") == "Present"
+    page.wait_for_function(f"{font_js} === {FONT['size']}", timeout=TIMEOUT)
     page.click("#present-toggle")
     page.wait_for_function("location.search.includes('present=1')", timeout=TIMEOUT)
     page.wait_for_function("document.body.classList.contains('cl-present')", timeout=TIMEOUT)
-    # a settings change keeps the flag in the address
+    # Escape leaves presentation mode
+    page.mouse.click(5, 790)
     page.keyboard.press("Escape")
     page.wait_for_function("!location.search.includes('present')", timeout=TIMEOUT)
 
