@@ -58,9 +58,11 @@ def cohort_items(ov) -> list:
                    title="Subjects and visits analysed; follow-up is the time of each subject's "
                          "last analysed visit after the origin.")
     k = len(ov.group_sizes)
-    if ov.stratifier and k:
+    if not ov.covariate and (not ov.stratifier or k <= 1):
+        groups_text, title = "no baseline covariate chosen (one group of all subjects)", ""
+    elif ov.stratifier and k:
         lo, hi = min(ov.group_sizes), max(ov.group_sizes)
-        sizes = f"n {lo:,} each" if lo == hi else f"n {lo:,}–{hi:,}"
+        sizes = f"n {lo:,}" + (" each" if k > 1 else "") if lo == hi else f"n {lo:,}–{hi:,}"
         none = f", {ov.no_value:,} without a value" if ov.no_value else ""
         primary = f"{ov.covariate_label}: " if ov.covariate else ""
         groups_text = (f"{primary}{k} group{'s' if k > 1 else ''}"
