@@ -140,7 +140,9 @@ def register(app, context: AppContext) -> None:
     @app.callback(output=dict(search=Output(ids.PAGE_URL, "search", allow_duplicate=True),
                               models=model_outputs, note=Output(NOTE, "children",
                                                                 allow_duplicate=True),
-                              msg=Output(MSG, "children", allow_duplicate=True)),
+                              msg=Output(MSG, "children", allow_duplicate=True),
+                              # emptied, so that opening the same file again applies it again
+                              reset=Output(IMPORT, "contents")),
                   inputs=dict(contents=Input(IMPORT, "contents"),
                               filename=State(IMPORT, "filename"),
                               data=State(ids.STORE_DATA, "data"),
@@ -150,17 +152,18 @@ def register(app, context: AppContext) -> None:
     def open_file(contents, filename, data, roles, search):
         unchanged = {f: no_update for f in model_outputs}
         if not contents:
-            return dict(search=no_update, models=unchanged, note=no_update, msg=no_update)
+            return dict(search=no_update, models=unchanged, note=no_update, msg=no_update,
+                        reset=no_update)
         name = filename or "choices file"
         value, msg, _ = attempt(
             lambda: import_query(context, decode_upload(contents, name), name, data, roles,
                                  search), what=f"reading {name}")
         if value is None:
             return dict(search=no_update, models=unchanged, note="",
-                        msg=f"Nothing was changed. {msg}")
+                        msg=f"Nothing was changed. {msg}", reset=None)
         query, choices, note = value
         models = unchanged
         if choices is not None:
             d = choices.to_dict()
             models = {f: d[f] for f in model_outputs}
-        return dict(search=query, models=models, note=note, msg="")
+        return dict(search=query, models=models, note=note, msg="", reset=None)

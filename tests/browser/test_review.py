@@ -165,6 +165,13 @@ def test_choices_file_saved_from_the_page_opens_again_and_runs_in_the_cli(server
     assert _strip_counts(page) == shown
     assert "Applied" in page.inner_text("#travel-note")
 
+    # the same file again, after a change, applies it again
+    field.fill("4")
+    field.press("Enter")
+    page.wait_for_function("location.search.includes('min-visits=4')", timeout=TIMEOUT)
+    page.set_input_files("#travel-import input[type=file]", str(saved))
+    page.wait_for_function("location.search.includes('min-visits=6')", timeout=TIMEOUT)
+
     # a wrong file changes nothing and names the key
     bad = tmp_path / "bad.json"
     bad.write_text('{"settings": {"min_visits": 0}}', encoding="utf-8")
