@@ -18,6 +18,7 @@ from analysis.models.modelstage import ModelChoices
 from analysis.settings import Roles
 from analysis.settings_file import read_settings_document, settings_text
 
+from . import controls as ctl
 from . import ids, urlstate
 from .components import message
 from .hub import decode_upload
@@ -110,6 +111,19 @@ def import_query(context: AppContext, raw: bytes, name: str, data, roles, search
     return query, doc.models, f"Applied {', '.join(parts)} from {echo(name)}."
 
 
+_KEY_MESSAGE = re.compile(r"^(?P<head>.*?key 'settings\.(?P<field>\w+)'): (?P<rest>.*)$",
+                          re.DOTALL)
+
+
+def page_message(message: str) -> str:
+    """A settings-file message as the panel says it: the wrong key with its control's label,
+    the rest in the panel's words (``min_visits == 0`` → ``fewest visits per subject is 0``)."""
+    m = _KEY_MESSAGE.match(message)
+    if not m or m["field"] not in ctl.FIELD_LABELS:
+        return message
+    return f"{m['head']} ({ctl.FIELD_LABELS[m['field']]}): {ctl.plain_message(m['rest'])}"
+
+
 # ------------------------------------------------------------------ callbacks
 def register(app, context: AppContext) -> None:
     model_states = dict(structures=State(ids.MODELS_STRUCTURES, "value"),
@@ -160,7 +174,7 @@ def register(app, context: AppContext) -> None:
                                  search), what=f"reading {name}")
         if value is None:
             return dict(search=no_update, models=unchanged, note="",
-                        msg=f"Nothing was changed. {msg}", reset=None)
+                        msg=f"Nothing was changed. {page_message(msg)}", reset=None)
         query, choices, note = value
         models = unchanged
         if choices is not None:

@@ -115,3 +115,15 @@ def _text(component) -> str:
     if not isinstance(children, (list, tuple)):
         children = [children]
     return "".join(_text(c) for c in children)
+
+
+def test_a_wrong_key_is_said_with_its_controls_label():
+    with pytest.raises(SettingsError) as info:
+        read_settings_document('{"settings": {"min_visits": 0}}', name="mine.json")
+    text = travel.page_message(str(info.value))
+    # the label is the setting's own declaration (analysis.settings DECLARED)
+    from analysis.settings import DECLARED
+
+    label = DECLARED["min_visits"].label
+    assert text.startswith(f"mine.json: key 'settings.min_visits' ({label}): ")
+    assert "min_visits ==" not in text and label.lower() in text
