@@ -110,3 +110,15 @@ def test_cli_refuses_a_file_with_a_bad_model_choice(tmp_path, capsys):
 def test_settings_document_leaves_out_what_is_not_given():
     doc = settings_document(Settings())
     assert set(doc) == {"settings"} and doc["settings"] == Settings().to_dict()
+
+
+def test_plan_reads_its_model_flags_and_the_file_like_fit(tmp_path):
+    settings, roles, choices = _page_choices()
+    path = tmp_path / "exported.json"
+    path.write_text(settings_text(settings, roles, choices), encoding="utf-8")
+    parser = build_parser()
+    args = parser.parse_args(["plan", "demo", "--settings", str(path), "--json", "-"])
+    assert _model_choices(args) == choices
+    args = parser.parse_args(["plan", "demo", "--ml", "--models", "intercept", "--json", "-"])
+    got = _model_choices(args)
+    assert got.method == "ml" and got.structures == ("intercept",)
