@@ -106,8 +106,8 @@ def _add_model_options(p: argparse.ArgumentParser) -> None:
         if f.kind == "switch":
             p.add_argument(f.flag, dest=f.name, action="store_const", const=f.switch_value,
                            default=None, help=f.help)
-        elif f.kind == "one":
-            p.add_argument(f.flag, dest=f.name, default=default, choices=f.values(),
+        elif f.kind == "one":                             # None: the file's or the default
+            p.add_argument(f.flag, dest=f.name, default=None, choices=f.values(),
                            help=f"{f.help} [{default}]")
         elif f.kind == "count":
             p.add_argument(f.flag, dest=f.name, type=int, default=default, metavar=metavar,
@@ -119,10 +119,11 @@ def _add_model_options(p: argparse.ArgumentParser) -> None:
 
 
 def _model_choices(args):
-    """ModelChoices from the model flags (absent flags keep the declared defaults)."""
+    """ModelChoices from the model flags over a ``--settings`` file's "models" (absent from both:
+    the declared defaults)."""
     from analysis.models.modelstage import CHOICE_FIELDS, ModelChoices
 
-    given = {}
+    given = _file_models(args)                            # a --settings file's "models"
     for f in CHOICE_FIELDS.values():
         value = getattr(args, f.name, None)
         if value is None:
@@ -131,6 +132,20 @@ def _model_choices(args):
     if not given.get("structures", True):
         given.pop("structures")                           # "--models ''" keeps the default set
     return ModelChoices(**given)
+
+
+def _file_models(args) -> dict:
+    """The model choices a ``--settings`` file carries (its "models" object), checked."""
+    if not getattr(args, "settings", None):
+        return {}
+    from analysis.settings_file import read_settings_document
+
+    try:
+        text = Path(args.settings).read_text(encoding="utf-8")
+    except OSError as exc:
+        raise CohortError(f"--settings {args.settings}: cannot read JSON ({exc})") from None
+    doc = read_settings_document(text, name=f"--settings {args.settings}")
+    return doc.models.to_dict() if doc.models is not None else {}
 
 
 def _data_command(sub, name: str, text: str, *, models: bool = False) -> argparse.ArgumentParser:
@@ -428,10 +443,7 @@ def cmd_plan(args) -> int:
         raise SettingsError(f"--simulate {args.simulate}: must be from 1 to {MAX_SIMULATE} "
                             "replications")
     data, roles, settings = resolve(args)
-    kw = {"structures": _split(args.models)} if args.models else {}
-    choices = ModelChoices(**kw, correlation=args.correlation, method="ml" if args.ml else "reml",
-                           confounders=_split(args.confounders),
-                           time_spline_df=args.time_spline_df, gee=())
+    choices = ModelChoices.from_dict({**_model_choices(args).to_dict(), "gee": ()})
     dataset = Dataset.from_frame(_load(data), name=str(data))
     wb = Workbench(max_entries=32, max_model_sets=1)
     models = wb.models(dataset, roles, settings, choices)

@@ -81,7 +81,7 @@ def register(app, context: AppContext) -> None:
         trig = ctx.triggered_id
         roles = {**roles, "labels": dict(labels or {})}
         now = dict(data=data, roles=roles, settings=settings, view=view, stratum=stratum,
-                   subject=subject, good=good)
+                   subject=subject, good=good, present=urlstate.present_flag(search))
         if (trig == ids.PAGE_URL and data is not None
                 and _same_query(search, _encode(context, now))):
             # Location echoes every query this callback writes back as a new input:
@@ -276,7 +276,7 @@ def _encode(context: AppContext, now: dict):
         data_key=None if key == context.default_key else key,
         roles=roles, base_roles=context.default_roles if key == context.default_key else None,
         settings=settings, base=context.default_settings, view=view,
-        subject=now["subject"], stratum=now["stratum"])
+        subject=now["subject"], stratum=now["stratum"], present=now.get("present", False))
 
 
 # ------------------------------------------------------------------ small pure helpers

@@ -13,6 +13,7 @@ from . import controls as ctl
 from . import ids
 from .components import GRAPH_CONFIG, message, setting_field  # noqa: F401  (GRAPH_CONFIG: importable here as before)
 from .sections import SECTIONS as PAGE_SECTIONS
+from . import presentation, travel
 from .urlstate import MAX_DRAW
 
 CAUTION = ("Exploratory research statistics — not for individual care decisions. "
@@ -52,6 +53,7 @@ def header() -> html.Header:
         ]),
         html.Nav(className="cl-nav", children=[
             html.A(m.NAV, href=f"#{m.ANCHOR}") for m in PAGE_SECTIONS if m.NAV]),
+        presentation.toggle(),
         html.Div(id=ids.PAGE_CAUTION, className="cl-caution", role="note", children=[
             html.Span("Caution", className="cl-caution-tag"),
             html.Span(CAUTION),
@@ -91,6 +93,7 @@ def settings_panel(settings: Settings) -> html.Div:
                                                          *map(unpair, items)])
           for title, items in groups.items()],
         html.Button("Back to start-up choices", id=ids.SETTINGS_RESET, className="cl-btn"),
+        travel.controls(),
     ])
 
 

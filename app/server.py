@@ -19,6 +19,7 @@ from analysis.settings import Roles, Settings
 
 from . import controls as ctl
 from . import hub, ids
+from . import presentation, travel
 from .datastore import (DEFAULT_CACHE_MB, DEMO_KEY, MAX_REQUEST_BYTES, DataStore, demo_dataset,
                         upload_limit)
 from .layout import build_layout
@@ -67,6 +68,8 @@ def create_app(*, dataset: Dataset | None = None, roles: Roles | None = None,
     _register_page(app, context)
     for section in SECTIONS:
         section.register(app, context)
+    presentation.register(app, context)
+    travel.register(app, context)
     app._cohortlens = context  # for tests: the app's caches
     return app
 

@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field, fields
-from urllib.parse import parse_qs, urlencode
+from urllib.parse import parse_qs, parse_qsl, urlencode
 
 from analysis.errors import CohortError
 from analysis.settings import DECLARED, Roles, Settings
@@ -22,6 +22,26 @@ MAX_SEED = 10**9
 _LABEL_PARAM = "label"
 _ROLE_PARAMS = {"subject": "col-subject", "time": "col-time", "response": "col-response",
                 "event_date": "col-event", "covariates": "col-cov", "followup_end": "col-fu-end"}
+
+
+#: presentation mode in the page address (``present=1``; anything else or absent: off)
+PRESENT_PARAM = "present"
+
+
+def present_flag(query: str | None) -> bool:
+    """Whether a query string asks for presentation mode."""
+    values = parse_qs((query or "").lstrip("?"), keep_blank_values=True).get(PRESENT_PARAM)
+    return bool(values) and values[-1].strip().lower() in ("1", "true", "yes", "on")
+
+
+def with_present(query: str | None, on: bool) -> str:
+    """The same query string with presentation mode on or off (every other part kept, in
+    order)."""
+    pairs = [(k, v) for k, v in parse_qsl((query or "").lstrip("?"), keep_blank_values=True)
+             if k != PRESENT_PARAM]
+    if on:
+        pairs.append((PRESENT_PARAM, "1"))
+    return "?" + urlencode(pairs) if pairs else ""
 
 
 def param_name(field_name: str) -> str:
@@ -40,13 +60,14 @@ class UrlState:
     subject: str | None = None
     stratum: str | None = None
     problems: tuple[str, ...] = ()
+    present: bool = False          # presentation mode (app/presentation.py)
 
 
 # ----------------------------------------------------------------- encode
 def encode(*, data_key: str | None, roles: Roles | None, settings: Settings,
            base: Settings | None = None, base_roles: Roles | None = None,
            view: dict | None = None, subject: str | None = None,
-           stratum: str | None = None) -> str:
+           stratum: str | None = None, present: bool = False) -> str:
     """Query string ('?a=1&b=2', or '' when everything is at its default)."""
     base = base or Settings()
     pairs: list[tuple[str, str]] = []
@@ -73,6 +94,8 @@ def encode(*, data_key: str | None, roles: Roles | None, settings: Settings,
         pairs.append(("focus", str(subject)))
     if stratum:
         pairs.append(("stratum", str(stratum)))
+    if present:
+        pairs.append((PRESENT_PARAM, "1"))
     return "?" + urlencode(pairs) if pairs else ""
 
 
@@ -142,7 +165,7 @@ def decode(query: str | None, *, base: Settings | None = None,
                             f"{', '.join(LINE_ORDERS)}; the default is used")
     return UrlState(data_key=data_key, roles=roles, settings=settings, view=view,
                     subject=one("focus") or None, stratum=one("stratum") or None,
-                    problems=tuple(problems))
+                    problems=tuple(problems), present=present_flag(query))
 
 
 def _decode_roles(params: dict, base_roles: Roles | None, problems: list) -> Roles | None:

@@ -9,12 +9,12 @@ its callbacks. :mod:`app.layout` assembles the page from :data:`SECTIONS` and
 """
 from __future__ import annotations
 
-from . import (courses, data, followup, kept, lagcorr, lines, models, plan, rate, selection,
-               semivariogram)
-from . import checks
+from . import (checks, courses, data, followup, kept, lagcorr, lines, models, plan, rate, selection,
+               semivariogram, summary)
 
 #: page order
 SECTIONS = (
+    summary,
     data,
     kept,
     selection,
