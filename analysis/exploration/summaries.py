@@ -9,9 +9,10 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
+from scipy import stats
 from statsmodels.nonparametric.smoothers_lowess import lowess as _sm_lowess
 
-from ..confidence import CONFIDENCE_LEVEL, z_quantile
+from ..confidence import CONFIDENCE_LEVEL, upper_tail, z_quantile
 from ..errors import DataError, SettingsError
 from ..jsonsafe import json_safe
 from .lagbins import equal_width_bins
@@ -27,10 +28,32 @@ DEFAULT_HORIZON_SHARE = 0.9
 
 STRATUM_COLUMNS = ("stratum", "label", "subjects", "observations", "cov_min", "cov_q1",
                    "cov_median", "cov_q3", "cov_max", "visits_mean", "visits_median",
-                   "visits_min", "visits_max", "slope_q1", "slope_median", "slope_q3", "slope_n")
+                   "visits_min", "visits_max", "slope_q1", "slope_median", "slope_q3", "slope_n",
+                   "slope_median_lo", "slope_median_hi")
 
 
 # --------------------------------------------------------------------------- stratum table
+def stratum_column_labels(covariate: str | None, unit: str) -> dict[str, tuple[str, str]]:
+    """Reader's names of the group table's columns: column → (heading, name), e.g.
+    ``"slope_median_lo"`` → ``("slope per month", "95% CI of the median: from")``; the page's
+    two-row table headers and the report's ``heading: name`` columns both read it. The
+    internal ``stratum`` code has none (it is never shown)."""
+    cov = covariate or "covariate"
+    per = f"slope per {unit[:-1] if unit.endswith('s') and len(unit) > 2 else unit}"
+    ci = f"{round(100 * CONFIDENCE_LEVEL)}% CI of the median"
+    return {
+        "label": ("", "group"), "subjects": ("", "subjects"), "observations": ("", "visits"),
+        "cov_min": (cov, "min"), "cov_q1": (cov, "lower quartile"), "cov_median": (cov, "median"),
+        "cov_q3": (cov, "upper quartile"), "cov_max": (cov, "max"),
+        "visits_mean": ("visits per subject", "mean"),
+        "visits_median": ("visits per subject", "median"),
+        "visits_min": ("visits per subject", "min"), "visits_max": ("visits per subject", "max"),
+        "slope_q1": (per, "lower quartile"), "slope_median": (per, "median"),
+        "slope_q3": (per, "upper quartile"), "slope_n": (per, "subjects with one"),
+        "slope_median_lo": (per, f"{ci}: from"), "slope_median_hi": (per, f"{ci}: to"),
+    }
+
+
 def stratum_table(panel: Panel, strata: Strata, covariate_raw, slopes) -> pd.DataFrame:
     """Covariate range, visit counts and per-subject slope spread in every stratum.
 
@@ -52,7 +75,9 @@ def stratum_table(panel: Panel, strata: Strata, covariate_raw, slopes) -> pd.Dat
         stratifier, then stratum -2 ("All subjects"). Columns: stratum, label,
         subjects, observations, cov_min, cov_q1, cov_median, cov_q3, cov_max,
         visits_mean, visits_median, visits_min, visits_max, slope_q1,
-        slope_median, slope_q3, slope_n (subjects with a slope).
+        slope_median, slope_q3, slope_n (subjects with a slope), slope_median_lo,
+        slope_median_hi (distribution-free confidence interval of the median slope,
+        :func:`median_interval`).
 
     Notes
     -----
@@ -71,8 +96,33 @@ def stratum_table(panel: Panel, strata: Strata, covariate_raw, slopes) -> pd.Dat
         s = s[~np.isnan(s)]
         rows.append((code, label, int(sel.sum()), int(v.sum()), *_five(c),
                      _mean(v), *_five(v)[2:3], *_five(v)[0:1], *_five(v)[4:5],
-                     *_five(s)[1:4], int(s.size)))
+                     *_five(s)[1:4], int(s.size), *median_interval(s)))
     return pd.DataFrame(rows, columns=list(STRATUM_COLUMNS))
+
+
+def median_interval(values, level: float = CONFIDENCE_LEVEL) -> tuple[float, float]:
+    """Distribution-free confidence interval of a median: a pair of order statistics.
+
+    With n values sorted, the interval is ``(x_(j), x_(n−j+1))`` (1-based) for the largest j
+    whose binomial tail ``P(B ≤ j − 1)``, B ~ Binomial(n, ½), is at most ``(1 − level)/2``;
+    its coverage is ``1 − 2 P(B ≤ j − 1) ≥ level`` for any continuous distribution
+    (the sign-test interval; Conover, *Practical Nonparametric Statistics*, §3.2).
+    NaN values are left out; (NaN, NaN) when no such j exists (n < 6 at 95%).
+    """
+    x = np.sort(np.asarray(values, dtype=float))
+    x = x[~np.isnan(x)]
+    n = x.size
+    if n == 0:
+        return (math.nan, math.nan)
+    tail = 1.0 - upper_tail(level)                      # (1 − level) / 2
+    # j − 1 = the largest k with P(B ≤ k) ≤ tail
+    k = int(stats.binom.ppf(tail, n, 0.5))              # smallest k with P(B ≤ k) ≥ tail
+    if stats.binom.cdf(k, n, 0.5) > tail:
+        k -= 1
+    j = k + 1
+    if j < 1:
+        return (math.nan, math.nan)
+    return (float(x[j - 1]), float(x[n - j]))
 
 
 def slope_covariate_smooth(covariate, slopes, *, frac: float = 0.6) -> pd.DataFrame:

@@ -17,6 +17,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
+from ..exploration.summaries import stratum_column_labels
 from ..numbers import fmt, fmt_p, format_number, interval
 
 TITLE = "cohortlens analysis report"
@@ -307,18 +308,8 @@ def choices_frame(choices) -> pd.DataFrame:
 
 def stratum_frame(table: pd.DataFrame, *, covariate: str | None, unit: str) -> pd.DataFrame:
     """The group summary with the page's column names (the internal group code left out)."""
-    cov = covariate or "covariate"
-    per = f"slope per {per_unit(unit)}"
-    names = {
-        "label": "group", "subjects": "subjects", "observations": "visits",
-        "cov_min": f"{cov}: min", "cov_q1": f"{cov}: lower quartile",
-        "cov_median": f"{cov}: median", "cov_q3": f"{cov}: upper quartile",
-        "cov_max": f"{cov}: max", "visits_mean": "visits per subject: mean",
-        "visits_median": "visits per subject: median", "visits_min": "visits per subject: min",
-        "visits_max": "visits per subject: max", "slope_q1": f"{per}: lower quartile",
-        "slope_median": f"{per}: median", "slope_q3": f"{per}: upper quartile",
-        "slope_n": f"{per}: subjects with one",
-    }
+    names = {c: ": ".join(p for p in pair if p)
+             for c, pair in stratum_column_labels(covariate, unit).items()}
     keep = [c for c in names if c in table.columns]
     return table[keep].rename(columns=names)
 

@@ -10,6 +10,7 @@ import pandas as pd
 import plotly.graph_objects as go
 from dash import Output, State, dash_table, html
 
+from analysis.exploration.summaries import stratum_column_labels
 from analysis.numbers import fmt, interval
 
 from .. import ids
@@ -25,7 +26,7 @@ from ..views import HIGHLIGHT, STORES, finish, render_key, skip_if_same, summary
 
 ANCHOR = "section-rate"
 NAV = "Rate of change vs covariate"
-#: the group table's first-read columns (group, subjects, median slope, its quartiles)
+#: the group table's first-read columns (group, subjects, median slope, its interval)
 RATE_TABLE_MAIN = "rate-table-main"
 
 
@@ -83,7 +84,7 @@ def register(app, context: AppContext) -> None:
 
 def first_read_table(table: pd.DataFrame, cohort) -> tuple[list[dict], list[dict]]:
     """Rows and columns of the short group table: group, subjects, the median subject slope
-    and the lower to upper quartile of the slopes (display text, true minus)."""
+    and its distribution-free 95% confidence interval (display text, true minus)."""
     unit = cohort.settings.unit
     per = f"per {unit[:-1] if unit.endswith('s') else unit}"
     rows = []
@@ -91,31 +92,20 @@ def first_read_table(table: pd.DataFrame, cohort) -> tuple[list[dict], list[dict
         rows.append({"label": str(r.get("label", "")),
                      "subjects": fmt(r.get("subjects")),
                      "slope_median": fmt(r.get("slope_median"), 3),
-                     "slope_range": interval(r.get("slope_q1"), r.get("slope_q3"), 3)})
+                     "slope_range": interval(r.get("slope_median_lo"), r.get("slope_median_hi"),
+                                             3)})
     columns = [{"name": "group", "id": "label"}, {"name": "subjects", "id": "subjects"},
                {"name": f"median slope ({per})", "id": "slope_median"},
-               {"name": "middle half of slopes (quartiles)", "id": "slope_range"}]
+               {"name": "95% CI of the median (order statistics)", "id": "slope_range"}]
     return rows, columns
 
 
 def rate_table_columns(present, cohort) -> list[dict]:
     """Two-row headers for the group summary table (the internal group code is left out)."""
-    cov = short(cohort.roles.label(cohort.covariate) or "covariate")
-    unit = cohort.settings.unit
-    per = f"slope per {unit[:-1] if unit.endswith('s') else unit}"
-    spec = [
-        ("label", ("", "group")), ("subjects", ("", "subjects")), ("observations", ("", "visits")),
-        ("cov_min", (cov, "min")), ("cov_q1", (cov, "lower quartile")),
-        ("cov_median", (cov, "median")), ("cov_q3", (cov, "upper quartile")),
-        ("cov_max", (cov, "max")),
-        ("visits_mean", ("visits per subject", "mean")),
-        ("visits_median", ("visits per subject", "median")),
-        ("visits_min", ("visits per subject", "min")), ("visits_max", ("visits per subject", "max")),
-        ("slope_q1", (per, "lower quartile")), ("slope_median", (per, "median")),
-        ("slope_q3", (per, "upper quartile")), ("slope_n", (per, "subjects with one")),
-    ]
+    labels = stratum_column_labels(short(cohort.roles.label(cohort.covariate) or "covariate"),
+                                   cohort.settings.unit)
     have = set(present)
-    return [{"name": list(name), "id": col} for col, name in spec if col in have]
+    return [{"name": list(pair), "id": col} for col, pair in labels.items() if col in have]
 
 
 def category_ticks(labels: Sequence[str], *, width: int = 40) -> list[str]:
