@@ -53,6 +53,22 @@ def _settings_table(report: str) -> dict[str, str]:
     return dict(zip(cells[2::2], cells[3::2]))
 
 
+def _label(name: str) -> str:
+    """The report names a setting by its panel label (its declaration)."""
+    from analysis.settings import DECLARED
+
+    return DECLARED[name].label
+
+
+def _words(name: str, value) -> str:
+    """A choice as the report words it: the declaration's wording of that value."""
+    from analysis.settings import DECLARED
+
+    if isinstance(value, (int, float)):         # a number: shortest form, true minus
+        return format(value, "g").replace("-", "\u2212")
+    return (DECLARED[name].choice_labels or {}).get(value, str(value))
+
+
 def test_every_transform_and_centring_in_sequence_matches_a_fresh_workbench(dataset):
     shared = Workbench()
     base = demo_settings()
@@ -68,8 +84,8 @@ def test_every_transform_and_centring_in_sequence_matches_a_fresh_workbench(data
         # the request's own settings object is the reference for the JSON and the table
         assert got["json_settings"] == s.to_dict(), label
         table = _settings_table(got["report"])
-        assert table["transform"] == transform, label
-        assert table["center"] == str(center), label
+        assert table[_label("transform")] == _words("transform", transform), label
+        assert table[_label("center")] == _words("center", center), label
         if center == "none":
             assert "not centred" in got["x"], label
 
@@ -85,4 +101,5 @@ def test_other_choices_of_an_earlier_request_do_not_leak(dataset):
     assert out.to_json()["settings"] == second.to_dict()   # reference: the request itself
     report = build_report(out.cohort, out, None, created=STAMP)
     table = _settings_table(report)
-    assert table["detrend"] == second.detrend and table["variogram_bins"] == str(second.variogram_bins)
+    assert table[_label("detrend")] == _words("detrend", second.detrend)
+    assert table[_label("variogram_bins")] == str(second.variogram_bins)

@@ -6,7 +6,7 @@ from __future__ import annotations
 
 import base64
 
-from analysis.preparation.demo import demo_roles, load_demo
+from analysis.preparation.demo import demo_roles, demo_settings, load_demo
 from app import controls as ctl
 from app import hub
 from app.server import create_app
@@ -19,8 +19,10 @@ def _contents(frame) -> str:
 def _session_upload(context, contents, filename):
     out = hub._unchanged({"data": 0, "title": 0, "data_name": 0, "upload_msg": 0, "preview": 0,
                           "preview_cols": 0, "role_options": 0, "roles": 0, "subject": 0,
-                          "stratum": 0, "covariate_options": 0})
-    now = {"roles": ctl.role_values(demo_roles()), "data": None, "subject": None, "stratum": None}
+                          "stratum": 0, "covariate_options": 0, "alert": 0})
+    out["settings"] = {}
+    now = {"roles": ctl.role_values(demo_roles()), "data": None, "subject": None, "stratum": None,
+           "settings": ctl.control_values(demo_settings())}
     assert hub._from_upload(context, contents, filename, now, out)
     return out
 
