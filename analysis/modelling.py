@@ -271,6 +271,18 @@ def fit_candidates(cohort, *, structures=DEFAULT_CANDIDATES, correlation: str = 
     if problem:
         raise ModelError(problem)
 
+    return compare_candidates(cohort, panel, des, structures=structures, shapes=shapes,
+                              method=method, mean=mean, gee=gee, notes=notes,
+                              n_dropped=n_dropped, correlation=correlation)
+
+
+def compare_candidates(cohort, panel, des, *, structures, shapes, method, mean, gee, notes,
+                       n_dropped, correlation) -> ModelSet:
+    """Fit each candidate to the prepared rows (``panel``, design ``des``), compare them, add
+    the GEE rows and the effect statement (the second half of :func:`fit_candidates`; the
+    cluster engine calls it with its own rows)."""
+    from .mixed import fit_mixed
+
     candidates = []
     specs = {s: spec_for(s) for s in structures}
     runs = [(s, specs[s].correlation_for(c) or c) for s in structures

@@ -360,7 +360,7 @@ def dropout_summary(panel: Panel, strata: Strata, *, horizon: float | None = Non
     overdue_gaps = float(overdue_gaps)
     if not overdue_gaps >= 0:
         raise SettingsError(f"overdue_gaps == {overdue_gaps}, must be >= 0")
-    codes = _check_codes(strata, m)
+    _check_codes(strata, m)
     last_row = panel.starts + panel.counts - 1
     same = np.diff(panel.codes) == 0
     gaps = np.diff(panel.time)[same]
