@@ -226,7 +226,26 @@ def fit_candidates(cohort, *, structures=DEFAULT_CANDIDATES, correlation: str = 
     one with the lowest AIC among converged fits — a common-practice rule; the
     LRTs and BIC are shown beside it.
     """
-    from .mixed import CORRELATIONS, METHODS, STRUCTURES, fit_mixed
+    structures, shapes, gee = check_candidate_options(structures, correlation, method, gee)
+    mean, keep, n_dropped, notes = candidate_subjects(cohort, mean)
+    panel, baseline = cohort.panel, cohort.baseline.reset_index(drop=True)
+    if n_dropped:
+        panel = panel.subset_subjects(keep)
+        baseline = baseline.loc[keep].reset_index(drop=True)
+    des = design(panel, baseline, mean, covariate_name=COVARIATE_COLUMN)
+    from .mixed.fit import response_variation_problem
+    problem = response_variation_problem(panel.y, des.X, response=_labels(cohort)["response_label"])
+    if problem:
+        raise ModelError(problem)
+
+    return compare_candidates(cohort, panel, des, structures=structures, shapes=shapes,
+                              method=method, mean=mean, gee=gee, notes=notes,
+                              n_dropped=n_dropped, correlation=correlation)
+
+
+def check_candidate_options(structures, correlation, method, gee):
+    """(distinct structures, serial shapes to fit, GEE working correlations), checked."""
+    from .mixed import CORRELATIONS, METHODS, STRUCTURES
 
     structures = tuple(dict.fromkeys(structures))
     if not structures:
@@ -246,7 +265,13 @@ def fit_candidates(cohort, *, structures=DEFAULT_CANDIDATES, correlation: str = 
     if bad:
         raise ModelError(f"unknown GEE working correlation(s) {bad}; choose from {list(WORKING)}")
 
-    panel, baseline = cohort.panel, cohort.baseline.reset_index(drop=True)
+    return structures, shapes, gee
+
+
+def candidate_subjects(cohort, mean: MeanModel):
+    """(mean model adjusted to the cohort, subjects kept, subjects dropped, notes): subjects
+    lacking a value of a covariate the mean model uses are left out."""
+    baseline = cohort.baseline.reset_index(drop=True)
     notes: list[str] = []
     if mean.covariate and COVARIATE_COLUMN not in baseline.columns:
         mean = MeanModel(time=mean.time, covariate=False, interaction=False,
@@ -263,17 +288,7 @@ def fit_candidates(cohort, *, structures=DEFAULT_CANDIDATES, correlation: str = 
         notes.append(f"{n_dropped} of {len(keep)} subjects dropped: missing value of {cols}")
         if not keep.any():
             raise ModelError(f"every subject lacks a value of {cols}; no model can be fitted")
-        panel = panel.subset_subjects(keep)
-        baseline = baseline.loc[keep].reset_index(drop=True)
-    des = design(panel, baseline, mean, covariate_name=COVARIATE_COLUMN)
-    from .mixed.fit import response_variation_problem
-    problem = response_variation_problem(panel.y, des.X, response=_labels(cohort)["response_label"])
-    if problem:
-        raise ModelError(problem)
-
-    return compare_candidates(cohort, panel, des, structures=structures, shapes=shapes,
-                              method=method, mean=mean, gee=gee, notes=notes,
-                              n_dropped=n_dropped, correlation=correlation)
+    return mean, keep, n_dropped, notes
 
 
 def compare_candidates(cohort, panel, des, *, structures, shapes, method, mean, gee, notes,
