@@ -104,27 +104,45 @@ def response_variation_problem(y, X, *, response: str = "response") -> str | Non
         return None
     dev = y - y.mean()
     tss = float(dev @ dev)
-    if tss <= (1e-12 * max(abs(float(y.mean())), 1e-300))**2 * y.size:
-        return (f"{response} has no variation: every value is {y[0]:g}; a model of change over "
-                "time needs a response that varies")
+    problem = constant_response_problem(tss, float(y.mean()), float(y[0]), y.size, response)
+    if problem:
+        return problem
     X = np.asarray(X, dtype=float)
     if X.ndim == 1:
         X = X[:, None]
     beta = np.linalg.lstsq(X, y, rcond=None)[0]
     r = y - X @ beta
-    if float(r @ r) <= 1e-20 * tss:
+    return reproduced_response_problem(float(r @ r), tss, response)
+
+
+def constant_response_problem(tss: float, mean: float, first: float, n: int,
+                              response: str) -> str | None:
+    """The refusal of :func:`response_variation_problem` for a constant response, or None."""
+    if tss <= (1e-12 * max(abs(mean), 1e-300))**2 * n:
+        return (f"{response} has no variation: every value is {first:g}; a model of change over "
+                "time needs a response that varies")
+    return None
+
+
+def reproduced_response_problem(rss: float, tss: float, response: str) -> str | None:
+    """The refusal of :func:`response_variation_problem` for a response the mean model
+    reproduces exactly (residual sum of squares ``rss``), or None."""
+    if rss <= 1e-20 * tss:
         return (f"the mean model reproduces {response} exactly (no residual variation left "
                 "after the fixed effects): there is nothing for a covariance model to describe; "
                 "check that the response is not computed from the time or covariate columns")
     return None
 
 
-def _check_rank(X, names):
+def _check_rank(X, names, n_rows: int | None = None):
+    """Full column rank, else ModelError naming the dependent columns. ``X`` may be the R
+    factor of the design (same column norms and rank) when ``n_rows`` gives the design's rows."""
     scale = np.sqrt((X**2).sum(axis=0))
     Xs = X / np.where(scale > 0, scale, 1.0)
     _, R, piv = sla.qr(Xs, mode="economic", pivoting=True)
     d = np.abs(np.diag(R))
-    tol = max(X.shape) * np.finfo(float).eps * 1e3 * (d[0] if d.size else 1.0)
+    shape = X.shape if n_rows is None else (n_rows, X.shape[1])
+    tol = max(shape) * np.finfo(float).eps * 1e3 * (d[0] if d.size else 1.0)
     rank = int((d > tol).sum())
     if rank < X.shape[1]:
         dep = [names[j] for j in piv[rank:]]
