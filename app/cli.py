@@ -17,7 +17,7 @@ from analysis import options as opt
 from analysis.errors import CohortError, SettingsError
 from analysis.settings import DECLARED, Roles, Settings, default_text
 
-COMMANDS = ("serve", "summarize", "fit", "report", "plan")
+COMMANDS = ("serve", "summarize", "fit", "report", "plan", "partition")
 
 #: (flag, Settings field, type, choices, help) of every setting that takes a value, read from
 #: its declaration (analysis.settings); the help ends with the default in brackets
@@ -51,10 +51,12 @@ def build_parser() -> argparse.ArgumentParser:
 
     summ = _data_command(sub, "summarize", "write every exploratory number as JSON")
     summ.add_argument("--json", required=True, metavar="OUT", help="output file ('-' = stdout)")
+    _add_engine(summ)
 
     fit = _data_command(sub, "fit", "fit and compare candidate covariance models, write JSON",
                         models=True)
     fit.add_argument("--json", required=True, metavar="OUT", help="output file ('-' = stdout)")
+    _add_engine(fit)
 
     rep = _data_command(sub, "report", "write the exploration and the models as one HTML file",
                         models=True)
@@ -70,7 +72,24 @@ def build_parser() -> argparse.ArgumentParser:
     plan.add_argument("--simulate", type=int, default=None, metavar="REPS",
                       help="check the power by simulating and refitting REPS cohorts")
     plan.add_argument("--json", required=True, metavar="OUT", help="output file ('-' = stdout)")
+
+    part = sub.add_parser("partition", help="rewrite a table into subject-hash Parquet "
+                          "partitions (for --engine dask)")
+    part.add_argument("data", help="CSV or Parquet file, or 'demo' for the bundled registry")
+    part.add_argument("--subject", required=True, help="subject id column")
+    part.add_argument("--out", required=True, metavar="DIR", help="folder to write (empty)")
+    part.add_argument("--parts", type=int, default=16, help="number of partitions [16]")
     return parser
+
+
+def _add_engine(p: argparse.ArgumentParser) -> None:
+    g = p.add_argument_group("engine")
+    g.add_argument("--engine", default="memory", choices=("memory", "dask"),
+                   help="memory: this process (default); dask: a partitioned Parquet dataset "
+                        "on a Dask cluster (the 'dask' extra)")
+    g.add_argument("--scheduler", default=None, metavar="ADDRESS",
+                   help="Dask scheduler address, e.g. tcp://10.0.0.5:8786 [a local cluster "
+                        "sized to this machine]")
 
 
 def _add_plan_options(p: argparse.ArgumentParser) -> None:
@@ -327,6 +346,10 @@ def cmd_summarize(args) -> int:
 
     _check_output(args.json, "--json")
     data, roles, settings = resolve(args)
+    if args.engine == "dask":
+        from analysis.cluster.run import summarize_payload
+        _write_json(summarize_payload(data, roles, settings, args.scheduler), args.json)
+        return 0
     result = explore(_load(data), roles, settings)
     _write_json(result.to_json(), args.json)
     return 0
@@ -340,6 +363,10 @@ def cmd_fit(args) -> int:
     _check_output(args.json, "--json")
     choices = _model_choices(args)                       # checks every option before any work
     data, roles, settings = resolve(args)
+    if args.engine == "dask":
+        from analysis.cluster.run import fit_payload
+        _write_json(fit_payload(data, roles, settings, choices, args.scheduler), args.json)
+        return 0
     result = fit_models(prepare(_load(data), roles, settings), choices)
     payload = json_safe({"settings": settings.to_dict(), "roles": roles.to_dict(),
                          **result.to_json()})
@@ -423,6 +450,19 @@ def cmd_plan(args) -> int:
     return 0
 
 
+def cmd_partition(args) -> int:
+    from analysis.cluster.partitions import write_partitions
+
+    data = args.data
+    if data == "demo":
+        from analysis.demo import DEMO_CSV
+        data = DEMO_CSV
+    written = write_partitions(_load(data), args.subject, args.out, n_parts=args.parts)
+    print(f"wrote {len(written.files)} partitions to {written.folder} "
+          f"({sum(written.rows):,} rows, {sum(written.subjects):,} subjects)", file=sys.stderr)
+    return 0
+
+
 def _split(text: str | None) -> tuple[str, ...]:
     return tuple(t.strip() for t in (text or "").split(",") if t.strip())
 
@@ -448,7 +488,7 @@ def main(argv: list[str] | None = None) -> int:
     parser = build_parser()
     args = parser.parse_args(join_negative_values(argv))
     handler = {"serve": cmd_serve, "summarize": cmd_summarize, "fit": cmd_fit,
-               "report": cmd_report, "plan": cmd_plan}[args.command]
+               "report": cmd_report, "plan": cmd_plan, "partition": cmd_partition}[args.command]
     try:
         return handler(args)
     except CohortError as exc:
