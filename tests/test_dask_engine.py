@@ -35,12 +35,21 @@ ROOT = Path(__file__).resolve().parents[1]
 REL = 1e-8
 
 
+#: memory limit of each worker: small, so that the generated table below is several times
+#: larger; pausing and restarting are off, so Dask can only spill partitions to disk
+WORKER_LIMIT = 4 * 2**20
+
+
 @pytest.fixture(scope="module")
 def client():
+    """One 2-worker cluster of processes for the whole module."""
+    import dask
     from distributed import Client, LocalCluster
 
-    cluster = LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
-                           dashboard_address=None)
+    with dask.config.set({"distributed.worker.memory.pause": False,
+                          "distributed.worker.memory.terminate": False}):
+        cluster = LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
+                               memory_limit=WORKER_LIMIT, dashboard_address=None)
     c = Client(cluster)
     yield c
     c.close()
@@ -51,6 +60,14 @@ def client():
 def demo_parts(tmp_path_factory):
     out = tmp_path_factory.mktemp("demo_parts")
     write_partitions(read_table(DEMO_CSV), "recipient_id", out, n_parts=4)
+    return out
+
+
+@pytest.fixture(scope="module")
+def demo_halves(tmp_path_factory):
+    """Two partitions: fewer tasks per likelihood evaluation for the (slower) fit test."""
+    out = tmp_path_factory.mktemp("demo_halves")
+    write_partitions(read_table(DEMO_CSV), "recipient_id", out, n_parts=2)
     return out
 
 
@@ -90,9 +107,9 @@ def _count_values(tree) -> int:
 # --------------------------------------------------------------------------- summarize
 @pytest.mark.parametrize("changes", [
     {},
-    {"strata_method": "equal-width", "transform": "log", "center": "mean", "variogram_bins": 7},
-    {"detrend": "linear", "detrend_within_strata": True, "min_visits": 1, "lag_width": None},
-], ids=["demo", "equal-width-log-mean", "within-strata-linear"])
+    {"strata_method": "equal-width", "transform": "log", "center": "mean", "variogram_bins": 7,
+     "detrend": "linear", "detrend_within_strata": True, "min_visits": 1, "lag_width": None},
+], ids=["demo", "equal-width-log-mean-within-strata-linear"])
 def test_summarize_equals_in_memory(client, demo_parts, changes):
     roles = demo_roles()
     settings = Settings.from_dict({**demo_settings().to_dict(), **changes})
@@ -105,16 +122,9 @@ def test_summarize_equals_in_memory(client, demo_parts, changes):
     # strata cut points: exactly equal (exact quantiles from every subject's value)
     assert got["strata_definition"] == ref["strata_definition"]
     assert got["attrition"] == ref["attrition"]
-
-
-def test_semivariogram_smooth_uses_the_same_subsample(client, demo_parts):
-    """More pairs than the smooth's subsample: the same seeded pairs must be fetched."""
-    roles, settings = demo_roles(), demo_settings()
-    ref = _plain(explore(read_table(DEMO_CSV), roles, settings).to_json())
-    assert any("random subsample" in n for n in ref["semivariogram"]["notes"])
-    got = _plain(ClusterCohort(client, str(demo_parts), roles, settings)
-                 .explore(settings).to_json())
-    assert mismatches(ref["semivariogram"]["smooth"], got["semivariogram"]["smooth"]) == []
+    if not changes:
+        # more pairs than the smooth's subsample: the same seeded pairs were fetched
+        assert any("random subsample" in n for n in ref["semivariogram"]["notes"])
 
 
 def test_lowess_detrending_is_refused(client, demo_parts):
@@ -125,7 +135,14 @@ def test_lowess_detrending_is_refused(client, demo_parts):
 
 
 # --------------------------------------------------------------------------- fit
-def test_fit_equals_in_memory(client, demo_parts):
+#: values computed from the finite-difference Hessian of the analytic gradient (step 1e-5):
+#: the variance parameters' interval ends. Summing the gradient in another order (partition by
+#: partition) changes it by rounding (~1e-13 relative), which the difference quotient
+#: amplifies about 1e5-fold; these are compared to 1e-7 relative, every other value to 1e-8.
+HESSIAN_REL = 1e-7
+
+
+def test_fit_equals_in_memory(client, demo_halves):
     """Both likelihood paths: per-subject sums (intercept + slope) and dense per-visit-count
     stacks (with a serial process), REML; GEE rows are not part of the cluster fit."""
     roles, settings = demo_roles(), demo_settings()
@@ -133,10 +150,13 @@ def test_fit_equals_in_memory(client, demo_parts):
     # reference: the in-memory engine
     ref = _plain(json_safe(fit_models(prepare(read_table(DEMO_CSV), roles, settings),
                                       choices).to_json()))
-    cc = ClusterCohort(client, str(demo_parts), roles, settings)
+    cc = ClusterCohort(client, str(demo_halves), roles, settings)
     got = _plain(json_safe(fit_cluster_models(cc, cc.cohort(settings), choices).to_json()))
     assert [m["converged"] for m in got["models"]] == [True, True]
-    assert mismatches(ref, got) == []
+    bad = mismatches(ref, got)
+    hessian = [b for b in bad if ".variance." in b[0] and b[0].endswith((".lo", ".hi"))]
+    assert [b for b in bad if b not in hessian] == []
+    assert mismatches([b[1] for b in hessian], [b[2] for b in hessian], rel=HESSIAN_REL) == []
 
 
 def test_fit_drops_gee_rows_and_says_so(client, demo_parts):
@@ -220,31 +240,18 @@ def _generated(n_subjects: int, seed: int = 7) -> pd.DataFrame:
                          "site": np.array(["north", "south", "east"])[sid % 3]})
 
 
-def test_larger_than_a_worker_memory_limit_completes(tmp_path):
-    """Two workers with a 8 MB memory limit (pausing and restarting off, so that Dask can
-    only spill to disk) summarise a table more than three times that size in memory."""
-    import dask
-    from distributed import Client, LocalCluster
-
-    frame = _generated(100_000)
+def test_larger_than_a_worker_memory_limit_completes(client, tmp_path):
+    """The module's workers have a 4 MB memory limit (pausing and restarting off, so Dask can
+    only spill to disk); they summarise a table more than three times that size in memory."""
+    frame = _generated(60_000)
     size = int(frame.memory_usage(deep=True).sum())
-    limit = 8 * 2**20
-    assert size > 3 * limit
-    write_partitions(frame, "pid", tmp_path / "parts", n_parts=12)
+    assert size > 3 * WORKER_LIMIT
+    write_partitions(frame, "pid", tmp_path / "parts", n_parts=6)
     roles = Roles(subject="pid", time="t", response="y", covariates=("marker", "site"))
     settings = Settings.from_dict({"unit": "months", "variogram_bins": 8})
-    with dask.config.set({"distributed.worker.memory.pause": False,
-                          "distributed.worker.memory.terminate": False}):
-        cluster = LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
-                               memory_limit=limit, dashboard_address=None)
-        c = Client(cluster)
-        try:
-            cc = ClusterCohort(c, str(tmp_path / "parts"), roles, settings)
-            got = _plain(cc.explore(settings).to_json())
-            spilled = c.run(lambda dask_worker: len(dask_worker.data.slow))
-        finally:
-            c.close()
-            cluster.close()
+    cc = ClusterCohort(client, str(tmp_path / "parts"), roles, settings)
+    got = _plain(cc.explore(settings).to_json())
+    spilled = client.run(lambda dask_worker: len(dask_worker.data.slow))
     assert sum(spilled.values()) > 0                 # the workers did go to disk
     # reference: the in-memory engine on the same rows
     ref = _plain(explore(frame, roles, settings).to_json())
