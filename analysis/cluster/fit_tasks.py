@@ -36,6 +36,18 @@ def model_rows(part, keep: np.ndarray, baseline: pd.DataFrame, mean: MeanModel) 
     return ModelRows(panel, des.X, des)
 
 
+def merge_model_rows(*rows: ModelRows) -> ModelRows:
+    """Several partitions' rows as one (the subjects of each kept whole, numbered on), so that a
+    likelihood evaluation is one task per worker rather than one per partition."""
+    if len(rows) == 1:
+        return rows[0]
+    offsets = np.cumsum([0] + [r.panel.n_subjects for r in rows[:-1]])
+    panel = Panel.from_codes(np.concatenate([r.panel.codes + o for r, o in zip(rows, offsets)]),
+                             np.concatenate([r.panel.time for r in rows]),
+                             np.concatenate([r.panel.y for r in rows]))
+    return ModelRows(panel, np.vstack([r.X for r in rows]), rows[0].design)
+
+
 def design_terms(rows: ModelRows):
     """The design without its rows (names, interaction term: what the client reports)."""
     from dataclasses import replace

@@ -230,6 +230,7 @@ def fit_cluster_models(cc, cohort, choices):
             continue
         futures.append(cc.client.submit(fit_tasks.model_rows, cc._live()[i], k,
                                         baseline.iloc[gl[k]], mean, pure=False))
+    futures = _one_per_worker(cc.client, futures)
     des = cc.client.gather(cc.client.submit(fit_tasks.design_terms, futures[0], pure=False))
     checks = cc.client.gather([cc.client.submit(fit_tasks.row_checks, f, pure=False)
                                for f in futures])
@@ -243,6 +244,22 @@ def fit_cluster_models(cc, cohort, choices):
     return compare_candidates(cohort, rows, des, structures=structures, shapes=shapes,
                               method=choices.method, mean=mean, gee=(), notes=notes,
                               n_dropped=n_dropped, correlation=choices.correlation)
+
+
+def _one_per_worker(client, futures):
+    """The partitions' rows merged on the worker holding them: one likelihood task per worker
+    and round instead of one per partition (the scheduling cost of an evaluation)."""
+    from distributed import wait
+
+    wait(futures)
+    holders = client.who_has(futures)
+    by_worker: dict = {}
+    for f in futures:
+        where = holders.get(f.key) or ("",)
+        by_worker.setdefault(sorted(where)[0], []).append(f)
+    return [client.submit(fit_tasks.merge_model_rows, *group, workers=[w] if w else None,
+                          pure=False)
+            for w, group in sorted(by_worker.items())]
 
 
 __all__ = ["fit_cluster_models", "COVARIATE_COLUMN"]
