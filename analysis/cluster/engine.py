@@ -213,12 +213,6 @@ class ClusterCohort:
         """A per-subject array (global order) cut into each partition's local order."""
         return [np.asarray(values)[g] for g in self.global_of]
 
-    def _map(self, fn, *per_part_args, **common):
-        futures = [self.client.submit(fn, part, *(a[i] for a in per_part_args), pure=False,
-                                      **common)
-                   for i, part in enumerate(self._live())]
-        return self.client.gather(futures)
-
     # -- the exploration --------------------------------------------------------------------
     def cohort(self, settings: Settings):
         keyed = settings.only(STAGE_FIELDS["cohort"] + STAGE_FIELDS["strata"])
