@@ -121,6 +121,8 @@ class ModelSet:
         the same mean model, fitted by OLS, not from the exploratory smooth trend.
         Computed by :func:`analysis.variogram.semivariogram`.
         """
+        if hasattr(self.panel, "residual_variogram"):     # rows on a cluster (analysis.cluster)
+            return self.panel.residual_variogram(n_bins=n_bins, max_lag=max_lag)
         from .variogram import semivariogram
         return semivariogram(self.panel.with_y(self.mean_residuals()), n_bins=n_bins,
                              max_lag=max_lag)

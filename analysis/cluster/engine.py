@@ -264,20 +264,10 @@ class ClusterCohort:
             gap_buckets=gap_buckets, pure=False) for i, part in enumerate(self._live())]
         seconds = self.client.gather(seconds)
 
-        vsums = add_variogram_sums([s["variogram"] for s in seconds], n_bins=n_bins,
-                                   max_lag=max_lag)
-        gpos = np.concatenate([back[i](s["variogram"].smooth_pos)
-                               for i, s in enumerate(seconds)])
-        order = np.argsort(gpos, kind="stable")
-        vsums.smooth_u, vsums.smooth_v = vsums.smooth_u[order], vsums.smooth_v[order]
-        n = self.counts.astype(float)
-        n_between = (big_n ** 2 - float(np.sum(n ** 2))) / 2.0
-        pv = (0.5 * sum(s["pv_sum"] for s in seconds) / n_between if n_between > 0
-              else float("nan"))
-        variogram = finish_semivariogram(
-            vsums, n_bins=n_bins, max_lag=max_lag, total_pairs=self.total_pairs,
-            subsampled=pick is not None, seed=seed,
-            smooth_frac=_semivariogram_default("smooth_frac"), pv=pv)
+        variogram = self.combine_variogram(
+            [s["variogram"] for s in seconds], back, n_bins=n_bins, max_lag=max_lag,
+            total_pairs=self.total_pairs, pick=pick, seed=seed,
+            pv_sums=[s["pv_sum"] for s in seconds], counts=self.counts, big_n=big_n)
         cross = tuple(sum(s["cross"][j] for s in seconds) for j in range(4))
         lagcorr = finish_lag_correlation(subjects, col_mean, cross, start=start, width=width)
 
@@ -356,29 +346,54 @@ class ClusterCohort:
         return self.client.gather(futures)
 
     # -- pair positions -------------------------------------------------------------------------
-    def _pair_picks(self, pick):
+    def _pair_picks(self, pick, keep=None):
         """Per partition: its local positions of the globally picked pairs (None = all), and
         a function mapping its local positions back to global pair positions (pair order of
-        :func:`analysis.pairs.iter_pair_chunks`: visit count, then subject, then triu)."""
-        g_off = _pair_offsets(self.counts)
+        :func:`analysis.pairs.iter_pair_chunks`: visit count, then subject, then triu). With
+        ``keep`` (per subject), over the kept subjects only."""
+        counts, global_of = self.counts, self.global_of
+        if keep is not None:
+            renumber = np.cumsum(keep) - 1
+            counts = counts[keep]
+            global_of = [renumber[gl[keep[gl]]] for gl in global_of]
+        part_of = np.empty(counts.size, dtype=np.int64)
+        local = np.empty(counts.size, dtype=np.int64)
+        for i, gl in enumerate(global_of):
+            part_of[gl], local[gl] = i, np.arange(gl.size)
+        g_off = _pair_offsets(counts)
         picks, back = [], []
         if pick is not None:
-            order = np.argsort(self.counts, kind="stable")
-            npairs = (self.counts * (self.counts - 1) // 2)[order]
+            order = np.argsort(counts, kind="stable")
+            npairs = (counts * (counts - 1) // 2)[order]
             ends = np.cumsum(npairs)
             idx = np.searchsorted(ends, pick, side="right")
             subj = order[idx]
             within = pick - (ends[idx] - npairs[idx])
-        for i, gl in enumerate(self.global_of):
-            l_off = _pair_offsets(self.counts[gl])
+        for i, gl in enumerate(global_of):
+            l_off = _pair_offsets(counts[gl])
             if pick is None:
                 picks.append(None)
             else:
-                mine = self.part_of[subj] == i
-                pos = l_off[self.local[subj[mine]]] + within[mine]
-                picks.append(np.sort(pos))
-            back.append(_local_to_global(self.counts[gl], l_off, g_off[gl]))
+                mine = part_of[subj] == i
+                picks.append(np.sort(l_off[local[subj[mine]]] + within[mine]))
+            back.append(_local_to_global(counts[gl], l_off, g_off[gl]))
         return picks, back
+
+    def combine_variogram(self, sums, back, *, n_bins, max_lag, total_pairs, pick, seed,
+                          pv_sums, counts, big_n):
+        """The semivariogram from the partitions' bin sums (smooth pairs put back in global
+        pair order) and process-variance sums."""
+        vsums = add_variogram_sums(sums, n_bins=n_bins, max_lag=max_lag)
+        gpos = np.concatenate([back[i](s.smooth_pos) for i, s in enumerate(sums)])
+        order = np.argsort(gpos, kind="stable")
+        vsums.smooth_u, vsums.smooth_v = vsums.smooth_u[order], vsums.smooth_v[order]
+        n = np.asarray(counts, dtype=float)
+        n_between = (big_n ** 2 - float(np.sum(n ** 2))) / 2.0
+        pv = 0.5 * sum(pv_sums) / n_between if n_between > 0 else float("nan")
+        return finish_semivariogram(
+            vsums, n_bins=n_bins, max_lag=max_lag, total_pairs=total_pairs,
+            subsampled=pick is not None, seed=seed,
+            smooth_frac=_semivariogram_default("smooth_frac"), pv=pv)
 
 
 def cat_follow(views, key):

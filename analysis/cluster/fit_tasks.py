@@ -154,3 +154,29 @@ def score_meat(rows: ModelRows, spec, theta, time_scale: float, beta, Minv, corr
     u = bias_reduced_scores(build_groups(rows.panel, rows.X, spec, time_scale), spec, theta,
                             beta, Minv, correlation)
     return u.T @ u
+
+
+# --------------------------------------------------------------------------- residual variogram
+def _ols_residuals(rows: ModelRows, beta: np.ndarray) -> Panel:
+    return rows.panel.with_y(rows.panel.y - rows.X @ beta)
+
+
+def ols_first(rows: ModelRows, beta: np.ndarray) -> dict:
+    """Residual sum and count, longest within-subject lag and pair count (mean-model OLS)."""
+    from analysis.pairs import n_within_pairs
+
+    r = _ols_residuals(rows, beta)
+    p = r
+    last = p.starts + p.counts - 1
+    return {"r_sum": float(r.y.sum()), "n": r.n_obs, "pairs": n_within_pairs(p.counts),
+            "longest": float(np.max(np.abs(p.time[last] - p.time[p.starts])))}
+
+
+def ols_second(rows: ModelRows, beta: np.ndarray, *, n_bins: int, max_lag: float, pick,
+               centre: float, big_n: float) -> dict:
+    """Semivariogram bin sums and process-variance sum of the mean-model OLS residuals."""
+    from analysis.variogram import process_variance_sum, variogram_sums
+
+    r = _ols_residuals(rows, beta)
+    return {"variogram": variogram_sums(r, n_bins=n_bins, max_lag=max_lag, pick=pick),
+            "pv_sum": process_variance_sum(r, centre, big_n)}

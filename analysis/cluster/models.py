@@ -40,7 +40,10 @@ class ClusterRows:
     """The fit's rows on the workers, passed to :func:`analysis.mixed.fit_mixed` in place of a
     Panel: it supplies the row-level steps (input checks, start values, likelihood data)."""
 
-    def __init__(self, client, futures, checks, p):
+    def __init__(self, client, futures, checks, p, cohort=None, part_futures=(), keep=None):
+        self.cohort = cohort                      # the ClusterCohort (residual semivariogram)
+        self.part_futures = list(part_futures)    # per partition of the cohort, or None
+        self.keep = keep                          # subjects in the fit (global order)
         self.client = client
         self.futures = futures
         self.checks = checks
@@ -131,6 +134,31 @@ class ClusterRows:
         min_lag = min(s[0] for s in parts)
         return (min_lag if np.isfinite(min_lag) else 1.0,
                 max(s[2] for s in parts) - min(s[1] for s in parts))
+
+    def residual_variogram(self, *, n_bins: int = 10, max_lag: float | None = None):
+        """``ModelSet.residual_variogram``: the semivariogram of the mean model's OLS residuals,
+        from the partitions (the same pairs as in memory for the smooth)."""
+        from analysis.cluster.engine import _semivariogram_default
+        from analysis.variogram import smooth_pick, variogram_max_lag
+
+        cc, beta = self.cohort, self.beta_ols()
+        live = [(i, f) for i, f in enumerate(self.part_futures) if f is not None]
+        firsts = self.client.gather([self.client.submit(fit_tasks.ols_first, f, beta,
+                                                        pure=False) for _, f in live])
+        big_n = float(sum(f["n"] for f in firsts))
+        centre = sum(f["r_sum"] for f in firsts) / big_n
+        total = sum(f["pairs"] for f in firsts)
+        max_lag = variogram_max_lag(total, max(f["longest"] for f in firsts), max_lag)
+        seed = _semivariogram_default("seed")
+        pick = smooth_pick(total, _semivariogram_default("smooth_max_pairs"), seed)
+        picks, back = cc._pair_picks(pick, self.keep)
+        seconds = self.client.gather([self.client.submit(
+            fit_tasks.ols_second, f, beta, n_bins=n_bins, max_lag=max_lag, pick=picks[i],
+            centre=centre, big_n=big_n, pure=False) for i, f in live])
+        return cc.combine_variogram(
+            [s["variogram"] for s in seconds], [back[i] for i, _ in live], n_bins=n_bins,
+            max_lag=max_lag, total_pairs=total, pick=pick, seed=seed,
+            pv_sums=[s["pv_sum"] for s in seconds], counts=cc.counts[self.keep], big_n=big_n)
 
     def mixed_data(self, X, spec, time_scale):
         shift = self.beta_ols()
@@ -223,19 +251,19 @@ def fit_cluster_models(cc, cohort, choices):
     if gee:
         notes.append(GEE_NOTE)
     baseline = cohort.baseline.reset_index(drop=True)
-    futures = []
+    per_part = []
     for i, gl in enumerate(cc.global_of):
         k = keep[gl]
-        if not k.any():
-            continue
-        futures.append(cc.client.submit(fit_tasks.model_rows, cc._live()[i], k,
-                                        baseline.iloc[gl[k]], mean, pure=False))
-    futures = _one_per_worker(cc.client, futures)
+        per_part.append(cc.client.submit(fit_tasks.model_rows, cc._live()[i], k,
+                                         baseline.iloc[gl[k]], mean, pure=False)
+                        if k.any() else None)
+    futures = _one_per_worker(cc.client, [f for f in per_part if f is not None])
     des = cc.client.gather(cc.client.submit(fit_tasks.design_terms, futures[0], pure=False))
     checks = cc.client.gather([cc.client.submit(fit_tasks.row_checks, f, pure=False)
                                for f in futures])
     p = len(des.names)
-    rows = ClusterRows(cc.client, futures, checks, p)
+    rows = ClusterRows(cc.client, futures, checks, p, cohort=cc, part_futures=per_part,
+                       keep=np.asarray(keep, dtype=bool))
     problem = rows.variation_problem(_labels(cohort)["response_label"])
     if problem:
         raise ModelError(problem)
