@@ -65,6 +65,7 @@ def build_parser() -> argparse.ArgumentParser:
     rep.add_argument("--plan", action="store_true",
                      help="add a plan of the next study (cohort defaults, or the plan flags)")
     _add_plan_options(rep)
+    _add_engine(rep)
 
     plan = _data_command(sub, "plan", "plan the size of the next study from this cohort's "
                          "fitted covariance, write JSON", models=True)
@@ -385,13 +386,21 @@ def cmd_report(args) -> int:
     choices = None if args.no_models else _model_choices(args)
     name = "demo registry" if data == "demo" or str(data).endswith("kidney_registry.csv") \
         else Path(str(data)).name
+    wants_plan = args.plan or any(getattr(args, k) is not None for k in (
+        "model", "effect", "schedule", "dropout_rate"))
+    if args.engine == "dask":
+        from analysis.cluster.run import report_text
+        if wants_plan:
+            raise CohortError("--plan with --engine dask: not available yet; plan from a fit "
+                              "in memory")
+        text = report_text(data, roles, settings, choices, args.scheduler)
+        return _write_report(text, args.out)
     dataset = Dataset.from_frame(_load(data), name=name)
     wb = Workbench(max_entries=32, max_model_sets=1)
     exploration = wb.explore(dataset, roles, settings)
     models = wb.models(dataset, roles, settings, choices) if choices else None
     made = None
-    if models is not None and (args.plan or any(getattr(args, k) is not None for k in (
-            "model", "effect", "schedule", "dropout_rate"))):
+    if models is not None and wants_plan:
         made = _plan_for(args, wb, dataset, roles, settings, models)
     text = build_report(exploration.cohort, exploration, models, data_name=dataset.name,
                         data_key=dataset.key, choices=choices,
@@ -399,11 +408,15 @@ def cmd_report(args) -> int:
                                                response=roles.response,
                                                response_unit=exploration.cohort.response_unit),
                         plan=made, plan_figure=report_plan_figure(made) if made else None)
+    return _write_report(text, args.out)
+
+
+def _write_report(text: str, out: str) -> int:
     try:
-        Path(args.out).write_text(text, encoding="utf-8")
+        Path(out).write_text(text, encoding="utf-8")
     except OSError as exc:
-        raise CohortError(f"--out {args.out}: cannot write the report ({exc.strerror})") from None
-    print(f"wrote {args.out}", file=sys.stderr)
+        raise CohortError(f"--out {out}: cannot write the report ({exc.strerror})") from None
+    print(f"wrote {out}", file=sys.stderr)
     return 0
 
 

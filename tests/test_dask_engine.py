@@ -281,3 +281,22 @@ def test_partition_command_and_dataset_addresses(tmp_path):
     pd.testing.assert_frame_equal(back.sort_values(key).reset_index(drop=True),
                                   whole.sort_values(key).reset_index(drop=True))
     assert main(["partition", "demo", "--subject", "recipient_id", "--out", str(out)]) == 2
+
+
+def test_report_on_the_cluster(client, demo_parts):
+    """The report's residual-semivariogram points (mean-model OLS residuals) equal the
+    in-memory engine's (the reference), and the report carries the same effect statement."""
+    from analysis.cluster.run import report_text
+
+    roles, settings = demo_roles(), demo_settings()
+    choices = ModelChoices(structures=("intercept",), gee=())
+    ref = fit_models(prepare(read_table(DEMO_CSV), roles, settings), choices)
+    cc = ClusterCohort(client, str(demo_parts), roles, settings)
+    got = fit_cluster_models(cc, cc.cohort(settings), choices)
+    a = _plain(json_safe(ref.residual_variogram(n_bins=10, max_lag=48.0).to_json()))
+    b = _plain(json_safe(got.residual_variogram(n_bins=10, max_lag=48.0).to_json()))
+    assert mismatches(a, b) == []
+    html = report_text(str(demo_parts), roles, settings, choices,
+                       scheduler=client.scheduler.address)
+    import html as html_lib
+    assert html_lib.escape(ref.effect.statement) in html or ref.effect.statement in html

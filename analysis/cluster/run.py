@@ -46,3 +46,24 @@ def fit_payload(data, roles, settings, choices, scheduler=None, **local) -> dict
         result = fit_cluster_models(cc, cc.cohort(settings), choices)
         return json_safe({"settings": settings.to_dict(), "roles": roles.to_dict(),
                           **result.to_json()})
+
+
+def report_text(data, roles, settings, choices, scheduler=None, **local) -> str:
+    """The ``report`` HTML computed on a Dask cluster (exploration, and the models unless
+    ``choices`` is None); the data key is a hash of the partition files' names."""
+    import hashlib
+
+    from analysis.cluster.models import fit_cluster_models
+    from analysis.overlay import report_figures
+    from analysis.report import build_report
+
+    with cluster_cohort(data, roles, settings, scheduler, **local) as cc:
+        exploration = cc.explore(settings)
+        models = (fit_cluster_models(cc, exploration.cohort, choices)
+                  if choices is not None else None)
+        key = hashlib.sha1(repr(cc.files).encode()).hexdigest()[:20]
+        figures = report_figures(exploration, models, unit=settings.unit,
+                                 response=roles.response,
+                                 response_unit=exploration.cohort.response_unit)
+        return build_report(exploration.cohort, exploration, models, data_name=str(data),
+                            data_key=key, choices=choices, figures=figures)
