@@ -215,6 +215,9 @@ class ClusterCohort:
 
     # -- the exploration --------------------------------------------------------------------
     def cohort(self, settings: Settings):
+        if settings.only(STAGE_FIELDS["cohort"]).to_dict() != self.selection_settings.to_dict():
+            raise ValueError("these partitions were prepared with other selection settings "
+                             "(origin, window, inclusion rules ...); open a new ClusterCohort")
         keyed = settings.only(STAGE_FIELDS["cohort"] + STAGE_FIELDS["strata"])
         check_group_limit(self.selection, keyed)
         return stratify(self.selection, keyed)
