@@ -300,3 +300,18 @@ def test_report_on_the_cluster(client, demo_parts):
                        scheduler=client.scheduler.address)
     import html as html_lib
     assert html_lib.escape(ref.effect.statement) in html or ref.effect.statement in html
+
+
+def test_one_subjects_rows_on_demand(client, demo_parts):
+    """A subject card's rows come from its partition; reference: the in-memory panel."""
+    roles, settings = demo_roles(), demo_settings()
+    cc = ClusterCohort(client, str(demo_parts), roles, settings)
+    cohort = prepare(read_table(DEMO_CSV), roles, settings)
+    frame = cohort.frame
+    label = cohort.subject_ids[17]
+    got = cc.subject_rows(label)
+    want = frame[frame["subject"] == label]
+    np.testing.assert_array_equal(got["time"].to_numpy(), want["time"].to_numpy())
+    np.testing.assert_array_equal(got["response"].to_numpy(), want["response"].to_numpy())
+    with pytest.raises(DataError, match="not in the analysed cohort"):
+        cc.subject_rows("no such subject")

@@ -213,6 +213,16 @@ class ClusterCohort:
         """A per-subject array (global order) cut into each partition's local order."""
         return [np.asarray(values)[g] for g in self.global_of]
 
+    def subject_rows(self, label) -> pd.DataFrame:
+        """The analysed visits of one subject (subject, time, response), fetched from the
+        partition that holds it (what a subject card needs; nothing else leaves the workers)."""
+        ids = self.selection.subject_ids
+        where = np.flatnonzero(ids == label)
+        if where.size == 0:
+            raise DataError(f"subject {label!r} is not in the analysed cohort")
+        part = self._live()[int(self.part_of[where[0]])]
+        return self.client.submit(tasks.part_rows, part, [label], pure=False).result()
+
     # -- the exploration --------------------------------------------------------------------
     def cohort(self, settings: Settings):
         if settings.only(STAGE_FIELDS["cohort"]).to_dict() != self.selection_settings.to_dict():
