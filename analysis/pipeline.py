@@ -290,16 +290,7 @@ class Workbench:
         """Per-subject OLS lines joined with stratum, stratum label and raw covariate."""
         cohort = self.cohort(dataset, roles, settings)
         fits = self.subject_fits(dataset, roles, settings)
-        frame = fits.to_frame(cohort.subject_ids)
-        base = cohort.baseline
-        frame["stratum"] = base["stratum"].to_numpy()
-        frame["stratum_label"] = base["stratum_label"].to_numpy()
-        cov = cohort.covariate
-        frame["covariate"] = (base[cov].to_numpy() if cov is not None
-                              else np.full(len(frame), np.nan))
-        if cohort.x is not None:
-            frame["x"] = cohort.x
-        return frame
+        return join_subject_lines(fits.to_frame(cohort.subject_ids), cohort)
 
     def residuals(self, dataset: Dataset, roles: Roles, settings: Settings):
         from .exploration.detrend import detrend
@@ -339,20 +330,14 @@ class Workbench:
         return self._memo("lagcorr", dataset, roles, settings, compute)
 
     def summaries(self, dataset: Dataset, roles: Roles, settings: Settings) -> Summaries:
-        from .exploration.summaries import cohort_dropout, slope_covariate_smooth, stratum_table
+        from .exploration.summaries import cohort_dropout
 
         def compute():
             cohort = self.cohort(dataset, roles, settings)
             fits = self.subject_fits(dataset, roles, settings)
             slopes = np.asarray(fits.to_frame()["slope"], dtype=float)
-            cov = cohort.covariate
-            numeric = cov is not None and cohort.selection.covariate_kinds[cov] == "numeric"
-            raw = (cohort.baseline[cov].to_numpy(float) if numeric
-                   else np.full(cohort.panel.n_subjects, np.nan))
-            table = stratum_table(cohort.panel, cohort.strata, raw, slopes)
-            smooth = (slope_covariate_smooth(raw, slopes) if numeric
-                      else pd.DataFrame({"covariate": [], "slope_smooth": []}))
-            return Summaries(table, smooth, cohort_dropout(cohort, data_cut=settings.data_cut))
+            return build_summaries(cohort, slopes,
+                                   lambda: cohort_dropout(cohort, data_cut=settings.data_cut))
 
         return self._memo("summaries", dataset, roles, settings, compute)
 
@@ -378,6 +363,34 @@ class Workbench:
             lag_correlation=self.lag_correlation(dataset, roles, settings),
             summaries=self.summaries(dataset, roles, settings),
         )
+
+
+def join_subject_lines(frame: pd.DataFrame, cohort: PreparedCohort) -> pd.DataFrame:
+    """Per-subject OLS lines (``SubjectLines.to_frame``, panel code order) joined with stratum,
+    stratum label, raw covariate and ``x``."""
+    base = cohort.baseline
+    frame["stratum"] = base["stratum"].to_numpy()
+    frame["stratum_label"] = base["stratum_label"].to_numpy()
+    cov = cohort.covariate
+    frame["covariate"] = (base[cov].to_numpy() if cov is not None
+                          else np.full(len(frame), np.nan))
+    if cohort.x is not None:
+        frame["x"] = cohort.x
+    return frame
+
+
+def build_summaries(cohort: PreparedCohort, slopes: np.ndarray, dropout: Callable) -> Summaries:
+    """Stratum table and slope smooth from the per-subject slopes, and ``dropout()``."""
+    from .exploration.summaries import slope_covariate_smooth, stratum_table
+
+    cov = cohort.covariate
+    numeric = cov is not None and cohort.selection.covariate_kinds[cov] == "numeric"
+    raw = (cohort.baseline[cov].to_numpy(float) if numeric
+           else np.full(cohort.panel.n_subjects, np.nan))
+    table = stratum_table(cohort.panel, cohort.strata, raw, slopes)
+    smooth = (slope_covariate_smooth(raw, slopes) if numeric
+              else pd.DataFrame({"covariate": [], "slope_smooth": []}))
+    return Summaries(table, smooth, dropout())
 
 
 def explore(df: pd.DataFrame, roles: Roles, settings: Settings) -> Exploration:

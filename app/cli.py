@@ -17,7 +17,7 @@ from analysis import options as opt
 from analysis.errors import CohortError, SettingsError
 from analysis.settings import DECLARED, Roles, Settings, default_text
 
-COMMANDS = ("serve", "summarize", "fit", "report", "plan")
+COMMANDS = ("serve", "summarize", "fit", "report", "plan", "partition")
 
 #: (flag, Settings field, type, choices, help) of every setting that takes a value, read from
 #: its declaration (analysis.settings); the help ends with the default in brackets
@@ -55,10 +55,12 @@ def build_parser() -> argparse.ArgumentParser:
 
     summ = _data_command(sub, "summarize", "write every exploratory number as JSON")
     summ.add_argument("--json", required=True, metavar="OUT", help="output file ('-' = stdout)")
+    _add_engine(summ)
 
     fit = _data_command(sub, "fit", "fit and compare candidate covariance models, write JSON",
                         models=True)
     fit.add_argument("--json", required=True, metavar="OUT", help="output file ('-' = stdout)")
+    _add_engine(fit)
 
     rep = _data_command(sub, "report", "write the exploration and the models as one HTML file",
                         models=True)
@@ -67,6 +69,7 @@ def build_parser() -> argparse.ArgumentParser:
     rep.add_argument("--plan", action="store_true",
                      help="add a plan of the next study (cohort defaults, or the plan flags)")
     _add_plan_options(rep)
+    _add_engine(rep)
 
     plan = _data_command(sub, "plan", "plan the size of the next study from this cohort's "
                          "fitted covariance, write JSON", models=True)
@@ -74,7 +77,24 @@ def build_parser() -> argparse.ArgumentParser:
     plan.add_argument("--simulate", type=int, default=None, metavar="REPS",
                       help="check the power by simulating and refitting REPS cohorts")
     plan.add_argument("--json", required=True, metavar="OUT", help="output file ('-' = stdout)")
+
+    part = sub.add_parser("partition", help="rewrite a table into subject-hash Parquet "
+                          "partitions (for --engine dask)")
+    part.add_argument("data", help="CSV or Parquet file, or 'demo' for the bundled registry")
+    part.add_argument("--subject", required=True, help="subject id column")
+    part.add_argument("--out", required=True, metavar="DIR", help="folder to write (empty)")
+    part.add_argument("--parts", type=int, default=16, help="number of partitions [16]")
     return parser
+
+
+def _add_engine(p: argparse.ArgumentParser) -> None:
+    g = p.add_argument_group("engine")
+    g.add_argument("--engine", default="memory", choices=("memory", "dask"),
+                   help="memory: this process (default); dask: a partitioned Parquet dataset "
+                        "on a Dask cluster (the 'dask' extra)")
+    g.add_argument("--scheduler", default=None, metavar="ADDRESS",
+                   help="Dask scheduler address, e.g. tcp://10.0.0.5:8786 [a local cluster "
+                        "sized to this machine]")
 
 
 def _add_plan_options(p: argparse.ArgumentParser) -> None:
@@ -363,6 +383,10 @@ def cmd_summarize(args) -> int:
 
     _check_output(args.json, "--json")
     data, roles, settings = resolve(args)
+    if args.engine == "dask":
+        from analysis.cluster.run import summarize_payload
+        _write_json(summarize_payload(data, roles, settings, args.scheduler), args.json)
+        return 0
     result = explore(_load(data), roles, settings)
     _write_json(result.to_json(), args.json)
     return 0
@@ -376,6 +400,10 @@ def cmd_fit(args) -> int:
     _check_output(args.json, "--json")
     choices = _model_choices(args)                       # checks every option before any work
     data, roles, settings = resolve(args)
+    if args.engine == "dask":
+        from analysis.cluster.run import fit_payload
+        _write_json(fit_payload(data, roles, settings, choices, args.scheduler), args.json)
+        return 0
     result = fit_models(prepare(_load(data), roles, settings), choices)
     payload = json_safe({"settings": settings.to_dict(), "roles": roles.to_dict(),
                          **result.to_json()})
@@ -394,23 +422,38 @@ def cmd_report(args) -> int:
     choices = None if args.no_models else _model_choices(args)
     name = "demo registry" if data == "demo" or str(data).endswith("kidney_registry.csv") \
         else Path(str(data)).name
+    wants_plan = args.plan or any(getattr(args, k) is not None for k in (
+        "model", "effect", "schedule", "dropout_rate"))
+    if args.engine == "dask":
+        from analysis.cluster.run import report_text
+        if wants_plan:
+            raise CohortError("--plan with --engine dask: not available yet; plan from a fit "
+                              "in memory")
+        from app.figures import aggregate_report_figures
+
+        text = report_text(data, roles, settings, choices, args.scheduler,
+                           figures=aggregate_report_figures)
+        return _write_report(text, args.out)
     dataset = Dataset.from_frame(_load(data), name=name)
     wb = Workbench(max_entries=32, max_model_sets=1)
     exploration = wb.explore(dataset, roles, settings)
     models = wb.models(dataset, roles, settings, choices) if choices else None
     made = None
-    if models is not None and (args.plan or any(getattr(args, k) is not None for k in (
-            "model", "effect", "schedule", "dropout_rate"))):
+    if models is not None and wants_plan:
         made = _plan_for(args, wb, dataset, roles, settings, models)
     text = build_report(exploration.cohort, exploration, models, data_name=dataset.name,
                         data_key=dataset.key, choices=choices,
                         figures=report_figures(exploration, models),
                         plan=made, plan_figure=report_plan_figure(made) if made else None)
+    return _write_report(text, args.out)
+
+
+def _write_report(text: str, out: str) -> int:
     try:
-        Path(args.out).write_text(text, encoding="utf-8")
+        Path(out).write_text(text, encoding="utf-8")
     except OSError as exc:
-        raise CohortError(f"--out {args.out}: cannot write the report ({exc.strerror})") from None
-    print(f"wrote {args.out}", file=sys.stderr)
+        raise CohortError(f"--out {out}: cannot write the report ({exc.strerror})") from None
+    print(f"wrote {out}", file=sys.stderr)
     return 0
 
 
@@ -454,6 +497,19 @@ def cmd_plan(args) -> int:
     return 0
 
 
+def cmd_partition(args) -> int:
+    from analysis.cluster.partitions import write_partitions
+
+    data = args.data
+    if data == "demo":
+        from analysis.preparation.demo import DEMO_CSV
+        data = DEMO_CSV
+    written = write_partitions(_load(data), args.subject, args.out, n_parts=args.parts)
+    print(f"wrote {len(written.files)} partitions to {written.folder} "
+          f"({sum(written.rows):,} rows, {sum(written.subjects):,} subjects)", file=sys.stderr)
+    return 0
+
+
 def _split(text: str | None) -> tuple[str, ...]:
     return tuple(t.strip() for t in (text or "").split(",") if t.strip())
 
@@ -480,7 +536,7 @@ def main(argv: list[str] | None = None) -> int:
     parser = build_parser()
     args = parser.parse_args(join_negative_values(argv))
     handler = {"serve": cmd_serve, "summarize": cmd_summarize, "fit": cmd_fit,
-               "report": cmd_report, "plan": cmd_plan}[args.command]
+               "report": cmd_report, "plan": cmd_plan, "partition": cmd_partition}[args.command]
     try:
         return handler(args)
     except CohortError as exc:

@@ -483,6 +483,22 @@ def _sample_frame_subjects(frame: pd.DataFrame, limit: int, *, seed: int = CHECK
     return frame.iloc[keep], limit, n
 
 
+def aggregate_report_figures(exploration, models) -> list[tuple[str, str, str]]:
+    """The report figures drawn from aggregated results only (a cohort whose rows stay on a
+    cluster): the semivariogram and, with fitted ``models``, their fitted curves."""
+    look = cohort_look(exploration.cohort)
+    out = [("library", "", report_library()),
+           ("semivariogram", "Binned semivariogram of the detrended residuals (marker area "
+                             "∝ pairs) with a lowess smooth and the process variance.",
+            report_html(variogram_figure(exploration.variogram, look=look)))]
+    if models is not None and getattr(models, "fits", None):
+        vg = exploration.variogram
+        vgm = models.residual_variogram(n_bins=len(vg.bins), max_lag=vg.max_lag)
+        out.append(("models", OVERLAY_CAPTION,
+                    report_html(fitted_variogram_figure(vgm, models, look=look), height=520)))
+    return out
+
+
 def report_figures(exploration, models, *, chosen: str | None = None,
                    subject=None) -> list[tuple[str, str, str]]:
     """(place, caption, HTML) of every report figure, the plotting library first.

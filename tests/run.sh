@@ -12,6 +12,6 @@ if [ ! -x /usr/bin/chromium ]; then
   $SUDO apt-get install -y -qq --no-install-recommends chromium fonts-dejavu-core
 fi
 
-python3 -m pip install --quiet --disable-pip-version-check -e '.[test]'
+python3 -m pip install --quiet --disable-pip-version-check -e '.[test,dask]'
 # pytest exits 5 when it collected no test: that is a failure here too.
 python3 -m pytest "$@"

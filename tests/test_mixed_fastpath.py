@@ -1,7 +1,7 @@
 """Per-subject-sums likelihood (no n×n matrices) against the dense batched likelihood.
 
 Reference throughout: the dense batched implementation
-``evaluate(build_groups(...))`` in analysis/mixed/likelihood.py, which
+``evaluate(build_groups(...))`` in analysis/models/mixed/likelihood.py, which
 tests/test_mixed_dense.py checks against a brute-force block-diagonal REML/ML
 computation and tests/test_mixed_reference.py against statsmodels MixedLM.
 It builds and inverts every subject's n×n covariance, so it shares no

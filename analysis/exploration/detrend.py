@@ -162,23 +162,30 @@ def _fit(t, y, at, method, spline_df, frac, notes):
                            natural_spline_basis(at, [t.min(), t.max()], intercept=True), y), None, \
             "straight line in time (pooled least squares)"
     if method == "spline":
-        use_df = min(spline_df, n_unique - 1)
-        if use_df < spline_df:
-            notes.append(f"only {n_unique} distinct times; spline uses {use_df} df "
-                         f"instead of {spline_df}")
-        knots = spline_knots(t, use_df, rule="distinct")
+        knots, text = spline_plan(np.unique(t), spline_df, notes)
         vals = _lstsq_eval(natural_spline_basis(t, knots, intercept=True),
                            natural_spline_basis(at, knots, intercept=True), y)
-        text = (f"natural cubic spline in time with {knots.size - 1} df "
-                f"(knots at {', '.join(f'{k:.3g}' for k in knots)})")
-        if use_df < spline_df:
-            text += f"; {spline_df} df were asked for, but there are only {n_unique} distinct times"
         return vals, None, text
     xs, fs = _lowess_curve(t, y, frac)
     if not np.all(np.isfinite(fs)):
         notes.append("too few points for lowess; used a straight line")
         return _fit(t, y, at, "linear", spline_df, frac, notes)
     return np.interp(at, xs, fs), None, f"lowess smooth of time (span {frac:g} of the points)"
+
+
+def spline_plan(distinct_times, spline_df: int, notes: list) -> tuple[np.ndarray, str]:
+    """(knots, description) of the detrending spline from the distinct times (>= 2 of them)."""
+    n_unique = distinct_times.size
+    use_df = min(spline_df, n_unique - 1)
+    if use_df < spline_df:
+        notes.append(f"only {n_unique} distinct times; spline uses {use_df} df "
+                     f"instead of {spline_df}")
+    knots = spline_knots(distinct_times, use_df, rule="distinct")
+    text = (f"natural cubic spline in time with {knots.size - 1} df "
+            f"(knots at {', '.join(f'{k:.3g}' for k in knots)})")
+    if use_df < spline_df:
+        text += f"; {spline_df} df were asked for, but there are only {n_unique} distinct times"
+    return knots, text
 
 
 def _lstsq_eval(design, design_at, y):

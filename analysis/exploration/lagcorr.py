@@ -149,15 +149,31 @@ def lag_correlation(panel: Panel, *, width: float, start: float | None = None
     instead of a loop over window pairs.
     """
     width = _check_width(width)
-    t, y = panel.time, panel.y
-    for name, arr in (("time", t), ("response", y)):
+    _check_lag_values(panel)
+    start, n_win = lag_windows(float(panel.time.min()), float(panel.time.max()), width, start)
+    subjects, col_sum = lag_window_sums(panel, start=start, width=width, n_win=n_win)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        col_mean = col_sum / subjects
+    cross = lag_cross_sums(panel, start=start, width=width, n_win=n_win, col_mean=col_mean)
+    return finish_lag_correlation(subjects, col_mean, cross, start=start, width=width)
+
+
+# --------------------------------------------------------------------------- partial sums
+# Two passes over subjects, each additive over sets of subjects: window counts and sums of the
+# subjects' window means (-> the window means), then the cross products about those means.
+def _check_lag_values(panel: Panel) -> None:
+    for name, arr in (("time", panel.time), ("response", panel.y)):
         bad = np.flatnonzero(~np.isfinite(arr))
         if bad.size:
             raise DataError(f"lag correlation needs finite {name} values; {bad.size} "
                             f"observation(s) are missing or infinite")
     if panel.n_obs == 0:
         raise DataError("lag correlation needs at least one observation; the cohort is empty")
-    tmin, tmax = float(t.min()), float(t.max())
+
+
+def lag_windows(tmin: float, tmax: float, width: float, start: float | None = None
+                ) -> tuple[float, int]:
+    """(left edge of window 0, number of windows) over the times ``tmin .. tmax``."""
     if start is None:
         start = math.floor(tmin / width) * width
     start = float(start)
@@ -169,27 +185,47 @@ def lag_correlation(panel: Panel, *, width: float, start: float | None = None
                             f"{format_number(start)} to {format_number(tmax)} into {n_win:,} "
                             f"windows, more than {MAX_WINDOWS}; choose a wider window.",
                             field="lag_width")
+    return start, n_win
+
+
+def _window_means(panel: Panel, start: float, width: float, n_win: int):
     # shared edge rule (analysis.exploration.lagbins): a time lying on an edge up to float rounding
     # (e.g. 0.3 with width 0.1) is in the upper window
-    k = bin_index(t, start=start, width=width, n=n_win)
-
+    k = bin_index(panel.time, start=start, width=width, n=n_win)
     m = panel.n_subjects
     cell = panel.codes * n_win + k
     cnt = np.bincount(cell, minlength=m * n_win).reshape(m, n_win)
-    tot = np.bincount(cell, weights=y, minlength=m * n_win).reshape(m, n_win)
+    tot = np.bincount(cell, weights=panel.y, minlength=m * n_win).reshape(m, n_win)
     mask = cnt > 0
     wide = np.divide(tot, cnt, out=np.zeros_like(tot), where=mask)
+    return mask, wide
 
-    subjects = mask.sum(axis=0)
-    col_sum = wide.sum(axis=0)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        col_mean = col_sum / subjects
-    centred = np.where(mask, wide - np.where(subjects > 0, col_mean, 0.0), 0.0)
+
+def lag_window_sums(panel: Panel, *, start: float, width: float, n_win: int):
+    """(subjects with a visit in each window, sum of their window means), additive."""
+    mask, wide = _window_means(panel, start, width, n_win)
+    return mask.sum(axis=0), wide.sum(axis=0)
+
+
+def lag_cross_sums(panel: Panel, *, start: float, width: float, n_win: int,
+                   col_mean: np.ndarray) -> tuple[np.ndarray, ...]:
+    """(n_ab, Sx_ab, Sxx_ab, Sxy_ab) about the window means ``col_mean`` (see
+    :func:`lag_correlation`), additive over sets of subjects."""
+    mask, wide = _window_means(panel, start, width, n_win)
+    centred = np.where(mask, wide - np.where(np.isfinite(col_mean), col_mean, 0.0), 0.0)
     mf = mask.astype(float)
     n_ab = mf.T @ mf
     sx = centred.T @ mf                      # sum of x_a over subjects in both a and b
     sxx = (centred * centred).T @ mf
     sxy = centred.T @ centred
+    return n_ab, sx, sxx, sxy
+
+
+def finish_lag_correlation(subjects, col_mean, cross, *, start: float, width: float
+                           ) -> LagCorrelation:
+    """The result from the window counts and means and the summed cross products."""
+    n_ab, sx, sxx, sxy = cross
+    n_win = subjects.size
     with np.errstate(invalid="ignore", divide="ignore"):
         cov = sxy - sx * sx.T / n_ab
         var_a = sxx - sx * sx / n_ab

@@ -15,7 +15,7 @@ from statsmodels.nonparametric.smoothers_lowess import lowess as _sm_lowess
 from ..confidence import CONFIDENCE_LEVEL, upper_tail, z_quantile
 from ..errors import DataError, SettingsError
 from ..jsonsafe import json_safe
-from .lagbins import equal_width_bins
+from .lagbins import edge_bin, equal_width_bins
 from ..numbers import plain_number
 from ..preparation.panel import Panel
 from ..preparation.strata import MISSING_LABEL, Strata, cut_strata
@@ -410,11 +410,32 @@ def dropout_summary(panel: Panel, strata: Strata, *, horizon: float | None = Non
     overdue_gaps = float(overdue_gaps)
     if not overdue_gaps >= 0:
         raise SettingsError(f"overdue_gaps == {overdue_gaps}, must be >= 0")
-    codes = _check_codes(strata, m)
+    _check_codes(strata, m)
     last_row = panel.starts + panel.counts - 1
-    last_time = panel.time[last_row]
-    last_y = panel.y[last_row]
-    t_max = float(panel.time.max())
+    same = np.diff(panel.codes) == 0
+    gaps = np.diff(panel.time)[same]
+    return dropout_from_subjects(
+        panel.time[last_row], panel.y[last_row], strata, t_max=float(panel.time.max()),
+        typical_gap=float(np.median(gaps)) if gaps.size else math.nan,
+        profiles=lambda last_time, nb: _profiles(panel, last_time, nb), horizon=horizon,
+        subject_ids=subject_ids, n_time_bins=n_time_bins, potential_followup=potential_followup,
+        followup_source=followup_source, overdue_gaps=overdue_gaps, notes=notes,
+        time_unit=time_unit)
+
+
+def dropout_from_subjects(last_time, last_y, strata: Strata, *, t_max: float,
+                          typical_gap: float, profiles, horizon=None, subject_ids=None,
+                          n_time_bins: int = 10, potential_followup=None,
+                          followup_source: str = "", overdue_gaps: float = OVERDUE_GAPS,
+                          notes=(), time_unit: str = "") -> Dropout:
+    """:func:`dropout_summary` from per-subject last visits, the latest time, the typical gap
+    (median within-subject gap) and ``profiles(last_time, n_time_bins)`` (the mean-response
+    profiles frame, a sum over visits); the cluster engine computes these from partitions."""
+    m = int(np.asarray(last_time).size)
+    overdue_gaps = float(overdue_gaps)
+    codes = _check_codes(strata, m)
+    last_time = np.asarray(last_time, dtype=float)
+    last_y = np.asarray(last_y, dtype=float)
     if horizon is None:
         horizon = DEFAULT_HORIZON_SHARE * t_max
         rule = (f"horizon = {DEFAULT_HORIZON_SHARE:.0%} of the longest follow-up "
@@ -427,9 +448,7 @@ def dropout_summary(panel: Panel, strata: Strata, *, horizon: float | None = Non
     ids = np.arange(m) if subject_ids is None else np.asarray(subject_ids)
     if ids.shape != (m,):
         raise DataError(f"subject_ids has {ids.size} entries, expected one per subject ({m})")
-    same = np.diff(panel.codes) == 0
-    gaps = np.diff(panel.time)[same]
-    gap = float(np.median(gaps)) if gaps.size else math.nan
+    gap = typical_gap
     notes = list(notes)
     classified = potential_followup is not None
     if classified:
@@ -483,7 +502,7 @@ def dropout_summary(panel: Panel, strata: Strata, *, horizon: float | None = Non
     retention = pd.concat(curves, ignore_index=True)[list(RETENTION_COLUMNS)]
     count_table = pd.DataFrame(count_rows, columns=["stratum", "label", *STATUSES])
     counts = ({s: int(np.sum(status == s)) for s in STATUSES} if classified else {})
-    profiles = _profiles(panel, last_time, int(n_time_bins))
+    profiles = profiles(last_time, int(n_time_bins))
     return Dropout(horizon=float(horizon), horizon_rule=rule, classified=classified,
                    typical_gap=gap, status_rule=status_rule,
                    followup_source=followup_source if classified else "", subjects=subjects,
@@ -505,14 +524,30 @@ def cohort_dropout(cohort, *, data_cut: str | None = None, horizon: float | None
 
 def _profiles(panel: Panel, last_time: np.ndarray, n_bins: int) -> pd.DataFrame:
     """Mean response per (dropout cohort, time bin), via one bincount."""
-    cohorts = cut_strata(last_time, method="quantile", n=4, name="last visit")
-    k = len(cohorts.labels)
-    t = panel.time
-    edges, b = equal_width_bins(t, n_bins)
+    cohorts = profile_cohorts(last_time)
+    edges, _ = equal_width_bins(panel.time, n_bins)
+    n, total = profile_sums(panel, cohorts.codes, edges, len(cohorts.labels))
+    return profile_frame(cohorts, edges, n, total)
+
+
+def profile_cohorts(last_time: np.ndarray) -> Strata:
+    """Subjects cut into quartiles of their last visit time (the profiles' cohorts)."""
+    return cut_strata(last_time, method="quantile", n=4, name="last visit")
+
+
+def profile_sums(panel: Panel, cohort_codes: np.ndarray, edges: np.ndarray, k: int):
+    """(visits, response sum) per (cohort, time bin) cell, additive over sets of subjects;
+    ``cohort_codes`` per subject of the panel, ``edges`` the bins over every visit time."""
     nb = edges.size - 1
-    key = cohorts.codes[panel.codes] * nb + b
+    key = cohort_codes[panel.codes] * nb + edge_bin(panel.time, edges)
     n = np.bincount(key, minlength=k * nb)
     total = np.bincount(key, weights=panel.y, minlength=k * nb)
+    return n, total
+
+
+def profile_frame(cohorts: Strata, edges: np.ndarray, n: np.ndarray, total: np.ndarray
+                  ) -> pd.DataFrame:
+    nb = edges.size - 1
     cell = np.flatnonzero(n)
     mids = (edges[:-1] + edges[1:]) / 2.0
     labels = np.asarray([f"last visit {lab}" for lab in cohorts.labels], dtype=object)

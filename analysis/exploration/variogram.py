@@ -180,12 +180,20 @@ def process_variance(panel: Panel) -> float:
     n_between = (big_n ** 2 - float(np.sum(n ** 2))) / 2.0
     if n_between <= 0:
         return float("nan")
-    r = panel.y - panel.y.mean()
+    return 0.5 * process_variance_sum(panel, float(panel.y.mean()), big_n) / n_between
+
+
+def process_variance_sum(panel: Panel, centre: float, big_n: float) -> float:
+    """Sum over between-subject pairs of squared differences, from the panel's subjects:
+    ``sum_i Q_i (N - n_i) + sum_i S_i^2`` with ``r`` centred at ``centre`` (the mean over every
+    subject) and ``N`` every subject's visits (see :func:`process_variance`); additive over
+    sets of subjects."""
+    n = panel.counts.astype(float)
+    r = panel.y - centre
     m = panel.n_subjects
     s = np.bincount(panel.codes, weights=r, minlength=m)
     q = np.bincount(panel.codes, weights=r * r, minlength=m)
-    total = float(np.sum(q * (big_n - n)) + np.sum(s * s))
-    return 0.5 * total / n_between
+    return float(np.sum(q * (big_n - n)) + np.sum(s * s))
 
 
 def semivariogram(panel: Panel, *, n_bins: int = 10, max_lag: float | None = None,
@@ -253,48 +261,88 @@ def semivariogram(panel: Panel, *, n_bins: int = 10, max_lag: float | None = Non
                    smooth_max_pairs=smooth_max_pairs, chunk_pairs=chunk_pairs)
     _check_values(panel)
     total_pairs = n_within_pairs(panel.counts)
+    max_lag = variogram_max_lag(total_pairs, _longest_lag(panel), max_lag)
+    pick = smooth_pick(total_pairs, smooth_max_pairs, seed)
+    sums = variogram_sums(panel, n_bins=n_bins, max_lag=max_lag, pick=pick,
+                          chunk_pairs=chunk_pairs)
+    return finish_semivariogram(sums, n_bins=n_bins, max_lag=max_lag, total_pairs=total_pairs,
+                                subsampled=pick is not None, seed=seed,
+                                smooth_frac=smooth_frac, pv=process_variance(panel))
+
+
+# --------------------------------------------------------------------------- partial sums
+# The semivariogram is a sum over subjects: :func:`variogram_sums` of a set of subjects can be
+# added up (:func:`add_variogram_sums`) and :func:`finish_semivariogram` turns the total into
+# the result. The in-memory path and the cluster engine both go through these three.
+@dataclass(eq=False)
+class VariogramSums:
+    """Per-bin sums over the pairs of some subjects.
+
+    ``sums``, ``lag_sums``, ``counts``: half squared differences, lags and pair counts per
+    equal-width bin (pairs with lag <= max_lag); ``tally``: per distinct lag while there are
+    at most ``n_bins`` of them (None otherwise); ``smooth_u``, ``smooth_v``: the pairs kept for
+    the smooth, and ``smooth_pos`` their positions in pair order.
+    """
+
+    sums: np.ndarray
+    lag_sums: np.ndarray
+    counts: np.ndarray
+    tally: "_LagTally | None"
+    smooth_u: np.ndarray
+    smooth_v: np.ndarray
+    smooth_pos: np.ndarray
+
+
+def variogram_max_lag(total_pairs: int, longest: float, max_lag: float | None) -> float:
+    """The longest lag binned (the chosen one, or the longest within-subject lag)."""
     if total_pairs == 0:
         raise DataError("the semivariogram needs at least one subject with 2 or more visits; "
                         "every subject has a single visit")
-    notes: list[str] = []
-    t, r = panel.time, panel.y
-    longest = _longest_lag(panel)
     if max_lag is None:
         if not longest > 0:
             raise DataError("the semivariogram needs within-subject lags > 0; every subject's "
                             "visits are at the same time")
         max_lag = longest
-    max_lag = float(max_lag)
+    return float(max_lag)
+
+
+def smooth_pick(total_pairs: int, smooth_max_pairs: int, seed: int) -> np.ndarray | None:
+    """Sorted positions (in pair order) of the seeded subsample the smooth runs through, or
+    None when every pair is used."""
+    if total_pairs > smooth_max_pairs:
+        rng = np.random.default_rng(seed)
+        return np.sort(rng.choice(total_pairs, size=smooth_max_pairs, replace=False))
+    return None
+
+
+def variogram_sums(panel: Panel, *, n_bins: int, max_lag: float, pick: np.ndarray | None,
+                   chunk_pairs: int = DEFAULT_CHUNK_PAIRS) -> VariogramSums:
+    """Bin sums of the panel's within-subject pairs, and the pairs at positions ``pick`` (pair
+    order of :func:`analysis.exploration.pairs.iter_pair_chunks`; None: every pair) for the smooth."""
+    t, r = panel.time, panel.y
     width = max_lag / n_bins
     # distinct lags, tracked while there are no more than n_bins of them (a fixed schedule)
     track: _LagTally | None = _LagTally(scale=max_lag, limit=n_bins)
-
-    # seeded subsample of pair positions for the smooth (positions in chunk order)
-    if total_pairs > smooth_max_pairs:
-        rng = np.random.default_rng(seed)
-        pick = np.sort(rng.choice(total_pairs, size=smooth_max_pairs, replace=False))
-    else:
-        pick = None
-
     sums = np.zeros(n_bins)
     counts = np.zeros(n_bins, dtype=np.int64)
     lag_sums = np.zeros(n_bins)
-    smooth_u, smooth_v = [], []
+    smooth_u, smooth_v, smooth_pos = [], [], []
     offset = 0
     for a, b in iter_pair_chunks(panel.starts, panel.counts, max_pairs=chunk_pairs):
         u = np.abs(t[b] - t[a])
         v = 0.5 * (r[b] - r[a]) ** 2
         k = u.size
         if pick is None:
-            sel_u, sel_v = u, v
+            sel_u, sel_v, idx = u, v, np.arange(k)
         else:
             lo, hi = np.searchsorted(pick, [offset, offset + k])
             idx = pick[lo:hi] - offset
             sel_u, sel_v = u[idx], v[idx]
-        offset += k
         keep = within_edge(sel_u, max_lag, width=width)
         smooth_u.append(sel_u[keep])
         smooth_v.append(sel_v[keep])
+        smooth_pos.append(idx[keep] + offset)
+        offset += k
         inside = within_edge(u, max_lag, width=width)
         u, v = u[inside], v[inside]
         if track is not None and not track.add(u, v):
@@ -303,7 +351,40 @@ def semivariogram(panel: Panel, *, n_bins: int = 10, max_lag: float | None = Non
         sums += np.bincount(which, weights=v, minlength=n_bins)
         lag_sums += np.bincount(which, weights=u, minlength=n_bins)
         counts += np.bincount(which, minlength=n_bins)
+    cat = (lambda parts, dt: np.concatenate(parts) if parts else np.empty(0, dtype=dt))
+    return VariogramSums(sums, lag_sums, counts, track, cat(smooth_u, float),
+                         cat(smooth_v, float), cat(smooth_pos, np.int64))
 
+
+def add_variogram_sums(parts, *, n_bins: int, max_lag: float) -> VariogramSums:
+    """The sums of several sets of subjects (e.g. partitions) as one; the smooth pairs are
+    concatenated as given (callers put them in pair order). Distinct-lag tallies are merged
+    (lags within ``EDGE_TOL * max_lag`` join; the first one stands for the group)."""
+    parts = list(parts)
+    tally: _LagTally | None = _LagTally(scale=max_lag, limit=n_bins)
+    for p in parts:
+        if tally is None or p.tally is None:
+            tally = None
+            continue
+        if p.tally.lags.size and not tally.add_tally(p.tally):
+            tally = None
+    return VariogramSums(
+        sum((p.sums for p in parts), np.zeros(n_bins)),
+        sum((p.lag_sums for p in parts), np.zeros(n_bins)),
+        sum((p.counts for p in parts), np.zeros(n_bins, dtype=np.int64)),
+        tally,
+        np.concatenate([p.smooth_u for p in parts]) if parts else np.empty(0),
+        np.concatenate([p.smooth_v for p in parts]) if parts else np.empty(0),
+        np.concatenate([p.smooth_pos for p in parts]) if parts else np.empty(0, np.int64))
+
+
+def finish_semivariogram(s: VariogramSums, *, n_bins: int, max_lag: float, total_pairs: int,
+                         subsampled: bool, seed: int, smooth_frac: float, pv: float
+                         ) -> Semivariogram:
+    """The semivariogram from the bin sums of every subject and the process variance."""
+    notes: list[str] = []
+    width = max_lag / n_bins
+    sums, lag_sums, counts, track = s.sums, s.lag_sums, s.counts, s.tally
     n_used = int(counts.sum())
     if n_used == 0:
         raise DataError(f"no within-subject pair has a lag <= max_lag ({max_lag:g}); "
@@ -329,14 +410,12 @@ def semivariogram(panel: Panel, *, n_bins: int = 10, max_lag: float | None = Non
     bins = pd.DataFrame({"lag_lo": lo, "lag_hi": hi, "lag_mean": lag_mean,
                          "gamma": gamma, "pairs": counts})
 
-    su = np.concatenate(smooth_u)
-    sv = np.concatenate(smooth_v)
-    if pick is not None:
+    su, sv = s.smooth_u, s.smooth_v
+    if subsampled:
         notes.append(f"The smooth runs through a random subsample of {su.size:,} of "
                      f"{n_used:,} pairs (seed {seed}).")
     smooth = _smooth(su, sv, frac=smooth_frac, notes=notes)
 
-    pv = process_variance(panel)
     if not np.isfinite(pv):
         notes.append("Only one subject: no between-subject pairs, so the process variance "
                      "and the between-subject share are undefined.")
@@ -373,7 +452,11 @@ class _LagTally:
         near = np.where(np.abs(u - d[left]) <= np.abs(u - d[right]), left, right)
         return near, np.abs(u - d[near]) <= self.tol
 
-    def add(self, u: np.ndarray, v: np.ndarray) -> bool:
+    def add_tally(self, other: "_LagTally") -> bool:
+        """Add another tally's per-lag sums (its lags stand for their groups)."""
+        return self.add(other.lags, None, _weights=(other.u_sum, other.v_sum, other.count))
+
+    def add(self, u: np.ndarray, v: np.ndarray, _weights=None) -> bool:
         near, matched = self._nearest(u)
         if not matched.all():
             fresh = u[~matched]
@@ -393,6 +476,12 @@ class _LagTally:
             self.count = np.concatenate((self.count, pad.astype(np.int64)))[order]
             near, _ = self._nearest(u)
         m = self.lags.size
+        if _weights is not None:
+            us, vs, cs = _weights
+            self.u_sum += np.bincount(near, weights=us, minlength=m)
+            self.v_sum += np.bincount(near, weights=vs, minlength=m)
+            self.count += np.bincount(near, weights=cs, minlength=m).astype(np.int64)
+            return True
         self.u_sum += np.bincount(near, weights=u, minlength=m)
         self.v_sum += np.bincount(near, weights=v, minlength=m)
         self.count += np.bincount(near, minlength=m)

@@ -168,6 +168,10 @@ def model_checks(fit, *, name: str | None = None, subject_ids=None) -> ModelChec
     if it is None:
         raise ModelError("this fit keeps no data to check it against; refit the models")
     panel = it.panel
+    X = getattr(it, "X", None)
+    if X is None or np.ndim(X) != 2 or X.shape[0] != getattr(panel, "n_obs", -1):
+        raise ModelError("the fit's visits are not held in memory (e.g. they stay on a "
+                         "cluster's workers), so its residuals cannot be checked here")
     m = panel.n_subjects
     ids = np.arange(m) if subject_ids is None else np.asarray(subject_ids)
     if ids.shape[0] != m:

@@ -322,14 +322,16 @@ def confounder_columns(baseline: pd.DataFrame, column: str):
     return block, [f"{column}: {lv} vs {ref}" for lv in others], str(ref)
 
 
-def check_rank(X: np.ndarray, names) -> None:
+def check_rank(X: np.ndarray, names, n_rows: int | None = None) -> None:
     """Raise ModelError naming the columns that make ``X`` rank deficient (the one rank check
     of every design: the mean model's and the mixed engine's).
 
     Columns are scaled to unit norm; a pivoted QR decomposition gives the rank (a diagonal
     entry of R below ``_RANK_TOL * |R[0, 0]| * max(n, p)`` counts as zero) and the dependent
     columns. The message also names, for the first column (in design order) that does not
-    raise the rank, the earlier columns its linear combination uses.
+    raise the rank, the earlier columns its linear combination uses. ``X`` may be the R factor
+    of the design (same column norms and dependencies, e.g. combined from partitions) when
+    ``n_rows`` gives the design's number of rows.
     """
     X = np.asarray(X, dtype=float)
     norms = np.linalg.norm(X, axis=0)
@@ -339,7 +341,8 @@ def check_rank(X: np.ndarray, names) -> None:
     Z = X / norms
     _, R, piv = sla.qr(Z, mode="economic", pivoting=True)
     d = np.abs(np.diag(R))
-    rank = int((d > _RANK_TOL * (d[0] if d.size else 1.0) * max(Z.shape)).sum())
+    rows = Z.shape[0] if n_rows is None else int(n_rows)
+    rank = int((d > _RANK_TOL * (d[0] if d.size else 1.0) * max(rows, Z.shape[1])).sum())
     if rank == Z.shape[1]:
         return
     dependent = [names[j] for j in piv[rank:]]

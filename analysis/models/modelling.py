@@ -121,6 +121,8 @@ class ModelSet:
         the same mean model, fitted by OLS, not from the exploratory smooth trend.
         Computed by :func:`analysis.exploration.variogram.semivariogram`.
         """
+        if hasattr(self.panel, "residual_variogram"):     # rows on a cluster (analysis.cluster)
+            return self.panel.residual_variogram(n_bins=n_bins, max_lag=max_lag)
         from ..exploration.variogram import semivariogram
         return semivariogram(self.panel.with_y(self.mean_residuals()), n_bins=n_bins,
                              max_lag=max_lag)
@@ -226,7 +228,26 @@ def fit_candidates(cohort, *, structures=DEFAULT_CANDIDATES, correlation: str = 
     one with the lowest AIC among converged fits — a common-practice rule; the
     LRTs and BIC are shown beside it.
     """
-    from .mixed import CORRELATIONS, METHODS, STRUCTURES, fit_mixed
+    structures, shapes, gee = check_candidate_options(structures, correlation, method, gee)
+    mean, keep, n_dropped, notes = candidate_subjects(cohort, mean)
+    panel, baseline = cohort.panel, cohort.baseline.reset_index(drop=True)
+    if n_dropped:
+        panel = panel.subset_subjects(keep)
+        baseline = baseline.loc[keep].reset_index(drop=True)
+    des = design(panel, baseline, mean, covariate_name=COVARIATE_COLUMN)
+    from .mixed.fit import response_variation_problem
+    problem = response_variation_problem(panel.y, des.X, response=_labels(cohort)["response_label"])
+    if problem:
+        raise ModelError(problem)
+
+    return compare_candidates(cohort, panel, des, structures=structures, shapes=shapes,
+                              method=method, mean=mean, gee=gee, notes=notes,
+                              n_dropped=n_dropped, correlation=correlation)
+
+
+def check_candidate_options(structures, correlation, method, gee):
+    """(distinct structures, serial shapes to fit, GEE working correlations), checked."""
+    from .mixed import CORRELATIONS, METHODS, STRUCTURES
 
     structures = tuple(dict.fromkeys(structures))
     if not structures:
@@ -246,7 +267,13 @@ def fit_candidates(cohort, *, structures=DEFAULT_CANDIDATES, correlation: str = 
     if bad:
         raise ModelError(f"unknown GEE working correlation(s) {bad}; choose from {list(WORKING)}")
 
-    panel, baseline = cohort.panel, cohort.baseline.reset_index(drop=True)
+    return structures, shapes, gee
+
+
+def candidate_subjects(cohort, mean: MeanModel):
+    """(mean model adjusted to the cohort, subjects kept, subjects dropped, notes): subjects
+    lacking a value of a covariate the mean model uses are left out."""
+    baseline = cohort.baseline.reset_index(drop=True)
     notes: list[str] = []
     if mean.covariate and COVARIATE_COLUMN not in baseline.columns:
         mean = MeanModel(time=mean.time, covariate=False, interaction=False,
@@ -263,13 +290,15 @@ def fit_candidates(cohort, *, structures=DEFAULT_CANDIDATES, correlation: str = 
         notes.append(f"{n_dropped} of {len(keep)} subjects dropped: missing value of {cols}")
         if not keep.any():
             raise ModelError(f"every subject lacks a value of {cols}; no model can be fitted")
-        panel = panel.subset_subjects(keep)
-        baseline = baseline.loc[keep].reset_index(drop=True)
-    des = design(panel, baseline, mean, covariate_name=COVARIATE_COLUMN)
-    from .mixed.fit import response_variation_problem
-    problem = response_variation_problem(panel.y, des.X, response=_labels(cohort)["response_label"])
-    if problem:
-        raise ModelError(problem)
+    return mean, keep, n_dropped, notes
+
+
+def compare_candidates(cohort, panel, des, *, structures, shapes, method, mean, gee, notes,
+                       n_dropped, correlation) -> ModelSet:
+    """Fit each candidate to the prepared rows (``panel``, design ``des``), compare them, add
+    the GEE rows and the effect statement (the second half of :func:`fit_candidates`; the
+    cluster engine calls it with its own rows)."""
+    from .mixed import fit_mixed
 
     candidates = []
     specs = {s: spec_for(s) for s in structures}

@@ -259,7 +259,8 @@ def prepare(df: pd.DataFrame, roles: Roles, settings: Settings) -> PreparedCohor
     return stratify(select_cohort(df, roles, settings), settings)
 
 
-def select_cohort(df: pd.DataFrame, roles: Roles, settings: Settings) -> CohortSelection:
+def select_cohort(df: pd.DataFrame, roles: Roles, settings: Settings, *,
+                  tracker: type | None = None) -> CohortSelection:
     """Validate the table against the roles and apply the inclusion rules.
 
     Parameters
@@ -270,6 +271,9 @@ def select_cohort(df: pd.DataFrame, roles: Roles, settings: Settings) -> CohortS
     settings : Settings
         Reads origin, unit, time_min, time_max, min_visits, require_covariate,
         covariate and duplicates.
+    tracker : type, optional, keyword-only
+        Counter of the inclusion steps (default :class:`_Tracker`, which stops when a step
+        leaves no visit); the cluster engine passes one that lets a partition run empty.
 
     Returns
     -------
@@ -313,7 +317,7 @@ def select_cohort(df: pd.DataFrame, roles: Roles, settings: Settings) -> CohortS
     for c in covariates:
         work[f"cov:{c}"] = df[c].to_numpy()
 
-    tracker = _Tracker(work["subject"].to_numpy())
+    tracker = (tracker or _Tracker)(work["subject"].to_numpy())
     keep = (work["subject"] >= 0) & work["response"].notna() & work["time_raw"].notna()
     work = work[keep.to_numpy()]
     tracker.record("Subject, time and response all present", work["subject"].to_numpy())

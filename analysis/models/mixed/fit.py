@@ -104,15 +104,30 @@ def response_variation_problem(y, X, *, response: str = "response") -> str | Non
         return None
     dev = y - y.mean()
     tss = float(dev @ dev)
-    if tss <= (1e-12 * max(abs(float(y.mean())), 1e-300))**2 * y.size:
-        return (f"{response} has no variation: every value is {y[0]:g}; a model of change over "
-                "time needs a response that varies")
+    problem = constant_response_problem(tss, float(y.mean()), float(y[0]), y.size, response)
+    if problem:
+        return problem
     X = np.asarray(X, dtype=float)
     if X.ndim == 1:
         X = X[:, None]
     beta = np.linalg.lstsq(X, y, rcond=None)[0]
     r = y - X @ beta
-    if float(r @ r) <= 1e-20 * tss:
+    return reproduced_response_problem(float(r @ r), tss, response)
+
+
+def constant_response_problem(tss: float, mean: float, first: float, n: int,
+                              response: str) -> str | None:
+    """The refusal of :func:`response_variation_problem` for a constant response, or None."""
+    if tss <= (1e-12 * max(abs(mean), 1e-300))**2 * n:
+        return (f"{response} has no variation: every value is {first:g}; a model of change over "
+                "time needs a response that varies")
+    return None
+
+
+def reproduced_response_problem(rss: float, tss: float, response: str) -> str | None:
+    """The refusal of :func:`response_variation_problem` for a response the mean model
+    reproduces exactly (residual sum of squares ``rss``), or None."""
+    if rss <= 1e-20 * tss:
         return (f"the mean model reproduces {response} exactly (no residual variation left "
                 "after the fixed effects): there is nothing for a covariance model to describe; "
                 "check that the response is not computed from the time or covariate columns")
@@ -132,21 +147,36 @@ def _start_natural(panel, X, spec, time_scale):
     the range starts at half the median follow-up span.
     """
     beta, *_ = np.linalg.lstsq(X, panel.y, rcond=None)
-    r = panel.y - X @ beta
     n, p = X.shape
-    s2 = max(float(r @ r) / max(n - p, 1), 1e-12)
+    return start_from_sums(spec, start_sums(panel, X, beta, time_scale), n, p, time_scale)
+
+
+def start_sums(panel, X, beta, time_scale) -> dict:
+    """The OLS-residual pieces of the start values: sums over visits, and per-subject arrays
+    (subject means, centred time sums of squares and cross-products, follow-up spans)."""
+    r = panel.y - X @ beta
     cnt = panel.counts.astype(float)
     rbar = np.add.reduceat(r, panel.starts) / cnt
     dev = r - rbar[panel.codes]
-    dfw = float((cnt - 1).sum())
-    w = float(dev @ dev) / dfw if dfw > 0 else s2
-    w = max(w, 0.05 * s2)
-    between = max(float(np.var(rbar)) - w * float(np.mean(1.0 / cnt)), 0.1 * s2)
     t = panel.time / time_scale
     tbar = np.add.reduceat(t, panel.starts) / cnt
     tc = t - tbar[panel.codes]
-    stt = np.add.reduceat(tc * tc, panel.starts)
-    str_ = np.add.reduceat(tc * r, panel.starts)
+    span = (np.maximum.reduceat(t, panel.starts) - np.minimum.reduceat(t, panel.starts))
+    return {"rr": float(r @ r), "devdev": float(dev @ dev), "cnt": cnt, "rbar": rbar,
+            "stt": np.add.reduceat(tc * tc, panel.starts),
+            "str": np.add.reduceat(tc * r, panel.starts), "span": span}
+
+
+def start_from_sums(spec, sums: dict, n: int, p: int, time_scale: float) -> dict:
+    """Start values (user scale) from :func:`start_sums` of every subject (see
+    :func:`_start_natural`)."""
+    s2 = max(sums["rr"] / max(n - p, 1), 1e-12)
+    cnt, rbar = sums["cnt"], sums["rbar"]
+    dfw = float((cnt - 1).sum())
+    w = sums["devdev"] / dfw if dfw > 0 else s2
+    w = max(w, 0.05 * s2)
+    between = max(float(np.var(rbar)) - w * float(np.mean(1.0 / cnt)), 0.1 * s2)
+    stt, str_ = sums["stt"], sums["str"]
     nat = {}
     if spec.n_random >= 1:
         nat["intercept_var"] = between
@@ -157,7 +187,7 @@ def _start_natural(panel, X, spec, time_scale):
         nat["slope_var"] = max(v1, 0.05 * between)
         nat["intercept_slope_cov"] = 0.0
     if spec.serial:
-        span = (np.maximum.reduceat(t, panel.starts) - np.minimum.reduceat(t, panel.starts))
+        span = sums["span"]
         span = span[span > 0]
         nat["serial_var"] = 0.5 * w if spec.n_random else max(0.5 * w + between, 0.5 * w)
         nat["range"] = 0.5 * float(np.median(span)) if span.size else 1.0
@@ -415,6 +445,16 @@ def _theta_names(spec):
     return spec.parameters
 
 
+def lag_span(panel, time_scale) -> tuple[float, float]:
+    """(shortest positive within-subject lag, or 1; time span, or 1), internal time scale."""
+    t = panel.time / time_scale
+    lags = np.diff(t)[np.diff(panel.codes) == 0]
+    lags = lags[lags > 0]
+    min_lag = float(lags.min()) if lags.size else 1.0
+    span = float(t.max() - t.min()) if t.size else 1.0
+    return min_lag, span
+
+
 def _boundary(spec, theta, theta0, panel, time_scale) -> Boundary:
     """Notes on estimates at or near the edge of the parameter space, and the interior θ entries."""
     comp = components(spec, theta)
@@ -450,11 +490,8 @@ def _boundary(spec, theta, theta0, panel, time_scale) -> Boundary:
             notes.append("range is not identified while serial_var is 0")
             at.update(("serial_var", "range"))
             keep[k_serial:k_serial + 2] = False
-        t = panel.time / time_scale
-        lags = np.diff(t)[np.diff(panel.codes) == 0]
-        lags = lags[lags > 0]
-        min_lag = float(lags.min()) if lags.size else 1.0
-        span = float(t.max() - t.min()) if t.size else 1.0
+        min_lag, span = (panel.lag_span(time_scale) if hasattr(panel, "lag_span")
+                         else lag_span(panel, time_scale))
         if comp.range < 1e-2 * min_lag:
             notes.append("range is near 0 (boundary): serial correlation has died out before "
                          "the shortest lag, so it is confounded with measurement error")
@@ -526,15 +563,21 @@ def fit_mixed(panel, X, *, names, structure: str = "intercept+slope",
     Verbeke & Molenberghs (2000), Linear Mixed Models for Longitudinal Data, ch. 5–6.
     """
     spec = spec_for(structure)
-    X, names = _check_inputs(panel, X, names, spec, method, correlation, maxiter)
+    # a cohort spread over a cluster (analysis.cluster) brings its own row-level steps
+    remote = hasattr(panel, "mixed_data")
+    X, names = (panel.check_inputs if remote else _check_inputs)(
+        panel, X, names, spec, method, correlation, maxiter)
     correlation = spec.correlation_for(correlation) or correlation   # a structure may fix it
-    tmax = float(np.max(np.abs(panel.time))) if panel.n_obs else 1.0
+    tmax = (panel.max_abs_time() if remote else
+            float(np.max(np.abs(panel.time))) if panel.n_obs else 1.0)
     time_scale = tmax if tmax > 0 else 1.0
-    if spec.serial:
+    if remote:
+        data = panel.mixed_data(X, spec, time_scale)
+    elif spec.serial:
         data = build_groups(panel, X, spec, time_scale)
     else:
         data = build_sums(panel, X, spec, time_scale)
-    nat0 = _start_natural(panel, X, spec, time_scale)
+    nat0 = (panel.start_natural if remote else _start_natural)(panel, X, spec, time_scale)
     if start:
         unknown = set(start) - set(spec.parameters)
         if unknown:
@@ -559,8 +602,12 @@ def fit_mixed(panel, X, *, names, structure: str = "intercept+slope",
     df = _satterthwaite_df(data, spec, theta, correlation, method, cov_theta, cov_beta)
     internals = FitInternals(panel=panel, X=X, spec=spec, theta=theta, time_scale=time_scale,
                              data=data)
-    u = bias_reduced_scores(internals.groups, spec, theta, ev.beta, cov_beta, correlation)
-    robust = cov_beta @ (u.T @ u) @ cov_beta
+    if remote:
+        meat = data.score_meat(spec, theta, ev.beta, cov_beta, correlation)
+    else:
+        u = bias_reduced_scores(internals.groups, spec, theta, ev.beta, cov_beta, correlation)
+        meat = u.T @ u
+    robust = cov_beta @ meat @ cov_beta
     robust = 0.5 * (robust + robust.T)
     n_params = X.shape[1] + spec.n_theta
     notes = bnd.notes

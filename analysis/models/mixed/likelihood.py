@@ -148,10 +148,29 @@ def evaluate(groups, spec: StructureSpec, theta: np.ndarray, *, correlation: str
     -------
     Evaluation
     """
+    if hasattr(groups, "evaluate_at"):        # data spread over a cluster (analysis.cluster)
+        return groups.evaluate_at(spec, theta, correlation=correlation, method=method,
+                                  gradient=gradient, beta=beta)
     if isinstance(groups, SubjectSums):
         return evaluate_sums(groups, spec, theta, method=method, gradient=gradient, beta=beta)
     comp = components(spec, theta)
     p = groups[0].X.shape[2]
+    M, Xy, logdet, n_obs, Vinvs, chols, Bs = dense_first_pass(groups, comp, correlation, p)
+    M = 0.5 * (M + M.T)
+    if beta is None:
+        beta = np.linalg.solve(M, Xy)
+    quad, resid, avecs = dense_second_pass(groups, Vinvs, beta)
+    reml = method == "reml"
+    ll = _profiled_loglik(n_obs, logdet, quad, M, reml)
+    grad = None
+    if gradient:
+        grad = _gradient(groups, spec, comp, correlation, reml, M, Vinvs, avecs, Bs)
+    return Evaluation(float(ll), grad, beta, M, Vinvs, chols, resid)
+
+
+def dense_first_pass(groups, comp: Components, correlation: str, p: int):
+    """Sums over the subjects of some groups that do not need β̂: (Σ XᵀV⁻¹X, Σ XᵀV⁻¹y,
+    Σ log|V_i|, visits) and the per-group V⁻¹, Cholesky factors and V⁻¹X."""
     M = np.zeros((p, p))
     Xy = np.zeros(p)
     logdet = 0.0
@@ -173,9 +192,11 @@ def evaluate(groups, spec: StructureSpec, theta: np.ndarray, *, correlation: str
         Vinvs.append(Vinv)
         chols.append(C)
         Bs.append(B)
-    M = 0.5 * (M + M.T)
-    if beta is None:
-        beta = np.linalg.solve(M, Xy)
+    return M, Xy, logdet, n_obs, Vinvs, chols, Bs
+
+
+def dense_second_pass(groups, Vinvs, beta):
+    """(Σ r̂ᵀV⁻¹r̂, residuals r̂ and V⁻¹r̂ per group) at β̂, over the subjects of some groups."""
     quad = 0.0
     resid, avecs = [], []
     for g, Vinv in zip(groups, Vinvs):
@@ -184,12 +205,7 @@ def evaluate(groups, spec: StructureSpec, theta: np.ndarray, *, correlation: str
         quad += float(np.einsum("mi,mi->", r, a))
         resid.append(r)
         avecs.append(a)
-    reml = method == "reml"
-    ll = _profiled_loglik(n_obs, logdet, quad, M, reml)
-    grad = None
-    if gradient:
-        grad = _gradient(groups, spec, comp, correlation, reml, M, Vinvs, avecs, Bs)
-    return Evaluation(float(ll), grad, beta, M, Vinvs, chols, resid)
+    return quad, resid, avecs
 
 
 def _profiled_loglik(n_obs, logdet, quad, M, reml):
@@ -292,13 +308,16 @@ class SubjectSums:
 
 
 def build_sums(panel, X: np.ndarray, spec: StructureSpec, time_scale: float,
-               y: np.ndarray | None = None) -> SubjectSums:
-    """Per-subject sums for :func:`evaluate_sums` (built once per fit, O(N·p²))."""
+               y: np.ndarray | None = None, shift: np.ndarray | None = None) -> SubjectSums:
+    """Per-subject sums for :func:`evaluate_sums` (built once per fit, O(N·p²)); ``shift``
+    (default the OLS coefficients of these rows) must be shared when sums of several sets of
+    subjects are added up."""
     if spec.serial:
         raise ValueError("per-subject sums cannot represent a serial process; use build_groups")
     y = panel.y if y is None else y
     X = np.asarray(X, dtype=float)
-    shift = np.linalg.lstsq(X, y, rcond=None)[0]
+    if shift is None:
+        shift = np.linalg.lstsq(X, y, rcond=None)[0]
     y0 = y - X @ shift
     W = np.column_stack([X, y0])
     starts = panel.starts
@@ -378,18 +397,8 @@ def evaluate_sums(sums: SubjectSums, spec: StructureSpec, theta: np.ndarray, *, 
     stacked (q·m)-row arrays.
     """
     comp = components(spec, theta)
-    tau2, G, q, p, N = comp.error_var, comp.G, sums.q, sums.p, sums.n_obs
-    k = p + 1
-    m = sums.counts.size
-    if q:
-        Pinv, logdetP = _small_system(sums, comp)
-        H = _rows_times(Pinv, sums.ZW)                    # (q, m, k)
-        GH = np.tensordot(G, H, axes=(1, 0))               # (q, m, k)
-        T = sums.ZW.reshape(-1, k).T @ GH.reshape(-1, k)
-        logdet = (N - q * m) * np.log(tau2) + logdetP
-    else:
-        T = 0.0
-        logdet = N * np.log(tau2)
+    tau2, p, N = comp.error_var, sums.p, sums.n_obs
+    T, logdet, aux = sums_first_pass(sums, comp)
     C = (sums.WW - T) / tau2
     C = 0.5 * (C + C.T)
     M = C[:p, :p]
@@ -406,29 +415,57 @@ def evaluate_sums(sums: SubjectSums, spec: StructureSpec, theta: np.ndarray, *, 
     grad = None
     if gradient:
         Minv = np.linalg.inv(M) if reml else None
-        D = sums.WW.copy()
-        if q:
-            SGH = _rows_times(sums.ZZ, GH)
-            D += GH.reshape(-1, k).T @ SGH.reshape(-1, k) - T - T.T
-        D /= tau2 * tau2
-        err = -N / tau2 + float(w @ D @ w)
-        if reml:
-            err += float(np.sum(Minv * D[:p, :p]))
-        grad = []
-        if q:
-            ZVZ = np.einsum("abm,bcm->ac", Pinv, sums.ZZ)
-            ZVZ = 0.5 * (ZVZ + ZVZ.T)
-            err += float(np.sum(G * ZVZ)) / tau2
-            Za = H @ w                                      # (q, m)
-            Wg = Za @ Za.T - ZVZ
-            if reml:
-                HX = np.ascontiguousarray(H[:, :, :p]).reshape(q, -1)
-                HXM = (H[:, :, :p].reshape(-1, p) @ Minv).reshape(q, -1)
-                Wg += HX @ HXM.T
-            grad = [0.5 * float(np.sum(dG * Wg)) for dG in comp.dG]
-        grad.append(0.5 * tau2 * err)
-        grad = np.asarray(grad)
+        grad = sums_gradient(sums, comp, T, aux, w, Minv)
     return Evaluation(float(ll), grad, beta, M, None, None, None)
+
+
+def sums_first_pass(sums: SubjectSums, comp: Components):
+    """(T = Σ (ZᵀW)ᵀG H, Σ log|V_i|, (P⁻¹, H, GH) per subject) over the subjects of ``sums``
+    (see :func:`evaluate_sums`); T and the log-determinant add up over sets of subjects."""
+    tau2, G, q, N = comp.error_var, comp.G, sums.q, sums.n_obs
+    k = sums.p + 1
+    m = sums.counts.size
+    if q:
+        Pinv, logdetP = _small_system(sums, comp)
+        H = _rows_times(Pinv, sums.ZW)                    # (q, m, k)
+        GH = np.tensordot(G, H, axes=(1, 0))               # (q, m, k)
+        T = sums.ZW.reshape(-1, k).T @ GH.reshape(-1, k)
+        logdet = (N - q * m) * np.log(tau2) + logdetP
+        return T, logdet, (Pinv, H, GH)
+    return 0.0, N * np.log(tau2), (None, None, None)
+
+
+def sums_gradient(sums: SubjectSums, comp: Components, T, aux, w: np.ndarray,
+                  Minv: np.ndarray | None) -> np.ndarray:
+    """∂ℓ/∂θ from the subjects of ``sums`` at w = (−(β̂ − shift), 1) and M⁻¹ (REML; None for
+    ML) of every subject: linear in the per-subject sums, so gradients of sets of subjects
+    add up to the gradient of all of them."""
+    tau2, G, q, p, N = comp.error_var, comp.G, sums.q, sums.p, sums.n_obs
+    k = p + 1
+    Pinv, H, GH = aux
+    reml = Minv is not None
+    D = sums.WW.copy()
+    if q:
+        SGH = _rows_times(sums.ZZ, GH)
+        D += GH.reshape(-1, k).T @ SGH.reshape(-1, k) - T - T.T
+    D /= tau2 * tau2
+    err = -N / tau2 + float(w @ D @ w)
+    if reml:
+        err += float(np.sum(Minv * D[:p, :p]))
+    grad = []
+    if q:
+        ZVZ = np.einsum("abm,bcm->ac", Pinv, sums.ZZ)
+        ZVZ = 0.5 * (ZVZ + ZVZ.T)
+        err += float(np.sum(G * ZVZ)) / tau2
+        Za = H @ w                                      # (q, m)
+        Wg = Za @ Za.T - ZVZ
+        if reml:
+            HX = np.ascontiguousarray(H[:, :, :p]).reshape(q, -1)
+            HXM = (H[:, :, :p].reshape(-1, p) @ Minv).reshape(q, -1)
+            Wg += HX @ HXM.T
+        grad = [0.5 * float(np.sum(dG * Wg)) for dG in comp.dG]
+    grad.append(0.5 * tau2 * err)
+    return np.asarray(grad)
 
 
 def subject_scores(data, spec: StructureSpec, theta: np.ndarray, ev: Evaluation) -> np.ndarray:
