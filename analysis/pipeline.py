@@ -32,7 +32,7 @@ import pandas as pd
 from .errors import SettingsError
 from .jsonsafe import json_safe
 from .loading import Dataset
-from .prepare import CohortSelection, PreparedCohort, select_cohort, stratify
+from .prepare import CohortSelection, ColumnReader, PreparedCohort, select_cohort, stratify
 from .settings import COUNT_LIMITS, STAGE_FIELDS, Roles, Settings, json_key
 
 
@@ -266,7 +266,21 @@ class Workbench:
     def selection(self, dataset: Dataset, roles: Roles, settings: Settings) -> CohortSelection:
         keyed = settings.only(self.stage_fields("selection", settings))
         return self._memo("selection", dataset, roles, settings,
-                          lambda: select_cohort(dataset.frame, roles, keyed))
+                          lambda: select_cohort(dataset.frame, roles, keyed,
+                                                columns=self.columns(dataset)))
+
+    def columns(self, dataset: Dataset) -> ColumnReader:
+        """The dataset's role columns, each parsed once (subject codes, numbers, dates, column
+        kinds) and kept in the exploratory cache under the data's key: a settings change never
+        re-reads them."""
+        def memo(key, compute):
+            value, fresh = self._cache.get_or_compute((dataset.key, "columns", key), compute)
+            if fresh:
+                with self._count_lock:
+                    self.compute_counts["columns"] += 1
+            return value
+
+        return ColumnReader(dataset.frame, memo)
 
     def cohort(self, dataset: Dataset, roles: Roles, settings: Settings) -> PreparedCohort:
         # the cached cohort carries exactly the settings of its key: a later request that

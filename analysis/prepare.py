@@ -259,7 +259,8 @@ def prepare(df: pd.DataFrame, roles: Roles, settings: Settings) -> PreparedCohor
     return stratify(select_cohort(df, roles, settings), settings)
 
 
-def select_cohort(df: pd.DataFrame, roles: Roles, settings: Settings) -> CohortSelection:
+def select_cohort(df: pd.DataFrame, roles: Roles, settings: Settings, *,
+                  columns: "ColumnReader | None" = None) -> CohortSelection:
     """Validate the table against the roles and apply the inclusion rules.
 
     Parameters
@@ -270,6 +271,10 @@ def select_cohort(df: pd.DataFrame, roles: Roles, settings: Settings) -> CohortS
     settings : Settings
         Reads origin, unit, time_min, time_max, min_visits, require_covariate,
         covariate and duplicates.
+    columns : ColumnReader, optional
+        Where the role columns are parsed (subject codes, numbers, dates, column kinds); a
+        caching reader (``Workbench``) parses each once per data and roles, so that a
+        settings change never re-reads them. Default: parsed here.
 
     Returns
     -------
@@ -285,6 +290,7 @@ def select_cohort(df: pd.DataFrame, roles: Roles, settings: Settings) -> CohortS
         A setting that does not fit the data (e.g. origin 'as-is' with a date column).
     """
     _check_columns(df, roles, settings)
+    columns = columns or ColumnReader(df)
     # positions, not labels: a filtered or re-indexed table must line up row by row
     df = df.reset_index(drop=True)
     primary = settings.covariate or (roles.covariates[0] if roles.covariates else None)
@@ -293,22 +299,23 @@ def select_cohort(df: pd.DataFrame, roles: Roles, settings: Settings) -> CohortS
         covariates = (*covariates, settings.stratify_by)
 
     work = pd.DataFrame({"_row": np.arange(len(df), dtype=np.int64)})
-    sid, labels = _subject_codes(df[roles.subject])
+    sid, labels = columns.subject_codes(roles.subject)
     work["subject"] = sid                       # rank of the subject's label; -1 = missing
-    work["response"] = _numeric(df[roles.response], roles.response, "response", finite=True)
-    time_kind, work["time_raw"] = _time_column(df[roles.time], roles.time, "time",
-                                               settings.date_order)
+    # the parsed columns keep the table's own index: assigned by position
+    work["response"] = columns.numeric(roles.response, "response").to_numpy()
+    time_kind, time_raw = columns.time_column(roles.time, "time", settings.date_order)
+    work["time_raw"] = time_raw.to_numpy()
     if settings.origin == "as-is" and time_kind == "date":
         raise SettingsError(
             f"column '{clip(roles.time)}' holds dates, so time since an origin must be computed: "
             "choose origin 'event-date' (with an event-date column) or 'first-visit'",
             field="origin")
     if settings.origin == "event-date":
-        work["event"] = _time_values(df[roles.event_date], roles.event_date, "event date",
-                                     time_kind, settings.date_order)
+        work["event"] = columns.time_values(roles.event_date, "event date", time_kind,
+                                            settings.date_order).to_numpy()
     if roles.followup_end:
-        work["fu_end"] = _time_values(df[roles.followup_end], roles.followup_end,
-                                      "follow-up end", time_kind, settings.date_order)
+        work["fu_end"] = columns.time_values(roles.followup_end, "follow-up end", time_kind,
+                                             settings.date_order).to_numpy()
     latest = float(_days(work["time_raw"]).max()) if time_kind == "date" else np.nan
     for c in covariates:
         work[f"cov:{c}"] = df[c].to_numpy()
@@ -344,7 +351,7 @@ def select_cohort(df: pd.DataFrame, roles: Roles, settings: Settings) -> CohortS
         tracker.record("Repeated visits at the same time averaged", work["subject"].to_numpy())
 
     warnings: list[str] = []
-    kinds = {c: ("numeric" if column_kind(df[c]) == "number" else "categorical") for c in covariates}
+    kinds = {c: ("numeric" if columns.kind(c) == "number" else "categorical") for c in covariates}
     base = _baseline_values(work, covariates, kinds, warnings, labels)
 
     if primary and settings.require_covariate:
@@ -415,6 +422,43 @@ def stratify(selection: CohortSelection, settings: Settings) -> PreparedCohort:
     warnings.extend(getattr(strata, "notes", ()))
     return PreparedCohort(selection=selection, strata=strata, x=x, center_value=center_value,
                           baseline=base, warnings=tuple(warnings), settings=settings)
+
+
+# --------------------------------------------------------------------------- column parsing
+class ColumnReader:
+    """Parses the role columns of one table for :func:`select_cohort`.
+
+    Each answer depends only on the table, the column, its role and the date order, never on
+    the other settings; ``memo(key, compute)`` (default: compute every time) lets a cache keep
+    them, so that changing, say, the fewest visits re-runs the inclusion rules on parsed
+    arrays instead of re-reading text and dates. A parse that fails raises its message each
+    time it is asked (failures are not kept). Treat the returned arrays as read-only.
+    """
+
+    def __init__(self, df: pd.DataFrame, memo=None):
+        self._df = df
+        self._memo = memo or (lambda key, compute: compute())
+
+    def subject_codes(self, column: str) -> tuple[np.ndarray, np.ndarray]:
+        """(code per row, distinct labels), see :func:`_subject_codes`."""
+        return self._memo(("subject", column), lambda: _subject_codes(self._df[column]))
+
+    def numeric(self, column: str, role: str) -> pd.Series:
+        """Finite numbers as float (see :func:`_numeric`)."""
+        return self._memo(("numeric", column, role),
+                          lambda: _numeric(self._df[column], column, role, finite=True))
+
+    def time_column(self, column: str, role: str, order: str) -> tuple[str, pd.Series]:
+        return self._memo(("time", column, role, order),
+                          lambda: _time_column(self._df[column], column, role, order))
+
+    def time_values(self, column: str, role: str, kind: str, order: str) -> pd.Series:
+        return self._memo(("time values", column, role, kind, order),
+                          lambda: _time_values(self._df[column], column, role, kind, order))
+
+    def kind(self, column: str) -> str:
+        """'number', 'date' or 'text' (:func:`analysis.loading.column_kind`)."""
+        return self._memo(("kind", column), lambda: column_kind(self._df[column]))
 
 
 # --------------------------------------------------------------------------- helpers
