@@ -300,6 +300,8 @@ def drive(url: str, timeout_ms: int) -> dict:
                                   "round_trips": run.requests}
         out["payload"] = dict(run.payload)
         out["traffic"] = run.traffic
+        print(f"  open: {secs} s, figures {json.dumps(run.payload)}, traffic {run.traffic:,} B",
+              flush=True)
 
         def act(name, do):
             n0 = run.requests
@@ -308,6 +310,7 @@ def drive(url: str, timeout_ms: int) -> dict:
             secs, redrawn = run.wait_redrawn(since, TOUCHES[name])
             out["actions"][name] = {"page": secs, "redrawn": sorted(redrawn),
                                     "round_trips": run.requests - n0}
+            print(f"  {name}: {secs} s, {len(redrawn)} views", flush=True)
 
         act("min visits", lambda: set_number(page, "settings-min-visits", base.min_visits + 1))
         act("strata method", lambda: page.locator("#settings-strata-method label",
@@ -366,6 +369,7 @@ def main(argv=None) -> int:
             cases.append((f"generated cohort ({path.name})", path))
         for name, path in cases:
             engine = engine_times(path)
+            print(f"{name}: engine {json.dumps(engine)}", flush=True)
             proc, url, load_s = start_server(path, free_port())
             try:
                 page = drive(url, int(args.timeout * 1000))
