@@ -16,7 +16,7 @@ Stages and the settings they read (see :data:`analysis.settings.STAGE_FIELDS`)::
     lagcorr       residuals + window width
     summaries     cohort + data cut (dropout view)
     models        cohort + the model choices (structures, correlation, REML/ML,
-                  confounders, spline in time, GEE rows; see analysis.modelstage)
+                  confounders, spline in time, GEE rows; see analysis.models.modelstage)
 """
 from __future__ import annotations
 
@@ -31,8 +31,9 @@ import pandas as pd
 
 from .errors import SettingsError
 from .jsonsafe import json_safe
-from .loading import Dataset
-from .prepare import CohortSelection, ColumnReader, PreparedCohort, select_cohort, stratify
+from .preparation.loading import Dataset
+from .preparation.prepare import (CohortSelection, ColumnReader, PreparedCohort, select_cohort,
+                                  stratify)
 from .settings import COUNT_LIMITS, STAGE_FIELDS, Roles, Settings, json_key
 
 
@@ -230,7 +231,7 @@ class Workbench:
     @staticmethod
     def stage_fields(stage: str, settings: Settings) -> tuple[str, ...]:
         """The settings a stage's result depends on."""
-        from .modelstage import MODEL_FIELDS
+        from .models.modelstage import MODEL_FIELDS
         sel = STAGE_FIELDS["cohort"]
         strata = STAGE_FIELDS["strata"]
         res = STAGE_FIELDS["residuals"] + (strata if settings.detrend_within_strata else ())
@@ -295,7 +296,7 @@ class Workbench:
         return self._memo("cohort", dataset, roles, settings, compute)
 
     def subject_fits(self, dataset: Dataset, roles: Roles, settings: Settings):
-        from .subject_fits import fit_subject_lines
+        from .exploration.subject_fits import fit_subject_lines
 
         return self._memo("subject_fits", dataset, roles, settings,
                           lambda: fit_subject_lines(self.selection(dataset, roles, settings).panel))
@@ -316,7 +317,7 @@ class Workbench:
         return frame
 
     def residuals(self, dataset: Dataset, roles: Roles, settings: Settings):
-        from .detrend import detrend
+        from .exploration.detrend import detrend
 
         def compute():
             if settings.detrend_within_strata:
@@ -336,14 +337,14 @@ class Workbench:
         return panel.with_y(self.residuals(dataset, roles, settings).residual)
 
     def variogram(self, dataset: Dataset, roles: Roles, settings: Settings):
-        from .variogram import semivariogram
+        from .exploration.variogram import semivariogram
 
         return self._memo("variogram", dataset, roles, settings, lambda: semivariogram(
             self.residual_panel(dataset, roles, settings), n_bins=settings.variogram_bins,
             max_lag=settings.variogram_max_lag))
 
     def lag_correlation(self, dataset: Dataset, roles: Roles, settings: Settings):
-        from .lagcorr import default_lag_width, lag_correlation
+        from .exploration.lagcorr import default_lag_width, lag_correlation
 
         def compute():
             panel = self.residual_panel(dataset, roles, settings)
@@ -353,7 +354,7 @@ class Workbench:
         return self._memo("lagcorr", dataset, roles, settings, compute)
 
     def summaries(self, dataset: Dataset, roles: Roles, settings: Settings) -> Summaries:
-        from .summaries import cohort_dropout, slope_covariate_smooth, stratum_table
+        from .exploration.summaries import cohort_dropout, slope_covariate_smooth, stratum_table
 
         def compute():
             cohort = self.cohort(dataset, roles, settings)
@@ -372,8 +373,8 @@ class Workbench:
 
     def models(self, dataset: Dataset, roles: Roles, settings: Settings, choices=None):
         """Candidate mixed models fitted to the cohort (refitted only when the data, the
-        cohort's settings or the :class:`~analysis.modelstage.ModelChoices` change)."""
-        from . import modelstage
+        cohort's settings or the :class:`~analysis.models.modelstage.ModelChoices` change)."""
+        from .models import modelstage
 
         choices = choices if choices is not None else modelstage.ModelChoices()
         return self._memo("models", dataset, roles, settings,

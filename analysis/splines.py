@@ -1,7 +1,7 @@
 """The natural cubic spline basis in time, defined once, and its two knot rules.
 
-The detrending step (:mod:`analysis.detrend`) and the time spline of the mixed-model mean
-model (:mod:`analysis.mean_model`) share :func:`natural_spline_basis`. They place their
+The detrending step (:mod:`analysis.exploration.detrend`) and the time spline of the mixed-model mean
+model (:mod:`analysis.models.mean_model`) share :func:`natural_spline_basis`. They place their
 knots differently, and both rules are kept (each is part of results already reported; one
 rule for both would change fitted numbers), named by :func:`spline_knots`'s ``rule``:
 

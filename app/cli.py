@@ -93,7 +93,7 @@ def _add_plan_options(p: argparse.ArgumentParser) -> None:
 
 def _add_model_options(p: argparse.ArgumentParser) -> None:
     """The model flags, built from the declaration of the model choices."""
-    from analysis.modelstage import CHOICE_FIELDS, ModelChoices
+    from analysis.models.modelstage import CHOICE_FIELDS, ModelChoices
 
     defaults = ModelChoices().to_dict()
     for f in CHOICE_FIELDS.values():
@@ -116,7 +116,7 @@ def _add_model_options(p: argparse.ArgumentParser) -> None:
 
 def _model_choices(args):
     """ModelChoices from the model flags (absent flags keep the declared defaults)."""
-    from analysis.modelstage import CHOICE_FIELDS, ModelChoices
+    from analysis.models.modelstage import CHOICE_FIELDS, ModelChoices
 
     given = {}
     for f in CHOICE_FIELDS.values():
@@ -199,7 +199,7 @@ def resolve(args: argparse.Namespace) -> tuple[object, Roles | None, Settings]:
 
     data = getattr(args, "data", None)
     if data == "demo" or data is None and args.command == "serve":
-        from analysis.demo import DEMO_CSV, demo_roles, demo_settings
+        from analysis.preparation.demo import DEMO_CSV, demo_roles, demo_settings
         if data == "demo" or not any(getattr(args, k) for k in ("subject", "time", "response")):
             data = DEMO_CSV
             base_roles = base_roles or demo_roles().to_dict()
@@ -317,7 +317,7 @@ def _write_json(payload: dict, out: str) -> None:
 
 
 def _load(data) -> "object":
-    from analysis.loading import read_table
+    from analysis.preparation.loading import read_table
 
     return read_table(data)
 
@@ -334,8 +334,8 @@ def cmd_summarize(args) -> int:
 
 def cmd_fit(args) -> int:
     from analysis.jsonsafe import json_safe
-    from analysis.modelstage import fit_models
-    from analysis.prepare import prepare
+    from analysis.models.modelstage import fit_models
+    from analysis.preparation.prepare import prepare
 
     _check_output(args.json, "--json")
     choices = _model_choices(args)                       # checks every option before any work
@@ -348,10 +348,10 @@ def cmd_fit(args) -> int:
 
 
 def cmd_report(args) -> int:
-    from analysis.loading import Dataset
+    from analysis.preparation.loading import Dataset
     from analysis.pipeline import Workbench
-    from analysis.overlay import report_figures, report_plan_figure
-    from analysis.report import build_report
+    from analysis.output.report import build_report
+    from app.figures import report_figures, report_plan_figure
 
     _check_output(args.out, "--out")
     data, roles, settings = resolve(args)
@@ -368,9 +368,7 @@ def cmd_report(args) -> int:
         made = _plan_for(args, wb, dataset, roles, settings, models)
     text = build_report(exploration.cohort, exploration, models, data_name=dataset.name,
                         data_key=dataset.key, choices=choices,
-                        figures=report_figures(exploration, models, unit=settings.unit,
-                                               response=roles.response,
-                                               response_unit=exploration.cohort.response_unit),
+                        figures=report_figures(exploration, models),
                         plan=made, plan_figure=report_plan_figure(made) if made else None)
     try:
         Path(args.out).write_text(text, encoding="utf-8")
@@ -386,7 +384,7 @@ MAX_SIMULATE = 5000
 
 def _plan_for(args, wb, dataset, roles, settings, models):
     """The next-study plan from the plan flags, cohort defaults for the rest."""
-    from analysis.plan_defaults import parse_schedule, plan_from_cohort
+    from analysis.models.plan_defaults import parse_schedule, plan_from_cohort
 
     return plan_from_cohort(
         wb.cohort(dataset, roles, settings), models,
@@ -396,12 +394,12 @@ def _plan_for(args, wb, dataset, roles, settings, models):
 
 
 def cmd_plan(args) -> int:
-    from analysis.loading import Dataset
-    from analysis.modelstage import ModelChoices
+    from analysis.preparation.loading import Dataset
+    from analysis.models.modelstage import ModelChoices
     from analysis.pipeline import Workbench
-    from analysis.planning import simulate_power
+    from analysis.models.planning import simulate_power
 
-    from analysis.plan_defaults import parse_schedule
+    from analysis.models.plan_defaults import parse_schedule
 
     _check_output(args.json, "--json")
     parse_schedule(args.schedule)                       # a typo fails before any fitting

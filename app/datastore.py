@@ -14,7 +14,7 @@ from typing import Callable
 import pandas as pd
 
 from analysis.errors import DataError
-from analysis.loading import Dataset
+from analysis.preparation.loading import Dataset
 
 #: the fixed key of the bundled demo registry (also what a shared link carries)
 DEMO_KEY = "demo"
@@ -41,7 +41,7 @@ UPLOAD_NAME = "uploaded table"
 
 
 class DataStore:
-    """Bounded, thread-safe store of :class:`~analysis.loading.Dataset` objects.
+    """Bounded, thread-safe store of :class:`~analysis.preparation.loading.Dataset` objects.
 
     Parameters
     ----------
@@ -136,6 +136,6 @@ class DataStore:
 
 def demo_dataset() -> Dataset:
     """The bundled invented registry as a dataset with the fixed key :data:`DEMO_KEY`."""
-    from analysis.demo import load_demo
+    from analysis.preparation.demo import load_demo
 
     return Dataset(DEMO_KEY, load_demo(), "Kidney transplant registry (invented demo)")

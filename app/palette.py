@@ -13,7 +13,7 @@ from collections.abc import Iterable
 
 import numpy as np
 
-from analysis.strata import MISSING_LABEL
+from analysis.preparation.strata import MISSING_LABEL
 
 #: qualitative colours for strata 0, 1, 2, ... (cycled beyond its length)
 STRATUM_COLORS: tuple[str, ...] = (

@@ -8,7 +8,7 @@ from dataclasses import dataclass
 from typing import Any, Callable
 
 from analysis.errors import CohortError, DataError
-from analysis.loading import Dataset
+from analysis.preparation.loading import Dataset
 from analysis.pipeline import Workbench
 from analysis.settings import Roles, Settings
 

@@ -31,12 +31,12 @@ import warnings
 import numpy as np
 import pandas as pd
 
-from analysis.lagcorr import default_lag_width
-from analysis.pairs import within_pair_rows
+from analysis.exploration.lagcorr import default_lag_width
+from analysis.exploration.pairs import within_pair_rows
 from analysis.pipeline import explore
-from analysis.panel import Panel
+from analysis.preparation.panel import Panel
 from analysis.settings import Roles, Settings
-from analysis.variogram import semivariogram
+from analysis.exploration.variogram import semivariogram
 
 ROLES = Roles(subject="subject", time="months", response="egfr", covariates=("donor_age",))
 SETTINGS = Settings(min_visits=1, n_strata=4, detrend="linear")

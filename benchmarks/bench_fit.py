@@ -24,8 +24,8 @@ import warnings
 import numpy as np
 import statsmodels.api as sm
 
-from analysis.mixed import fit_mixed
-from analysis.mixed.simulate import simulate_cohort
+from analysis.models.mixed import fit_mixed
+from analysis.models.mixed.simulate import simulate_cohort
 
 
 def _reference(panel, X):

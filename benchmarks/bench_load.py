@@ -46,7 +46,7 @@ def large_cohort(rows: int):
     import numpy as np
     import pandas as pd
 
-    from analysis.demo import load_demo
+    from analysis.preparation.demo import load_demo
 
     base = load_demo()
     reps = max(1, -(-rows // len(base)))
@@ -65,8 +65,8 @@ def serve(rows: int, cache_mb: float, port_queue) -> None:
 
     from werkzeug.serving import make_server
 
-    from analysis.demo import demo_roles, demo_settings
-    from analysis.loading import Dataset
+    from analysis.preparation.demo import demo_roles, demo_settings
+    from analysis.preparation.loading import Dataset
     from app.server import create_app
 
     if rows:
@@ -103,7 +103,7 @@ def _outputs(key: str) -> list[dict]:
 
 def build_payloads(data_key: str) -> list[tuple[str, dict]]:
     """(name, body) for every replayed callback under each settings variant."""
-    from analysis.demo import demo_roles, demo_settings
+    from analysis.preparation.demo import demo_roles, demo_settings
     from app import controls as ctl
     from app.server import create_app
 

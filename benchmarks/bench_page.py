@@ -102,13 +102,23 @@ IDLE_JS = "() => !document.querySelector('[data-dash-is-loading=\"true\"]')"
 
 
 # ------------------------------------------------------------------ data
+def _analysis():
+    """(demo module, loading module) wherever this checkout keeps them (the script also runs
+    on older checkouts, for before/after numbers)."""
+    try:
+        from analysis.preparation import demo, loading
+    except ImportError:
+        from analysis import demo, loading
+    return demo, loading
+
+
 def large_cohort_csv(subjects: int, folder: Path, parquet: bool = False) -> Path:
     """The demo registry repeated with new subject ids (responses jittered by N(0, 1)) until it
     holds ``subjects`` subjects (a multiple of the demo's 1,200), written to ``folder``."""
     import numpy as np
     import pandas as pd
 
-    from analysis.demo import load_demo
+    load_demo = _analysis()[0].load_demo
 
     base = load_demo()
     n_base = base["recipient_id"].nunique()
@@ -133,9 +143,11 @@ def large_cohort_csv(subjects: int, folder: Path, parquet: bool = False) -> Path
 # ------------------------------------------------------------------ engine
 def engine_times(path: Path | None) -> dict:
     """Workbench compute time per action (seconds), in this process."""
-    from analysis.demo import demo_roles, demo_settings, load_demo
-    from analysis.loading import Dataset, read_table
     from analysis.pipeline import Workbench
+
+    demo, loading = _analysis()
+    demo_roles, demo_settings, load_demo = demo.demo_roles, demo.demo_settings, demo.load_demo
+    Dataset, read_table = loading.Dataset, loading.read_table
 
     frame = load_demo() if path is None else read_table(path)
     dataset = Dataset.from_frame(frame)
@@ -281,9 +293,7 @@ def choose(page, dropdown_id: str, text: str) -> None:
 def drive(url: str, timeout_ms: int) -> dict:
     from playwright.sync_api import sync_playwright
 
-    from analysis.demo import demo_settings
-
-    base = demo_settings()
+    base = _analysis()[0].demo_settings()
     out = {"actions": {}}
     with sync_playwright() as pw:
         browser = pw.chromium.launch(executable_path=CHROMIUM, headless=True,

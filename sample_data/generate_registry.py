@@ -6,7 +6,7 @@ Run ``python sample_data/generate_registry.py`` to rewrite
 (``--truth-out PATH``): why each recipient's visits end, which the file alone
 cannot say (the truth is read off the simulation without drawing any extra
 random numbers, so the registry file is unchanged by it). All parameters come from
-``analysis.demo.TRUE_PARAMETERS``; see ``sample_data/README.md``.
+``analysis.preparation.demo.TRUE_PARAMETERS``; see ``sample_data/README.md``.
 
 Model (t in months since transplant, x = log2(marker / marker_ref))::
 
@@ -31,7 +31,7 @@ ROOT = Path(__file__).resolve().parents[1]
 if str(ROOT) not in sys.path:  # allow running without `pip install -e .`
     sys.path.insert(0, str(ROOT))
 
-from analysis.demo import DEMO_COLUMNS, DEMO_CSV, TRUE_PARAMETERS  # noqa: E402
+from analysis.preparation.demo import DEMO_COLUMNS, DEMO_CSV, TRUE_PARAMETERS  # noqa: E402
 
 DAYS_PER_MONTH = 30.4375
 

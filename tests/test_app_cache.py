@@ -14,13 +14,13 @@ import numpy as np
 import pandas as pd
 import pytest
 
-import analysis.detrend
-import analysis.lagcorr
+import analysis.exploration.detrend
+import analysis.exploration.lagcorr
 import analysis.pipeline
-import analysis.subject_fits
-import analysis.variogram
-from analysis.demo import demo_roles, demo_settings, load_demo
-from analysis.loading import Dataset
+import analysis.exploration.subject_fits
+import analysis.exploration.variogram
+from analysis.preparation.demo import demo_roles, demo_settings, load_demo
+from analysis.preparation.loading import Dataset
 from analysis.pipeline import Workbench
 from analysis.settings import STAGE_FIELDS, Roles, Settings
 from app import controls as ctl
@@ -69,10 +69,10 @@ def calls(monkeypatch):
 
     counted(analysis.pipeline, "select_cohort", "select")
     counted(analysis.pipeline, "stratify", "stratify")
-    counted(analysis.subject_fits, "fit_subject_lines", "fits")
-    counted(analysis.detrend, "detrend", "detrend")
-    counted(analysis.variogram, "semivariogram", "variogram")
-    counted(analysis.lagcorr, "lag_correlation", "lagcorr")
+    counted(analysis.exploration.subject_fits, "fit_subject_lines", "fits")
+    counted(analysis.exploration.detrend, "detrend", "detrend")
+    counted(analysis.exploration.variogram, "semivariogram", "variogram")
+    counted(analysis.exploration.lagcorr, "lag_correlation", "lagcorr")
     return counts
 
 

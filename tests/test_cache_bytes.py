@@ -12,8 +12,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from analysis.demo import demo_roles, demo_settings, load_demo
-from analysis.loading import Dataset
+from analysis.preparation.demo import demo_roles, demo_settings, load_demo
+from analysis.preparation.loading import Dataset
 from analysis.pipeline import ResultCache, Workbench, deep_nbytes
 from app.datastore import DataStore
 

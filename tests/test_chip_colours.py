@@ -14,7 +14,7 @@ import numpy as np
 import pytest
 
 from app import ids, palette
-from app.server import stratum_chips
+from app.sections.kept import stratum_chips
 
 SHEET = Path(__file__).resolve().parents[1] / palette.CSS_PATH
 RULE = re.compile(r"^(?P<sel>[^{]+?)\s*\{\s*background:\s*(?P<colour>#[0-9A-Fa-f]{6});\s*\}$")

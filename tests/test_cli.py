@@ -7,7 +7,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from analysis.demo import load_demo
+from analysis.preparation.demo import load_demo
 from analysis.settings import Roles, Settings
 from app.cli import main, resolve, build_parser
 
@@ -101,7 +101,7 @@ def test_console_script_runs_as_a_process(tmp_path):
 
 
 def test_analysis_layer_never_imports_the_front_end():
-    code = ("import sys, analysis.pipeline, analysis.prepare, analysis.loading;"
+    code = ("import sys, analysis.pipeline, analysis.preparation.prepare, analysis.preparation.loading;"
             "bad=[m for m in ('dash','plotly','flask') if m in sys.modules]; print(bad)")
     proc = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120)
     assert proc.stdout.strip() == "[]", proc.stdout + proc.stderr

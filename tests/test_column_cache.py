@@ -1,7 +1,7 @@
 """Role columns are parsed once per (data, roles): a settings change re-runs the inclusion rules
 on parsed arrays, with the same result and the same messages as a fresh parse.
 
-Reference: ``analysis.prepare.select_cohort`` called directly on the table (no cache), and a
+Reference: ``analysis.preparation.prepare.select_cohort`` called directly on the table (no cache), and a
 brute-force count of the parse calls in the test.
 """
 from __future__ import annotations
@@ -10,10 +10,10 @@ import numpy as np
 import pandas as pd
 import pytest
 
-import analysis.prepare as prepare
-from analysis.demo import demo_roles, demo_settings, load_demo
+import analysis.preparation.prepare as prepare
+from analysis.preparation.demo import demo_roles, demo_settings, load_demo
 from analysis.errors import DataError
-from analysis.loading import Dataset
+from analysis.preparation.loading import Dataset
 from analysis.pipeline import Workbench
 
 

@@ -5,10 +5,10 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from analysis.compare import NESTED, comparison_table, likelihood_ratio, mixture_sf, nested_pairs
+from analysis.models.compare import NESTED, comparison_table, likelihood_ratio, mixture_sf, nested_pairs
 from analysis.errors import ModelError
-from analysis.mixed import STRUCTURES, fit_mixed
-from analysis.panel import Panel
+from analysis.models.mixed import STRUCTURES, fit_mixed
+from analysis.preparation.panel import Panel
 
 _NPAR = {"independence": 1, "intercept": 2, "intercept+slope": 4, "serial": 3,
          "intercept+serial": 4, "intercept+slope+serial": 6}

@@ -45,7 +45,7 @@ def test_short_coverage_of_model_based_and_robust_intervals():
     assert out["model_coverage"] >= lowest, out
     assert out["robust_coverage"] >= lowest, out
     # the simulator's truth is what the intervals are judged against
-    from analysis.mixed.simulate import simulate_cohort
+    from analysis.models.mixed.simulate import simulate_cohort
     np.testing.assert_allclose(out["truth"], simulate_cohort(3, seed=0).truth["beta"][3],
                                rtol=0, atol=0)
     # model SE close to the empirical SD of the estimates (brute-force Monte-Carlo check;

@@ -10,7 +10,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from analysis.demo import (DEMO_COLUMNS, DEMO_CSV, TRUE_PARAMETERS, demo_roles, demo_settings,
+from analysis.preparation.demo import (DEMO_COLUMNS, DEMO_CSV, TRUE_PARAMETERS, demo_roles, demo_settings,
                            load_demo)
 from analysis.settings import Settings
 

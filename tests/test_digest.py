@@ -6,7 +6,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from analysis.digest import (WHISKER_IQR, band_members, box_statistics, cell_members,
+from analysis.exploration.digest import (WHISKER_IQR, band_members, box_statistics, cell_members,
                              density_grid, group_percentiles, percent_rank, percentile_bands,
                              subject_sample, thin_steps)
 

@@ -15,14 +15,14 @@ import pytest
 from scipy.stats import norm
 from statsmodels.duration.survfunc import SurvfuncRight
 
-from analysis.demo import DEMO_CSV, demo_roles, demo_settings, load_demo
+from analysis.preparation.demo import DEMO_CSV, demo_roles, demo_settings, load_demo
 from analysis.errors import DataError, SettingsError
-from analysis.panel import Panel
+from analysis.preparation.panel import Panel
 from analysis.pipeline import explore
-from analysis.prepare import select_cohort
+from analysis.preparation.prepare import select_cohort
 from analysis.settings import Roles, Settings
-from analysis.strata import cut_strata
-from analysis.summaries import (CENSORED_STATUS, COMPLETE_STATUS, LEFT_EARLY_STATUS, OVERDUE_GAPS,
+from analysis.preparation.strata import cut_strata
+from analysis.exploration.summaries import (CENSORED_STATUS, COMPLETE_STATUS, LEFT_EARLY_STATUS, OVERDUE_GAPS,
                                 cohort_dropout, dropout_summary, retention_curve)
 
 TRUTH_CSV = DEMO_CSV.with_name("kidney_registry_truth.csv")

@@ -6,7 +6,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from analysis.effects import (CAUTION, effect_statement, effect_steps, format_number,
+from analysis.models.effects import (CAUTION, effect_statement, effect_steps, format_number,
                               interaction_summary, parse_number)
 from analysis.errors import ModelError
 

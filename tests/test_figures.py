@@ -15,10 +15,13 @@ import pytest
 from scipy import stats
 from statsmodels.nonparametric.smoothers_lowess import lowess
 
-from analysis.demo import demo_roles, demo_settings, load_demo
-from analysis.loading import Dataset
+from analysis.preparation.demo import demo_roles, demo_settings, load_demo
+from analysis.preparation.loading import Dataset
 from analysis.pipeline import Workbench
-from app import draw, figures, palette
+from analysis.exploration import summaries
+from app import figures, palette
+from app.sections import courses, followup, lagcorr, rate
+from app.sections import lines as lines_view
 
 N_SUBJECTS = 150
 
@@ -52,7 +55,7 @@ def loose():
 
 
 def _shown(r, per=15, keep=None):
-    chosen, _, _ = draw.sample_subjects(r["frame"], per_stratum=per, seed=3, keep=keep)
+    chosen, _, _ = courses.sample_subjects(r["frame"], per_stratum=per, seed=3, keep=keep)
     return r["frame"][r["frame"]["subject"].isin(set(chosen))]
 
 
@@ -60,14 +63,14 @@ def _all_figures(r):
     c, lines, summ = r["cohort"], r["lines"], r["summ"]
     sid = str(lines["subject"].iloc[0])
     return {
-        "courses": draw.courses(_shown(r), full=r["frame"], cohort=c, highlight_subject=sid),
-        "variogram": draw.variogram(r["vg"], cohort=c),
-        "lag_heatmap": draw.lag_heatmap(r["lc"], cohort=c),
-        "intervals": draw.intervals(lines, cohort=c, order="slope", highlight_subject=sid),
-        "slopes_by_stratum": draw.slopes_by_stratum(lines, cohort=c),
-        "slope_vs_covariate": draw.slope_vs_covariate(lines, summ.slope_smooth, cohort=c),
-        "visits": draw.visits(lines, cohort=c),
-        "dropout": draw.dropout(summ.dropout, cohort=c),
+        "courses": courses.courses_figure(_shown(r), full=r["frame"], look=figures.cohort_look(c), highlight_subject=sid),
+        "variogram": figures.variogram_figure(r["vg"], look=figures.cohort_look(c)),
+        "lag_heatmap": lagcorr.lag_heatmap_figure(r["lc"], look=figures.cohort_look(c)),
+        "intervals": lines_view.intervals_figure(lines, look=figures.cohort_look(c), order="slope", highlight_subject=sid),
+        "slopes_by_stratum": rate.slopes_by_stratum_figure(lines, look=figures.cohort_look(c)),
+        "slope_vs_covariate": rate.slope_vs_covariate_figure(lines, summ.slope_smooth, look=figures.cohort_look(c)),
+        "visits": followup.visits_figure(lines, look=figures.cohort_look(c)),
+        "dropout": followup.dropout_figure(summ.dropout, look=figures.cohort_look(c)),
     }
 
 
@@ -115,7 +118,7 @@ def test_every_figure_has_title_axis_titles_legend_and_units(res):
 def test_courses_one_panel_per_group_means_from_every_subject(res):
     c, frame = res["cohort"], res["frame"]
     shown = _shown(res)
-    fig = draw.courses(shown, full=frame, cohort=c)
+    fig = courses.courses_figure(shown, full=frame, look=figures.cohort_look(c))
     labels = list(c.strata.labels)
     # one panel per stratum: distinct subplot axes used by traces (legend key trace excluded)
     used = {ax for ax in _trace_axes(fig)}
@@ -126,17 +129,18 @@ def test_courses_one_panel_per_group_means_from_every_subject(res):
     assert len(line_traces) == len(labels)
     drawn = {v for t in line_traces for v in t.customdata if v is not None}
     assert drawn == set(shown["subject"])
+    # the figure draws analysis.exploration.summaries.group_means (tested on its own in test_summaries.py);
     # reference: pandas — the same 12 equal-width bins cut with pd.cut over ALL subjects
     t = frame["time"].to_numpy(float)
-    edges = np.linspace(t.min(), t.max(), figures.MEAN_BINS + 1)
+    edges = np.linspace(t.min(), t.max(), summaries.MEAN_BINS + 1)
     edges[-1] = np.nextafter(edges[-1], np.inf)
     ref = (frame.assign(bin=pd.cut(frame["time"], edges, right=False, labels=False))
            .groupby(["stratum_label", "bin"])
            .agg(time=("time", "mean"), response=("response", "mean"), n=("time", "size"))
            .reset_index())
-    ref = ref[ref["n"] >= figures.MEAN_MIN_VISITS]
+    ref = ref[ref["n"] >= summaries.MEAN_MIN_VISITS]
     for lab in labels:
-        tr = next(t for t in fig.data if t.name == f"{draw.look(c).group_title(lab)} mean")
+        tr = next(t for t in fig.data if t.name == f"{figures.cohort_look(c).group_title(lab)} mean")
         want = ref[ref["stratum_label"] == lab].sort_values("time")
         np.testing.assert_allclose(np.asarray(tr.x, float), want["time"], rtol=1e-10)
         np.testing.assert_allclose(np.asarray(tr.y, float), want["response"], rtol=1e-10)
@@ -155,7 +159,7 @@ def test_courses_highlights_subject_and_group(res):
     sid = str(frame["subject"].iloc[0])
     lab = str(frame["stratum_label"].iloc[0])
     other = next(s for s in c.strata.labels if s != lab)
-    fig = draw.courses(_shown(res, keep=sid), full=frame, cohort=c, highlight_subject=sid,
+    fig = courses.courses_figure(_shown(res, keep=sid), full=frame, look=figures.cohort_look(c), highlight_subject=sid,
                        highlight_stratum=lab)
     hl = [t for t in fig.data if t.name == f"subject {sid}"]
     assert len(hl) == 1 and hl[0].line.color == palette.HIGHLIGHT_COLOR
@@ -172,8 +176,11 @@ def test_courses_highlights_subject_and_group(res):
 # ----------------------------------------------------------------------- 2 semivariogram
 def test_variogram_pairs_sizes_and_model_curves(res):
     vg, c, panel = res["vg"], res["cohort"], res["resid"]
-    curves = [("exponential", [0.0, 10.0, 40.0], [5.0, 20.0, 30.0])]
-    fig = draw.variogram(vg, cohort=c, model_curves=curves)
+    curves = pd.DataFrame({"model": ["exponential"] * 3, "lag": [0.0, 10.0, 40.0],
+                           "gamma": [5.0, 20.0, 30.0]})
+    fig = figures.variogram_figure(vg, look=figures.cohort_look(c))
+    fitted = figures.variogram_figure(vg, look=figures.cohort_look(c), model_curves=curves,
+                                      preferred="exponential")
     pts = fig.data[0]
     pairs = np.asarray(pts.customdata)[:, 2].astype(float)
     # reference: brute force — every within-subject pair by a pandas self-merge, binned by numpy
@@ -189,8 +196,11 @@ def test_variogram_pairs_sizes_and_model_curves(res):
     size = np.asarray(pts.marker.size, float)
     i, j = np.triu_indices(len(size), 1)
     assert np.all(np.sign(size[i] - size[j]) == np.sign(pairs[i] - pairs[j]))
-    model = [t for t in fig.data if t.name == "model: exponential"]
-    assert len(model) == 1 and list(model[0].y) == curves[0][2]
+    # the same points under the fitted curves (one figure function, one style)
+    assert list(fitted.data[0].y) == list(pts.y) and list(fitted.data[0].marker.size) == list(size)
+    model = [t for t in fitted.data if t.name == "exponential ★"]
+    assert len(model) == 1 and list(model[0].y) == curves["gamma"].tolist()
+    assert len(fitted.data) == 2     # points and one curve: no smooth, no process variance
     ref = [t for t in fig.data if t.name.startswith("process variance")]
     assert ref and ref[0].line.dash == "dash"
     assert any("process variance" in (a.text or "") for a in fig.layout.annotations)
@@ -199,7 +209,7 @@ def test_variogram_pairs_sizes_and_model_curves(res):
 # ----------------------------------------------------------------------- 3 lag correlation
 def test_heatmap_text_matches_pandas_corr_and_counts(res):
     lc, panel = res["lc"], res["resid"]
-    fig = draw.lag_heatmap(lc, cohort=res["cohort"])
+    fig = lagcorr.lag_heatmap_figure(lc, look=figures.cohort_look(res["cohort"]))
     heat = next(t for t in fig.data if t.type == "heatmap")
     assert (heat.zmin, heat.zmax) == (-1, 1)
     # reference: pandas — per-subject window means, pairwise-complete DataFrame.corr and counts
@@ -240,7 +250,7 @@ def _segments_by_row(fig):
 
 def test_interval_ends_equal_scipy_t_intervals_and_groups_are_ordered(res):
     c, lines, frame = res["cohort"], res["lines"], res["frame"]
-    fig = draw.intervals(lines, cohort=c, order="slope")
+    fig = lines_view.intervals_figure(lines, look=figures.cohort_look(c), order="slope")
     seg = _segments_by_row(fig)
     # reference: scipy.stats.linregress per subject (a plain loop) and the t quantile
     ref = {}
@@ -273,7 +283,7 @@ def test_interval_ends_equal_scipy_t_intervals_and_groups_are_ordered(res):
 @pytest.mark.parametrize("order", ["intercept", "covariate", "subject"])
 def test_interval_orders(res, order):
     lines = res["lines"]
-    fig = draw.intervals(lines, cohort=res["cohort"], order=order)
+    fig = lines_view.intervals_figure(lines, look=figures.cohort_look(res["cohort"]), order=order)
     ref = lines.set_index(lines["subject"].astype(str))
     for t in fig.data:
         if t.mode == "markers" and t.legendgroup in res["cohort"].strata.labels:
@@ -286,7 +296,7 @@ def test_interval_orders(res, order):
 
 def test_two_visit_subjects_are_points_named_in_legend(loose):
     lines, frame = loose["lines"], loose["frame"]
-    fig = draw.intervals(lines, cohort=loose["cohort"], order="slope")
+    fig = lines_view.intervals_figure(lines, look=figures.cohort_look(loose["cohort"]), order="slope")
     two = [t for t in fig.data if t.legendgroup == "two-visits"]
     # reference: pandas count of visits per subject in the cohort frame
     n_visits = frame.groupby("subject").size()
@@ -303,7 +313,7 @@ def test_many_subjects_stay_readable(res):
     big = pd.concat([base.assign(subject=base["subject"].astype(str) + f"-{k}")
                      for k in range(3)], ignore_index=True)
     assert len(big) > 300
-    fig = draw.intervals(big, cohort=res["cohort"], order="slope")
+    fig = lines_view.intervals_figure(big, look=figures.cohort_look(res["cohort"]), order="slope")
     # y ticks name the groups, not 450 subjects; one interval trace + one point trace per group
     assert len(fig.layout.yaxis.tickvals) == res["cohort"].strata.n_strata
     assert len(fig.data) <= 3 * res["cohort"].strata.n_strata + 2
@@ -312,7 +322,7 @@ def test_many_subjects_stay_readable(res):
     assert ids == set(big["subject"])
     # WebGL is painted above SVG: the highlighted subject must be drawn with the same kind
     sid = str(big["subject"].iloc[7])
-    fig = draw.intervals(big, cohort=res["cohort"], order="slope", highlight_subject=sid)
+    fig = lines_view.intervals_figure(big, look=figures.cohort_look(res["cohort"]), order="slope", highlight_subject=sid)
     hl = next(t for t in fig.data if t.name == f"subject {sid}")
     assert hl.type == fig.data[0].type == "scattergl"
     assert list(hl.customdata[0])[0] == sid
@@ -320,20 +330,20 @@ def test_many_subjects_stay_readable(res):
 
 def test_bad_order_is_a_clear_error(res):
     with pytest.raises(ValueError, match="order == 'visits', must be one of"):
-        draw.intervals(res["lines"], cohort=res["cohort"], order="visits")
+        lines_view.intervals_figure(res["lines"], look=figures.cohort_look(res["cohort"]), order="visits")
 
 
 # ----------------------------------------------------------------------- 5 rate of change
 def test_slopes_by_group_and_against_covariate(res):
     c, lines, summ = res["cohort"], res["lines"], res["summ"]
-    box = draw.slopes_by_stratum(lines, cohort=c)
+    box = rate.slopes_by_stratum_figure(lines, look=figures.cohort_look(c))
     # reference: pandas groupby of the subject-lines table
     by = lines.groupby("stratum_label")["slope"].apply(lambda s: sorted(s.dropna()))
     for t in box.data:
         if t.type == "box":
             lab = np.asarray(t.customdata, dtype=object)[0, 1]
             assert sorted(np.asarray(t.y, float)) == pytest.approx(by[lab])
-    fig = draw.slope_vs_covariate(lines, summ.slope_smooth, cohort=c)
+    fig = rate.slope_vs_covariate_figure(lines, summ.slope_smooth, look=figures.cohort_look(c))
     assert fig.layout.xaxis.type == "log"     # log2 transform of a positive covariate
     assert "mg/mmol" in fig.layout.xaxis.title.text
     pts = [t for t in fig.data if t.mode == "markers"]
@@ -352,10 +362,10 @@ def test_slopes_by_group_and_against_covariate(res):
 # ----------------------------------------------------------------------- 5 follow-up
 def test_visits_histogram_matches_pandas_counts(res):
     c, frame = res["cohort"], res["frame"]
-    fig = draw.visits(res["lines"], cohort=c)
+    fig = followup.visits_figure(res["lines"], look=figures.cohort_look(c))
     # reference: pandas — visits per subject from the long frame, counted per group
     per = frame.groupby(["stratum_label", "subject"]).size().rename("n").reset_index()
-    title_to_label = {draw.look(c).group_title(lab): lab for lab in c.strata.labels}
+    title_to_label = {figures.cohort_look(c).group_title(lab): lab for lab in c.strata.labels}
     for t in fig.data:
         want = per[per["stratum_label"] == title_to_label[t.name]]["n"].value_counts()
         got = pd.Series(np.asarray(t.y, int), index=np.asarray(t.x, int))
@@ -365,7 +375,7 @@ def test_visits_histogram_matches_pandas_counts(res):
 def test_dropout_retention_curves_and_last_visit_means(res):
     c, frame, summ = res["cohort"], res["frame"], res["summ"]
     d = summ.dropout
-    fig = draw.dropout(d, cohort=c)
+    fig = followup.dropout_figure(d, look=figures.cohort_look(c))
     subj = d.subjects.assign(subject=d.subjects["subject"].astype(str))
     for lab in c.strata.labels:
         tr = next(t for t in fig.data if t.legendgroup == lab and t.name and t.line.width)
@@ -393,11 +403,11 @@ def test_dropout_retention_curves_and_last_visit_means(res):
 
 
 def test_dropout_without_potential_followup_shows_last_visits_only(res):
-    from analysis.summaries import dropout_summary
+    from analysis.exploration.summaries import dropout_summary
 
     c, frame = res["cohort"], res["frame"]
     d = dropout_summary(c.panel, c.strata, subject_ids=c.subject_ids)
-    fig = draw.dropout(d, cohort=c)
+    fig = followup.dropout_figure(d, look=figures.cohort_look(c))
     assert "cannot be told apart" in fig.layout.title.subtitle.text
     assert fig.layout.yaxis.title.text == "share seen at or after"
     assert not [a for a in fig.layout.annotations if a.text.startswith("horizon")]
@@ -416,7 +426,7 @@ def test_group_colours_are_the_same_in_every_view_and_no_value_is_grey(loose):
     want = {lab: palette.hex_to_rgb(col) for lab, col in palette.stratum_colours(labels).items()}
     assert want["No value"] == palette.hex_to_rgb(palette.NO_STRATUM_COLOR)
     figs = _all_figures(loose)
-    title = {draw.look(c).group_title(lab): lab for lab in labels}
+    title = {figures.cohort_look(c).group_title(lab): lab for lab in labels}
     seen = []
     for t in figs["courses"].data:
         if t.mode == "lines" and t.showlegend and t.legendgroup in want:
@@ -432,16 +442,16 @@ def test_group_colours_are_the_same_in_every_view_and_no_value_is_grey(loose):
 
 
 def test_empty_figure_carries_the_message():
-    fig = draw.empty("Choose the response column.")
+    fig = figures.empty_figure("Choose the response column.")
     assert fig.layout.annotations[0].text == "Choose the response column."
 
 
 def test_categorical_covariate_gives_a_message_not_a_traceback(res):
     lines = res["lines"]
     cat = lines.assign(covariate=np.where(lines["slope"] > 0, "rising", "falling"))
-    fig = draw.slope_vs_covariate(cat, None, cohort=res["cohort"])
+    fig = rate.slope_vs_covariate_figure(cat, None, look=figures.cohort_look(res["cohort"]))
     assert "no numeric values" in fig.layout.annotations[0].text
-    fig = draw.intervals(cat, cohort=res["cohort"], order="covariate")
+    fig = lines_view.intervals_figure(cat, look=figures.cohort_look(res["cohort"]), order="covariate")
     # reference: pandas — text keys sort alphabetically within each group
     for t in fig.data:
         if t.mode == "markers" and t.legendgroup in res["cohort"].strata.labels:
@@ -452,24 +462,24 @@ def test_categorical_covariate_gives_a_message_not_a_traceback(res):
 
 # ----------------------------------------------------------------------- readable layout
 def test_panel_titles_fit_their_panels_and_wrap_long_labels():
-    # reference: the character budget documented in figures.panel_title (100 characters
+    # reference: the character budget documented in courses.panel_title (100 characters
     # across the graph, shared by the panel columns) — checked on the produced text
     for ncol in (1, 2, 3, 4):
         budget = int(100 / ncol)
         for label in ("1.0 – 10.7", "37.8 – 318.9", "deceased donor, extended criteria"):
-            text = figures.panel_title(label, 1265, ncol=ncol)
+            text = courses.panel_title(label, 1265, ncol=ncol)
             lines = text.split("<br>")
             assert all(len(line) <= max(budget, len(max(label.split(), key=len))) for line in lines)
             assert " ".join(lines).replace(" · ", " ").split() == (
                 f"{label} n = 1,265".split()), text
-    assert figures.panel_title("1.0 – 10.7", 5, ncol=4, bold=True).startswith("<b>1.0 – 10.7")
+    assert courses.panel_title("1.0 – 10.7", 5, ncol=4, bold=True).startswith("<b>1.0 – 10.7")
 
 
 def test_rate_and_dropout_labels_are_short_and_carry_units(res):
     c, lines, summ = res["cohort"], res["lines"], res["summ"]
-    look = draw.look(c)
+    look = figures.cohort_look(c)
     unit = res["roles"].response_unit
-    box = draw.slopes_by_stratum(lines, cohort=c)
+    box = rate.slopes_by_stratum_figure(lines, look=figures.cohort_look(c))
     # x ticks: the bare group ranges (the analysis layer's labels), horizontal; the unit
     # is named once in the axis title
     assert list(box.layout.xaxis.tickvals) == list(c.strata.labels)
@@ -477,14 +487,14 @@ def test_rate_and_dropout_labels_are_short_and_carry_units(res):
     assert box.layout.xaxis.tickangle == 0
     assert look.stratifier_unit and look.stratifier_unit in box.layout.xaxis.title.text
     # the slope axis title wraps onto two lines and keeps its units
-    scatter = draw.slope_vs_covariate(lines, summ.slope_smooth, cohort=c)
+    scatter = rate.slope_vs_covariate_figure(lines, summ.slope_smooth, look=figures.cohort_look(c))
     for fig in (box, scatter):
         title = fig.layout.yaxis.title.text
         assert title.count("<br>") == 1 and unit in title and "per month" in title
         assert max(len(part) for part in title.split("<br>")) <= 30
-        assert fig.layout.margin.t >= figures.RATE_TOP
+        assert fig.layout.margin.t >= rate.RATE_TOP
     # dropout: "All subjects" without the covariate's unit; the horizon with the time unit
-    drop = draw.dropout(summ.dropout, cohort=c)
+    drop = followup.dropout_figure(summ.dropout, look=figures.cohort_look(c))
     ticks = list(drop.layout.yaxis2.ticktext)
     assert "All subjects" in ticks
     assert all(t.endswith(look.stratifier_unit) for t in ticks if t != "All subjects")

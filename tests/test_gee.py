@@ -8,8 +8,8 @@ from scipy import stats
 from statsmodels.genmod import cov_struct as cs
 
 from analysis.errors import ModelError
-from analysis.gee import gee_fit
-from analysis.panel import Panel
+from analysis.models.gee import gee_fit
+from analysis.preparation.panel import Panel
 
 
 @pytest.fixture(scope="module")

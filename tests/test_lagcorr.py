@@ -16,8 +16,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from analysis.errors import SettingsError
-from analysis.lagcorr import default_lag_width, lag_correlation
-from analysis.panel import Panel
+from analysis.exploration.lagcorr import default_lag_width, lag_correlation
+from analysis.preparation.panel import Panel
 
 
 def pandas_reference(subject, time, y, *, width, start):

@@ -8,7 +8,7 @@ import pandas as pd
 import pytest
 
 from analysis.errors import DataError
-from analysis.loading import Dataset, describe_columns, fingerprint, read_table, sniff_delimiter
+from analysis.preparation.loading import Dataset, describe_columns, fingerprint, read_table, sniff_delimiter
 
 ROWS = [["id", "visit", "value"], ["a", "2020-01-01", "1.5"], ["a", "2020-02-01", "2.5"],
         ["b", "2020-01-03", "3"]]
@@ -79,7 +79,7 @@ def test_describe_columns_kinds():
 
 # ------------------------------------------------------------------ dates: one format per column
 from analysis.errors import ECHO_LIMIT, clip  # noqa: E402
-from analysis.loading import column_kind, read_dates  # noqa: E402
+from analysis.preparation.loading import column_kind, read_dates  # noqa: E402
 
 _STAMPS = pd.to_datetime("2019-01-01") + pd.to_timedelta(
     np.random.default_rng(5).integers(0, 1500, 40), unit="D")
@@ -256,7 +256,7 @@ def test_clip_cuts_long_text_with_an_ellipsis():
 import json  # noqa: E402
 import math  # noqa: E402
 
-from analysis.demo import DEMO_CSV, demo_roles, demo_settings  # noqa: E402
+from analysis.preparation.demo import DEMO_CSV, demo_roles, demo_settings  # noqa: E402
 from analysis.pipeline import explore  # noqa: E402
 from app.cli import main  # noqa: E402
 

@@ -9,9 +9,9 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from analysis.demo import DEMO_CSV
+from analysis.preparation.demo import DEMO_CSV
 from analysis.errors import DataError
-from analysis.loading import PYARROW_MIN_BYTES, _read_csv, fingerprint, read_table
+from analysis.preparation.loading import PYARROW_MIN_BYTES, _read_csv, fingerprint, read_table
 
 CASES = {
     "plain": "id,t,y\nA,1,2.5\nA,2,3\nB,1,4\n",

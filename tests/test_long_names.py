@@ -10,11 +10,12 @@ import json
 import numpy as np
 import pandas as pd
 
-from analysis.loading import Dataset, describe_columns
+from analysis.preparation.loading import Dataset, describe_columns
 from analysis.pipeline import Workbench
 from analysis.settings import Roles, Settings
 from app import controls as ctl
-from app import draw, hub
+from app import figures, hub
+from app.sections import courses
 from app.text import ECHO_CHARS, LABEL_CHARS, NAME_CHARS, echo, renamed_note, short, \
     shorten_columns
 
@@ -53,10 +54,10 @@ def test_dropdowns_tables_and_figures_show_short_names():
     ds = Dataset.from_frame(df)
     s = Settings(min_visits=2)
     cohort = wb.cohort(ds, roles, s)
-    fig = draw.variogram(wb.variogram(ds, roles, s), cohort=cohort)
+    fig = figures.variogram_figure(wb.variogram(ds, roles, s), look=figures.cohort_look(cohort))
     texts = json.dumps(fig.to_plotly_json()["layout"], default=str)
     assert "r" * (LABEL_CHARS + 1) not in texts and "m" * (LABEL_CHARS + 1) not in texts
-    shown = draw.courses(cohort.frame, full=cohort.frame, cohort=cohort)
+    shown = courses.courses_figure(cohort.frame, full=cohort.frame, look=figures.cohort_look(cohort))
     layout = json.dumps(shown.to_plotly_json()["layout"], default=str)
     assert "r" * (LABEL_CHARS + 1) not in layout and "t" * (LABEL_CHARS + 1) not in layout
 

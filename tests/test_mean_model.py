@@ -5,8 +5,8 @@ import patsy
 import pytest
 
 from analysis.errors import ModelError
-from analysis.mean_model import MeanModel, check_rank, complete_subjects, design
-from analysis.panel import Panel
+from analysis.models.mean_model import MeanModel, check_rank, complete_subjects, design
+from analysis.preparation.panel import Panel
 from analysis.splines import natural_spline_basis, spline_knots
 
 

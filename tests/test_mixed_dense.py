@@ -12,10 +12,10 @@ import pytest
 from scipy import linalg as sla
 from scipy import optimize
 
-from analysis.mixed import fit_mixed
-from analysis.mixed.likelihood import build_groups, evaluate
-from analysis.mixed.simulate import simulate_cohort
-from analysis.mixed.structures import spec_for, theta_from_natural
+from analysis.models.mixed import fit_mixed
+from analysis.models.mixed.likelihood import build_groups, evaluate
+from analysis.models.mixed.simulate import simulate_cohort
+from analysis.models.mixed.structures import spec_for, theta_from_natural
 
 SERIAL = ["serial", "intercept+serial", "intercept+slope+serial"]
 
@@ -206,7 +206,7 @@ def test_variogram_and_process_variance_from_covariance(small, structure):
     ref_gamma, ref_var = [], []
     for u in lags:
         # brute force: ½Var(Y1 − Y2) from the dense 2×2 model covariance at times t1, t1+u
-        from analysis.panel import Panel
+        from analysis.preparation.panel import Panel
         two = Panel.from_codes(np.array([0, 0]), np.array([t1, t1 + u]), np.zeros(2))
         V = _dense_V(two, v, "gaussian")
         ref_gamma.append(0.5 * (V[0, 0] + V[1, 1] - 2 * V[0, 1]))

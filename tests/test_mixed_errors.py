@@ -8,9 +8,9 @@ import pytest
 from scipy import stats
 
 from analysis.errors import ModelError
-from analysis.mixed import STRUCTURES, fit_mixed
-from analysis.mixed.simulate import simulate_cohort
-from analysis.panel import Panel
+from analysis.models.mixed import STRUCTURES, fit_mixed
+from analysis.models.mixed.simulate import simulate_cohort
+from analysis.preparation.panel import Panel
 
 
 @pytest.fixture(scope="module")

@@ -13,11 +13,11 @@ import numpy as np
 import pytest
 from scipy import optimize
 
-from analysis.mixed import fit_mixed
-from analysis.mixed.likelihood import (SubjectSums, build_groups, build_sums, evaluate,
+from analysis.models.mixed import fit_mixed
+from analysis.models.mixed.likelihood import (SubjectSums, build_groups, build_sums, evaluate,
                                        evaluate_sums, subject_scores)
-from analysis.mixed.simulate import simulate_cohort
-from analysis.mixed.structures import spec_for
+from analysis.models.mixed.simulate import simulate_cohort
+from analysis.models.mixed.structures import spec_for
 
 STRUCTURES = ["independence", "intercept", "intercept+slope"]
 TIME_SCALE = 60.0

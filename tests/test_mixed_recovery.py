@@ -4,8 +4,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from analysis.mixed import fit_mixed
-from analysis.mixed.simulate import simulate_cohort
+from analysis.models.mixed import fit_mixed
+from analysis.models.mixed.simulate import simulate_cohort
 
 
 @pytest.mark.slow

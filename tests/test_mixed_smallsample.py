@@ -12,9 +12,9 @@ import pytest
 from scipy import stats
 
 from analysis.errors import ModelError
-from analysis.mixed import fit_mixed
-from analysis.mixed.simulate import simulate_cohort
-from analysis.panel import Panel
+from analysis.models.mixed import fit_mixed
+from analysis.models.mixed.simulate import simulate_cohort
+from analysis.preparation.panel import Panel
 
 
 def _balanced(m=12, visits=5, seed=4, sd_b=2.0):
@@ -184,7 +184,7 @@ def test_constant_response_is_refused():
 
 
 def test_cli_fit_refuses_a_constant_response(tmp_path, capsys):
-    from analysis.demo import load_demo
+    from analysis.preparation.demo import load_demo
     from app.cli import main
     df = load_demo()
     ids = sorted(df["recipient_id"].unique())[:40]
@@ -202,7 +202,7 @@ def test_cli_fit_refuses_a_constant_response(tmp_path, capsys):
 
 
 def test_boundary_wording_in_the_tables():
-    from analysis.report import variance_interval
+    from analysis.output.report import variance_interval
     assert "one-sided, lower limit 0" in variance_interval(0.0, np.nan, True)
     assert "boundary" in variance_interval(np.nan, np.nan, True)
     assert variance_interval(np.nan, np.nan, False) == "not available"

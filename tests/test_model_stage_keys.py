@@ -12,11 +12,11 @@ from dataclasses import fields
 
 import pytest
 
-from analysis import modelstage
-from analysis.demo import demo_roles, demo_settings, load_demo
+from analysis.models import modelstage
+from analysis.preparation.demo import demo_roles, demo_settings, load_demo
 from analysis.errors import ModelError
-from analysis.loading import Dataset
-from analysis.modelstage import ModelChoices
+from analysis.preparation.loading import Dataset
+from analysis.models.modelstage import ModelChoices
 from analysis.pipeline import Workbench
 from analysis.settings import Settings
 

@@ -8,11 +8,11 @@ import pytest
 from scipy import stats
 
 from analysis.errors import ModelError
-from analysis.gee import gee_fit
-from analysis.mean_model import MeanModel, design
-from analysis.mixed import fit_mixed
-from analysis.modelling import fit_candidates, model_name
-from analysis.panel import Panel
+from analysis.models.gee import gee_fit
+from analysis.models.mean_model import MeanModel, design
+from analysis.models.mixed import fit_mixed
+from analysis.models.modelling import fit_candidates, model_name
+from analysis.preparation.panel import Panel
 from analysis.settings import Roles, Settings
 
 

@@ -13,13 +13,14 @@ import pandas as pd
 import pytest
 import statsmodels.api as sm
 
-import analysis.modelstage as modelstage
-from analysis.demo import demo_roles, demo_settings, load_demo
+import analysis.models.modelstage as modelstage
+from analysis.preparation.demo import demo_roles, demo_settings, load_demo
 from analysis.errors import ModelError
-from analysis.loading import Dataset
-from analysis.modelling import fit_candidates
-from analysis.modelstage import ModelChoices
-from app import models_view as mv
+from analysis.preparation.loading import Dataset
+from analysis.models.modelling import fit_candidates
+from analysis.models.modelstage import ModelChoices
+from app.figures import OVERLAY_CAPTION
+from app.sections import models as mv
 from app.server import create_app
 from app.session import attempt
 
@@ -127,7 +128,7 @@ def test_overlay_figure_curves_and_labels(fitted):
     ctx, stores, out, models, cohort = fitted
     fig = out["fig"]
     assert fig.layout.title.text and fig.layout.xaxis.title.text == "time apart (months)"
-    assert fig.layout.yaxis.title.text == "semivariance (mL/min/1.73m²)²"
+    assert fig.layout.yaxis.title.text == "semivariance, (mL/min/1.73m²)²"
     assert fig.layout.title.text.startswith("egfr: ")
     names = [t.name for t in fig.data]
     assert names[0].startswith("empirical") and len(names) == 1 + len(models.fits)
@@ -215,7 +216,7 @@ def test_overlay_points_come_from_the_models_mean(fitted):
     dataset, r_, s_ = ctx.inputs(*stores)
     explore = ctx.workbench.variogram(dataset, r_, s_).to_frame()["gamma"].dropna().to_numpy()
     assert explore.size != ref.size or not np.allclose(explore, ref)
-    assert "not of the smooth trend used for exploration" in mv.OVERLAY_CAPTION
+    assert "not of the smooth trend used for exploration" in OVERLAY_CAPTION
 
 
 def test_small_cohort_says_intervals_rest_on_corrections(demo_slice):

@@ -62,7 +62,7 @@ def test_plain_number_keeps_python_format_with_ascii_minus():
 def test_edge_bin_side_rule_and_equal_width_edges():
     # hand-worked: edges 0, 1, 2, 3; an inner edge value goes to the bin above it, the last
     # edge stays in the last bin, values outside are clipped
-    from analysis.lagbins import edge_bin, equal_width_edges
+    from analysis.exploration.lagbins import edge_bin, equal_width_edges
 
     edges = equal_width_edges(0.0, 3.0, 3)
     assert np.array_equal(edges, np.linspace(0.0, 3.0, 4))   # reference: numpy.linspace
@@ -73,7 +73,7 @@ def test_edge_bin_side_rule_and_equal_width_edges():
 def test_equal_width_bins_over_the_range():
     # reference: numpy.histogram puts the same counts in equal-width bins over the range
     # (its last bin is closed too)
-    from analysis.lagbins import equal_width_bins
+    from analysis.exploration.lagbins import equal_width_bins
 
     x = np.array([0.0, 0.5, 1.0, 1.5, 2.0, 2.0, 3.9, 4.0])
     edges, b = equal_width_bins(x, 4)

@@ -9,11 +9,11 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from analysis.demo import DEMO_CSV, demo_roles, demo_settings
-from analysis.loading import Dataset, read_table
+from analysis.preparation.demo import DEMO_CSV, demo_roles, demo_settings
+from analysis.preparation.loading import Dataset, read_table
 from analysis.pipeline import Workbench
-from analysis.plan_defaults import cohort_covariate
-from analysis.planning import CovarianceModel, PlanInputs, plan_study
+from analysis.models.plan_defaults import cohort_covariate
+from analysis.models.planning import CovarianceModel, PlanInputs, plan_study
 from app.cli import main
 
 ROOT = Path(__file__).resolve().parents[1]

@@ -8,14 +8,14 @@ import pandas as pd
 import pytest
 from scipy import optimize
 
-from analysis.demo import DEMO_CSV, demo_roles, demo_settings
+from analysis.preparation.demo import DEMO_CSV, demo_roles, demo_settings
 from analysis.errors import ModelError, SettingsError
-from analysis.loading import Dataset, read_table
-from analysis.modelstage import ModelChoices
+from analysis.preparation.loading import Dataset, read_table
+from analysis.models.modelstage import ModelChoices
 from analysis.pipeline import Workbench
-from analysis.plan_defaults import (cohort_covariate, dropout_hazard, nice_step, parse_schedule,
+from analysis.models.plan_defaults import (cohort_covariate, dropout_hazard, nice_step, parse_schedule,
                                     plan_from_cohort, typical_schedule)
-from analysis.planning import CovarianceModel, PlanInputs, plan_study
+from analysis.models.planning import CovarianceModel, PlanInputs, plan_study
 
 STRUCTURES = ("intercept", "intercept+slope")
 

@@ -6,13 +6,13 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from analysis.demo import demo_roles, demo_settings, load_demo
+from analysis.preparation.demo import demo_roles, demo_settings, load_demo
 from analysis.errors import SettingsError
-from analysis.loading import Dataset
-from analysis.plan_defaults import cohort_covariate
-from analysis.planning import CovarianceModel, PlanInputs, plan_study, simulate_power
-from app import models_view as mv
-from app import plan_view as pv
+from analysis.preparation.loading import Dataset
+from analysis.models.plan_defaults import cohort_covariate
+from analysis.models.planning import CovarianceModel, PlanInputs, plan_study, simulate_power
+from app.sections import models as mv
+from app.sections import plan as pv
 from app.server import create_app
 from app.session import attempt
 

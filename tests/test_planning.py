@@ -12,9 +12,9 @@ from scipy import stats
 from statsmodels.stats.power import normal_power
 
 from analysis.errors import ModelError, SettingsError
-from analysis.mixed.likelihood import Group, covariance_stack
-from analysis.mixed.structures import components, spec_for, theta_from_natural
-from analysis.planning import (CovarianceModel, PlanInputs, compare_plans, pattern_probabilities,
+from analysis.models.mixed.likelihood import Group, covariance_stack
+from analysis.models.mixed.structures import components, spec_for, theta_from_natural
+from analysis.models.planning import (CovarianceModel, PlanInputs, compare_plans, pattern_probabilities,
                                plan_study, power_at, simulate_planned_cohort, simulate_power,
                                subject_information, time_information)
 
@@ -98,7 +98,7 @@ def test_covariance_matches_the_fitting_engine():
             Z[0, :, 1] = t
         g = Group(np.array([0]), np.arange(t.size)[None], np.zeros((1, t.size, 1)),
                   np.zeros((1, t.size)), Z, np.abs(t[:, None] - t[None, :])[None])
-        # reference: the likelihood's own covariance blocks (analysis.mixed.likelihood)
+        # reference: the likelihood's own covariance blocks (analysis.models.mixed.likelihood)
         ref = covariance_stack(g, comp, model.correlation)[0]
         np.testing.assert_allclose(model.covariance(t), ref, rtol=1e-12)
 
@@ -198,8 +198,8 @@ def test_compare_plans_lists_each_model():
 
 
 def test_from_fit_reads_a_fitted_model():
-    from analysis.mixed import fit_mixed
-    from analysis.mixed.simulate import simulate_cohort
+    from analysis.models.mixed import fit_mixed
+    from analysis.models.mixed.simulate import simulate_cohort
 
     s = simulate_cohort(60, seed=11, serial_var=0.0)
     fit = fit_mixed(s.panel, s.X, names=s.names, structure="intercept+slope")

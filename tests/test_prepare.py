@@ -8,7 +8,7 @@ import pandas as pd
 import pytest
 
 from analysis.errors import DataError, SettingsError
-from analysis.prepare import prepare, select_cohort
+from analysis.preparation.prepare import prepare, select_cohort
 from analysis.settings import Roles, Settings
 
 ROLES = Roles("pid", "visit", "gfr", covariates=("marker", "centre"), event_date="tx")
@@ -258,7 +258,7 @@ def test_a_filtered_table_with_gaps_in_its_index_gives_the_same_cohort():
 
 
 def test_small_groups_reach_the_cohort_warnings_and_the_report():
-    from analysis.report import build_report
+    from analysis.output.report import build_report
 
     c = prepare(cohort_frame(), ROLES, settings(stratify_by="centre"))
     # reference: an independent pandas count of subjects per centre (12 subjects, 6 per centre,

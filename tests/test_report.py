@@ -1,6 +1,6 @@
-"""The HTML report (analysis.report) and the CLI ``report`` subcommand.
+"""The HTML report (analysis.output.report) and the CLI ``report`` subcommand.
 
-References: the effect statement is recomputed with ``analysis.effects`` from
+References: the effect statement is recomputed with ``analysis.models.effects`` from
 the preferred fit of a direct ``fit_candidates`` call; the HTML is checked by
 the standard library's ``html.parser`` with a tag-balance check written here.
 """
@@ -12,15 +12,15 @@ from html.parser import HTMLParser
 import pandas as pd
 import pytest
 
-from analysis.demo import demo_roles, demo_settings, load_demo
-from analysis.effects import interaction_summary
-from analysis.loading import Dataset
-from analysis.modelling import fit_candidates
-from analysis.modelstage import ModelChoices
+from analysis.preparation.demo import demo_roles, demo_settings, load_demo
+from analysis.models.effects import interaction_summary
+from analysis.preparation.loading import Dataset
+from analysis.models.modelling import fit_candidates
+from analysis.models.modelstage import ModelChoices
 from analysis.pipeline import Workbench
-from analysis.report import CAUTIONS, build_report
+from analysis.output.report import CAUTIONS, build_report
 from app.cli import main
-from app.models_view import report_figures
+from app.figures import report_figures
 
 N_SUBJECTS = 180
 VOID = {"area", "base", "br", "col", "embed", "hr", "img", "input", "link", "meta", "source",
@@ -81,9 +81,7 @@ def report(demo_slice):
     ex = wb.explore(ds, roles, settings)
     models = wb.models(ds, roles, settings, choices)
     text = build_report(ex.cohort, ex, models, data_name=ds.name, data_key=ds.key,
-                        choices=choices, figures=report_figures(
-                            ex, models, unit="months", response="egfr",
-                            response_unit=ex.cohort.response_unit))
+                        choices=choices, figures=report_figures(ex, models))
     return text, ex, models, ds
 
 
@@ -110,7 +108,7 @@ def test_report_parses_and_holds_the_cautions_and_attrition(report):
 
 def test_report_effect_statement_is_the_one_from_analysis_effects(report, demo_slice):
     text, ex, models, ds = report
-    # reference: fit_candidates called directly, then analysis.effects on its preferred fit
+    # reference: fit_candidates called directly, then analysis.models.effects on its preferred fit
     direct = fit_candidates(ex.cohort, structures=("intercept", "intercept+slope"), gee=())
     fit = direct.fits[direct.preferred]
     s = ex.cohort.settings
@@ -175,7 +173,7 @@ def test_cli_report_missing_roles_exits_2(tmp_path, demo_slice, capsys):
 
 
 def test_report_dropout_part_says_what_the_page_says(demo_slice):
-    from app.views import dropout_note
+    from app.sections.followup import dropout_note
 
     wb = Workbench()
     ds = Dataset.from_frame(demo_slice, name="slice.csv")

@@ -90,9 +90,9 @@ def test_unknown_or_malformed_settings_name_the_settings():
 
 
 @pytest.mark.parametrize("field, call", [
-    ("strata_method", lambda: __import__("analysis.strata", fromlist=["x"]).cut_strata(
+    ("strata_method", lambda: __import__("analysis.preparation.strata", fromlist=["x"]).cut_strata(
         [1.0, 2.0, 3.0], method="thirds")),
-    ("transform", lambda: __import__("analysis.strata", fromlist=["x"]).transform_values(
+    ("transform", lambda: __import__("analysis.preparation.strata", fromlist=["x"]).transform_values(
         [1.0, 2.0], "thirds")),
 ])
 def test_estimator_guards_say_what_settings_say(field, call):

@@ -12,9 +12,9 @@ import tracemalloc
 import numpy as np
 import pytest
 
-from analysis.demo import demo_roles, demo_settings, load_demo
+from analysis.preparation.demo import demo_roles, demo_settings, load_demo
 from analysis.errors import SettingsError
-from analysis.loading import Dataset
+from analysis.preparation.loading import Dataset
 from analysis.pipeline import Workbench
 from analysis.settings import COUNT_LIMITS, Settings
 

@@ -12,12 +12,12 @@ from datetime import datetime, timezone
 
 import pytest
 
-from analysis.demo import demo_roles, demo_settings, load_demo
-from analysis.loading import Dataset
-from analysis.modelstage import ModelChoices
+from analysis.preparation.demo import demo_roles, demo_settings, load_demo
+from analysis.preparation.loading import Dataset
+from analysis.models.modelstage import ModelChoices
 from analysis.options import CENTER_WORDS, TRANSFORMS
 from analysis.pipeline import Workbench
-from analysis.report import build_report, x_description
+from analysis.output.report import build_report, x_description
 
 CENTRINGS = (*CENTER_WORDS, 2.0)
 COMBOS = list(itertools.product(TRANSFORMS, CENTRINGS))

@@ -12,7 +12,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from analysis.errors import DataError, SettingsError
-from analysis.strata import (
+from analysis.preparation.strata import (
     MISSING_LABEL,
     categorical_strata,
     center_values,

@@ -7,10 +7,11 @@ from __future__ import annotations
 
 import pandas as pd
 
-from analysis.prepare import prepare
+from analysis.preparation.prepare import prepare
 from analysis.settings import Roles, Settings
 from app import ids
-from app.server import create_app, small_group_note
+from app.sections.kept import small_group_note
+from app.server import create_app
 
 
 def cohort(groups: dict[str, int]):

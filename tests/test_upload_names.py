@@ -6,7 +6,7 @@ from __future__ import annotations
 
 import base64
 
-from analysis.demo import demo_roles, load_demo
+from analysis.preparation.demo import demo_roles, load_demo
 from app import controls as ctl
 from app import hub
 from app.server import create_app
@@ -48,7 +48,7 @@ def test_same_content_under_two_names_keeps_each_sessions_name():
     assert out["data"]["name"] == "beta_export.csv"
 
     # the exported report is named after, and names, this session's file
-    from app.models_view import report_text
+    from app.sections.models import report_text
 
     roles = {"roles": demo_roles().to_dict()}
     fname, html = report_text(context, second["data"], roles, None, None)

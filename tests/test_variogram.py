@@ -22,9 +22,9 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from analysis.errors import DataError, SettingsError
-from analysis.pairs import iter_pair_chunks, n_within_pairs, within_pair_rows
-from analysis.panel import Panel
-from analysis.variogram import process_variance, semivariogram, within_pairs
+from analysis.exploration.pairs import iter_pair_chunks, n_within_pairs, within_pair_rows
+from analysis.preparation.panel import Panel
+from analysis.exploration.variogram import process_variance, semivariogram, within_pairs
 
 RTOL = 1e-12
 
@@ -207,7 +207,8 @@ def test_schedule_with_more_lags_than_bins_matches_exact_equal_width_bins():
 def test_lag_correlation_and_semivariogram_share_one_edge_rule():
     # reference: the same floor-with-allowance rule written out here: 0.3 / 0.1 in floating
     # point is 2.9999999999999996, yet 0.3 lies on the edge of window 3 (exact decimal)
-    from analysis import lagbins, lagcorr
+    from analysis.exploration import lagbins
+    from analysis.exploration import lagcorr
 
     assert float(Fraction(3, 10) / Fraction(1, 10)) == 3.0 and 0.3 / 0.1 < 3
     assert lagbins.bin_index(np.array([0.3]), start=0.0, width=0.1, n=10)[0] == 3

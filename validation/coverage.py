@@ -5,7 +5,7 @@ Usage::
     python validation/coverage.py [--reps 400] [--subjects 15 40 200] [--budget SECONDS]
 
 Each replication draws a cohort from a known random intercept+slope model with
-measurement error (``analysis.mixed.simulate.simulate_cohort``, no serial
+measurement error (``analysis.models.mixed.simulate.simulate_cohort``, no serial
 process, so the fitted model is correct), fits it by REML and records whether
 the model-based (t with Satterthwaite df) and the robust (Mancl–DeRouen
 bias-reduced sandwich, t with subjects − p df) 95% intervals contain the true
@@ -21,8 +21,8 @@ import time
 
 import numpy as np
 
-from analysis.mixed import fit_mixed
-from analysis.mixed.simulate import simulate_cohort
+from analysis.models.mixed import fit_mixed
+from analysis.models.mixed.simulate import simulate_cohort
 
 
 def run_coverage(reps: int, *, subjects: int = 200, structure: str = "intercept+slope",

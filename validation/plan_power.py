@@ -22,11 +22,11 @@ import time
 
 import numpy as np
 
-from analysis.demo import demo_roles, demo_settings, load_demo
-from analysis.mixed import fit_mixed
-from analysis.mean_model import MeanModel, design
-from analysis.planning import CovarianceModel, PlanInputs, plan_study, simulate_power
-from analysis.prepare import prepare
+from analysis.preparation.demo import demo_roles, demo_settings, load_demo
+from analysis.models.mixed import fit_mixed
+from analysis.models.mean_model import MeanModel, design
+from analysis.models.planning import CovarianceModel, PlanInputs, plan_study, simulate_power
+from analysis.preparation.prepare import prepare
 
 STRUCTURE = "intercept+serial"
 

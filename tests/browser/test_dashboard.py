@@ -15,8 +15,8 @@ from pathlib import Path
 import pandas as pd
 import pytest
 
-from analysis.demo import demo_roles, demo_settings, load_demo
-from analysis.loading import Dataset
+from analysis.preparation.demo import demo_roles, demo_settings, load_demo
+from analysis.preparation.loading import Dataset
 from analysis.pipeline import Workbench
 from analysis.settings import Roles
 from app import ids

@@ -4,8 +4,8 @@ from __future__ import annotations
 
 import pandas as pd
 
-from analysis.demo import demo_settings
-from analysis.loading import Dataset
+from analysis.preparation.demo import demo_settings
+from analysis.preparation.loading import Dataset
 from analysis.pipeline import Workbench
 from app import ids
 from test_dashboard import (TIMEOUT, UPLOAD_ROLES, choose, map_roles, no_traceback, open_demo,

@@ -10,11 +10,11 @@ import json
 
 import pytest
 
-from analysis.demo import demo_roles, demo_settings, load_demo
-from analysis.loading import Dataset
-from analysis.modelstage import ModelChoices
+from analysis.preparation.demo import demo_roles, demo_settings, load_demo
+from analysis.preparation.loading import Dataset
+from analysis.models.modelstage import ModelChoices
 from analysis.pipeline import Workbench
-from analysis.report import x_description
+from analysis.output.report import x_description
 from app import ids
 from conftest import serving
 from test_models import wait_fitted

@@ -2,7 +2,7 @@
 REML -> ML, export the report.
 
 Reference for what the page should show: the analysis layer's own tested driver
-``analysis.modelling.fit_candidates`` called directly in the test on the cohort the app
+``analysis.models.modelling.fit_candidates`` called directly in the test on the cohort the app
 prepares for the demo (``Workbench.cohort``), with the choices the panel starts from
 (``ModelChoices`` defaults), and the fitted models' own ``variogram_curve``. The
 empirical semivariogram under the fitted curves is recomputed from statsmodels OLS residuals of
@@ -18,11 +18,11 @@ import numpy as np
 import pytest
 import statsmodels.api as sm
 
-from analysis.effects import parse_number
-from analysis.modelling import fit_candidates
-from analysis.modelstage import ModelChoices
+from analysis.models.effects import parse_number
+from analysis.models.modelling import fit_candidates
+from analysis.models.modelstage import ModelChoices
 from analysis.pipeline import Workbench
-from analysis.variogram import semivariogram
+from analysis.exploration.variogram import semivariogram
 from app import ids
 # the page's figure as JSON with Plotly's packed arrays unpacked (shared with the dashboard test)
 from test_dashboard import FIGURE_JS

@@ -1,22 +1,22 @@
 """The "Plan the next study" section in headless Chromium: fit models, see the plan.
 
-Reference: :func:`analysis.planning.plan_study` called directly in the test with the inputs the
+Reference: :func:`analysis.models.planning.plan_study` called directly in the test with the inputs the
 page shows in its controls (model chosen, effect, schedule, dropout rate, alpha, power) and the
 covariance of that model fitted by the analysis layer's own driver
-(:func:`analysis.modelling.fit_candidates`) on the cohort the app prepares for the demo.
+(:func:`analysis.models.modelling.fit_candidates`) on the cohort the app prepares for the demo.
 The screenshot of the section goes to tests/browser/artifacts/ for a person to look at.
 """
 from __future__ import annotations
 
 import re
 
-from analysis.demo import DEMO_CSV, demo_roles, demo_settings
-from analysis.loading import Dataset, read_table
-from analysis.modelling import fit_candidates
-from analysis.modelstage import ModelChoices
+from analysis.preparation.demo import DEMO_CSV, demo_roles, demo_settings
+from analysis.preparation.loading import Dataset, read_table
+from analysis.models.modelling import fit_candidates
+from analysis.models.modelstage import ModelChoices
 from analysis.pipeline import Workbench
-from analysis.plan_defaults import cohort_covariate
-from analysis.planning import CovarianceModel, PlanInputs, plan_study
+from analysis.models.plan_defaults import cohort_covariate
+from analysis.models.planning import CovarianceModel, PlanInputs, plan_study
 from app import ids
 
 TIMEOUT = 90_000

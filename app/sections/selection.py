@@ -1,0 +1,84 @@
+"""The sticky groups bar: group chips, the clear button and the followed subject's card.
+
+Not a numbered section (no entry in the page's navigation)."""
+from __future__ import annotations
+
+from dash import Input, Output, dash_table, dcc, html
+
+from .. import ids
+from ..components import busy
+from ..session import AppContext, attempt
+from ..text import short
+from ..views import stage_call
+
+ANCHOR = None
+NAV = None
+
+
+def layout(settings=None, max_upload_bytes=None):
+    """The compact sticky groups bar: chips and clear button on one line, then the hint
+    (beside them when there is room) or the followed subject's card."""
+    hint = "Click a subject in any view to follow it everywhere."
+    return html.Div(className="cl-selection", title=hint, children=[
+        html.Div(className="cl-selection-row", children=[
+            html.Span("Groups:", className="cl-label",
+                      title="Choose a group to highlight it in every view"),
+            dcc.RadioItems(id=ids.LINK_STRATA, options=[], value=None, className="cl-chips",
+                           inline=True),
+            html.Button("Clear highlight", id=ids.LINK_CLEAR, className="cl-btn cl-btn-quiet",
+                        title="Clear the highlighted group and subject"),
+            html.Div(className="cl-card-slot", children=busy(
+                html.Div(id=ids.LINK_CARD, className="cl-card",
+                         children=html.Span(hint, className="cl-hint")))),
+        ]),
+    ])
+
+
+def register(app, context: AppContext) -> None:
+    @app.callback(Output(ids.LINK_CARD, "children"),
+                  Input(ids.STORE_DATA, "data"), Input(ids.STORE_ROLES, "data"),
+                  Input(ids.STORE_SETTINGS, "data"), Input(ids.STORE_SUBJECT, "data"))
+    def subject_card(data, roles, settings, subject):
+        if not subject:
+            return html.Span("Click a subject in any view to follow it everywhere.",
+                             className="cl-hint")
+        card, message, _ = attempt(lambda: _card(context, data, roles, settings, subject),
+                                   what="describing the selected subject")
+        return card if card is not None else html.Span(message, className="cl-msg")
+
+
+def _card(context, data, roles, settings, subject):
+    cohort = stage_call(context, "cohort", data, roles, settings)
+    lines = stage_call(context, "subject_lines", data, roles, settings)
+    frame = cohort.frame
+    mine = frame[frame["subject"].astype(str) == str(subject)]
+    row = lines[lines["subject"].astype(str) == str(subject)]
+    if mine.empty or row.empty:
+        return html.Span(f"Subject {subject} is not in the analysed cohort with these choices.",
+                         className="cl-hint")
+    r = row.iloc[0]
+
+    def fmt(v, spec=".3g"):
+        try:
+            return format(float(v), spec)
+        except (TypeError, ValueError):
+            return "—"
+
+    se = f" (SE {fmt(r['slope_se'])})" if "slope_se" in row.columns else ""
+    cov = cohort.covariate
+    head = html.Div(className="cl-card-head", children=[
+        html.Strong(f"Subject {short(subject)}"),
+        html.Span(f"group {short(r['stratum_label'])}"),
+        *([html.Span(f"{short(cov)} = {short(r['covariate'])}")] if cov else []),
+        html.Span(f"{len(mine)} visits"),
+        html.Span(f"fitted line: {fmt(r['intercept'])} + {fmt(r['slope'])}{se} × time"),
+    ])
+    visits = dash_table.DataTable(
+        data=[{"time": round(float(t), 2), "response": round(float(y), 2)}
+              for t, y in zip(mine["time"], mine["response"])],
+        columns=[{"name": short(cohort.time_label), "id": "time"},
+                 {"name": short(cohort.roles.response), "id": "response"}],
+        fill_width=False,
+        style_table={"maxHeight": "8rem", "overflowY": "auto"},
+        style_cell={"fontFamily": "inherit", "fontSize": "14px", "padding": "2px 8px"})
+    return [head, html.Div(visits, className="cl-card-visits")]
