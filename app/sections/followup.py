@@ -11,12 +11,17 @@ from plotly.subplots import make_subplots
 from analysis.exploration.summaries import (ALL_LABEL, BAND_METHOD, FOLLOWED, LAST_VISIT, LEFT_EARLY,
                                 mean_interval_halfwidth, visit_counts)
 
+from analysis.exploration.digest import thin_steps
+
 from .. import ids
 from .. import palette as pal
 from ..components import graph, message, section
 from ..figures import CohortLook, _finish, _plural, _strength, cohort_look, colour_alpha
 from ..session import AppContext
 from ..views import HIGHLIGHT, STORES, finish, render_key, skip_if_same, summary_inputs
+
+#: most points of one Kaplan–Meier curve sent to the page (see analysis.exploration.digest)
+STEP_POINTS = 400
 
 ANCHOR = "section-follow"
 NAV = "Follow-up & loss"
@@ -113,6 +118,8 @@ def dropout_figure(dropout, *, look: CohortLook, highlight_stratum=None) -> go.F
     for ann in fig.layout.annotations:
         ann.font = {"size": 15}
     ret = dropout.retention
+    if len(ret) > STEP_POINTS:   # a large cohort: each curve read on a time grid (same curve there)
+        ret = ret.iloc[thin_steps(ret["time"], ret["label"], n_points=STEP_POINTS)]
     order = [s for s in look.strata if s in set(ret["label"])] + [ALL_LABEL]
     for lab in order:
         r = ret[ret["label"] == lab]
