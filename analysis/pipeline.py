@@ -104,18 +104,39 @@ class ResultCache:
         self._sizer = sizer
         self._items: OrderedDict = OrderedDict()
         self._sizes: dict = {}
+        self._running: dict = {}      # key -> Event of a computation in progress
         self.nbytes = 0
         self._lock = threading.Lock()
 
     def get_or_compute(self, key, compute: Callable[[], Any]) -> tuple[Any, bool]:
-        """Return (value, computed_now)."""
-        with self._lock:
-            if key in self._items:
-                self._items.move_to_end(key)
-                return self._items[key], False
-        value = compute()
+        """Return (value, computed_now).
+
+        Computed once when several threads ask for the same key at the same time (the page's
+        callbacks run in parallel and share stages): the others wait for the first one's
+        result. When that computation fails, each waiter tries for itself (and meets the same
+        message).
+        """
+        while True:
+            with self._lock:
+                if key in self._items:
+                    self._items.move_to_end(key)
+                    return self._items[key], False
+                running = self._running.get(key)
+                if running is None:
+                    running = self._running[key] = threading.Event()
+                    break
+            running.wait()
+        try:
+            value = compute()
+        except BaseException:
+            with self._lock:
+                self._running.pop(key, None)
+            running.set()
+            raise
         size = self._sizer(value) if self.max_bytes is not None else 0
         with self._lock:
+            self._running.pop(key, None)
+            running.set()
             if key in self._items:
                 self.nbytes -= self._sizes.pop(key, 0)
             self._items[key] = value

@@ -79,3 +79,70 @@ def test_bad_event_dates_keep_their_message_and_do_not_matter_without_that_origi
         assert str(cached.value) == str(direct.value)
     ok = wb.selection(ds, roles, base.replace(origin="first-visit"))
     assert ok.panel.n_subjects > 0
+
+
+def test_parallel_requests_compute_a_shared_stage_once():
+    """The page's view callbacks run in parallel threads and share stages: each stage is
+    computed once (brute-force count of the compute calls in the test)."""
+    import threading
+    import time
+
+    from analysis.pipeline import ResultCache
+
+    cache = ResultCache(max_entries=8)
+    calls = []
+
+    def slow():
+        calls.append(1)
+        time.sleep(0.3)
+        return "value"
+
+    got = []
+    threads = [threading.Thread(target=lambda: got.append(cache.get_or_compute("k", slow)))
+               for _ in range(4)]
+    for t in threads:
+        t.start()
+    for t in threads:
+        t.join()
+    assert len(calls) == 1
+    assert sorted(fresh for _, fresh in got) == [False, False, False, True]
+    assert all(v == "value" for v, _ in got)
+
+    # a failing computation is not kept: every waiter meets the error itself
+    def broken():
+        calls.append(2)
+        time.sleep(0.1)
+        raise DataError("column 'x' is broken")
+
+    errors = []
+
+    def ask():
+        try:
+            cache.get_or_compute("bad", broken)
+        except DataError as exc:
+            errors.append(str(exc))
+
+    threads = [threading.Thread(target=ask) for _ in range(3)]
+    for t in threads:
+        t.start()
+    for t in threads:
+        t.join()
+    assert errors == ["column 'x' is broken"] * 3 and "bad" not in cache
+
+
+def test_workbench_stages_shared_by_parallel_views_run_once():
+    import threading
+
+    wb = Workbench()
+    ds = Dataset.from_frame(load_demo())
+    roles, base = demo_roles(), demo_settings()
+    threads = [threading.Thread(target=lambda: wb.subject_lines(ds, roles, base)),
+               threading.Thread(target=lambda: wb.summaries(ds, roles, base)),
+               threading.Thread(target=lambda: wb.variogram(ds, roles, base))]
+    for t in threads:
+        t.start()
+    for t in threads:
+        t.join()
+    # every stage counted by the Workbench's own counter: one computation each
+    assert wb.compute_counts["selection"] == 1 and wb.compute_counts["cohort"] == 1
+    assert wb.compute_counts["subject_fits"] == 1
