@@ -47,8 +47,9 @@ def test_settings_changes_parse_each_column_once(monkeypatch):
         np.testing.assert_array_equal(got.subject_ids, ref.subject_ids)
         pd.testing.assert_frame_equal(got.attrition.to_frame(), ref.attrition.to_frame())
     # the uncached references parsed again; the workbench did not
-    # counted by hand: subject, response, time, event date, and one kind per covariate
-    assert wb.compute_counts["columns"] == 4 + len(roles.covariates)
+    # counted by hand: subject, response, time, event date, one kind per covariate and the
+    # codes of the three text covariates (centre, sex, donor_type)
+    assert wb.compute_counts["columns"] == 4 + len(roles.covariates) + 3
     assert calls["codes"] == first["codes"] + 4
 
 
@@ -146,3 +147,23 @@ def test_workbench_stages_shared_by_parallel_views_run_once():
     # every stage counted by the Workbench's own counter: one computation each
     assert wb.compute_counts["selection"] == 1 and wb.compute_counts["cohort"] == 1
     assert wb.compute_counts["subject_fits"] == 1
+
+
+def test_categorical_baselines_from_codes_equal_grouping_the_values():
+    """Reference: the grouping of the covariate values themselves (the path taken when
+    repeated visits are averaged, identical here because no visit repeats)."""
+    frame = load_demo()
+    rng = np.random.default_rng(3)
+    # a categorical covariate that changes within some subjects and is missing on some rows
+    frame["site"] = np.where(rng.random(len(frame)) < 0.02, "Z", frame["centre"])
+    frame.loc[rng.random(len(frame)) < 0.05, "site"] = None
+    frame.loc[frame.index[:40], "donor_type"] = None
+    roles = demo_roles().__class__.from_dict({**demo_roles().to_dict(),
+                                             "covariates": ["urine_protein_ratio", "site",
+                                                            "donor_type", "sex", "age_at_tx"]})
+    base = demo_settings()
+    fast = prepare.select_cohort(frame, roles, base)
+    grouped = prepare.select_cohort(frame, roles, base.replace(duplicates="average"))
+    pd.testing.assert_frame_equal(fast.baseline, grouped.baseline)
+    assert fast.warnings == grouped.warnings
+    assert any("'site' changes within" in w for w in fast.warnings)

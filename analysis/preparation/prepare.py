@@ -317,8 +317,10 @@ def select_cohort(df: pd.DataFrame, roles: Roles, settings: Settings, *,
         work["fu_end"] = columns.time_values(roles.followup_end, "follow-up end", time_kind,
                                              settings.date_order).to_numpy()
     latest = float(_days(work["time_raw"]).max()) if time_kind == "date" else np.nan
-    for c in covariates:
-        work[f"cov:{c}"] = df[c].to_numpy()
+    if settings.duplicates == "average":
+        # averaged visits keep each covariate's first non-missing value among their rows
+        for c in covariates:
+            work[f"cov:{c}"] = df[c].to_numpy()
 
     tracker = _Tracker(work["subject"].to_numpy())
     keep = (work["subject"] >= 0) & work["response"].notna() & work["time_raw"].notna()
@@ -352,7 +354,7 @@ def select_cohort(df: pd.DataFrame, roles: Roles, settings: Settings, *,
 
     warnings: list[str] = []
     kinds = {c: ("numeric" if columns.kind(c) == "number" else "categorical") for c in covariates}
-    base = _baseline_values(work, covariates, kinds, warnings, labels)
+    base = _baseline_values(work, covariates, kinds, warnings, labels, df=df, columns=columns)
 
     if primary and settings.require_covariate:
         has = base.index[base[primary].notna()].to_numpy()
@@ -455,6 +457,11 @@ class ColumnReader:
     def time_values(self, column: str, role: str, kind: str, order: str) -> pd.Series:
         return self._memo(("time values", column, role, kind, order),
                           lambda: _time_values(self._df[column], column, role, kind, order))
+
+    def category_codes(self, column: str) -> np.ndarray:
+        """Integer code of each row's value (equal values, equal codes; -1 = missing)."""
+        return self._memo(("codes", column),
+                          lambda: pd.factorize(self._df[column], use_na_sentinel=True)[0])
 
     def kind(self, column: str) -> str:
         """'number', 'date' or 'text' (:func:`analysis.loading.column_kind`)."""
@@ -725,14 +732,22 @@ def _handle_duplicates(work: pd.DataFrame, roles: Roles, settings: Settings,
 
 
 def _baseline_values(work: pd.DataFrame, covariates, kinds, warnings: list,
-                     labels: np.ndarray) -> pd.DataFrame:
+                     labels: np.ndarray, *, df: pd.DataFrame | None = None,
+                     columns: ColumnReader | None = None) -> pd.DataFrame:
     """First non-missing value in time order per subject (indexed by subject code); warn when
-    a covariate varies. ``work`` is sorted by (subject, time)."""
+    a covariate varies. ``work`` is sorted by (subject, time); a covariate not carried in
+    ``work`` (as ``cov:NAME``) is read from ``df`` at the rows ``work['_row']``, a categorical
+    one through its integer codes (``columns.category_codes``)."""
     ordered = work
     out = pd.DataFrame(index=pd.Index(np.unique(ordered["subject"].to_numpy())))
     for c in covariates:
         col = f"cov:{c}"
-        values = ordered[col]
+        if col not in ordered.columns and kinds[c] != "numeric":
+            _categorical_baseline(ordered, df, columns or ColumnReader(df), c, out, warnings,
+                                  labels)
+            continue
+        values = (ordered[col] if col in ordered.columns else pd.Series(
+            df[c].to_numpy()[ordered["_row"].to_numpy()], index=ordered.index))
         if kinds[c] == "numeric":
             values = _numeric(values.reset_index(drop=True), c, "baseline covariate")
             values.index = ordered.index
@@ -747,6 +762,27 @@ def _baseline_values(work: pd.DataFrame, covariates, kinds, warnings: list,
                 f"(e.g. {', '.join(map(clip, labels[varying[:3]]))}); "
                 "the first visit's value is used")
     return out
+
+
+def _categorical_baseline(ordered: pd.DataFrame, df: pd.DataFrame, columns: ColumnReader,
+                          c: str, out: pd.DataFrame, warnings: list, labels: np.ndarray) -> None:
+    """:func:`_baseline_values` for one categorical covariate, on integer codes: the same first
+    values and the same warning as grouping the values themselves."""
+    rows = ordered["_row"].to_numpy()
+    subject = ordered["subject"].to_numpy()
+    codes = columns.category_codes(c)[rows]
+    present = codes >= 0
+    subj, first = np.unique(subject[present], return_index=True)
+    values = pd.Series(df[c].to_numpy()[rows[present][first]], index=subj)
+    out[c] = values.reindex(out.index)
+    pairs = np.unique(np.c_[subject[present], codes[present]], axis=0)
+    who, n = np.unique(pairs[:, 0], return_counts=True)
+    varying = who[n > 1]
+    if len(varying):
+        warnings.append(
+            f"baseline covariate '{clip(c)}' changes within {len(varying)} subject(s) "
+            f"(e.g. {', '.join(map(clip, labels[varying[:3]]))}); "
+            "the first visit's value is used")
 
 
 def _sort_key(v):
