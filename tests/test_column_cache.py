@@ -47,9 +47,9 @@ def test_settings_changes_parse_each_column_once(monkeypatch):
         np.testing.assert_array_equal(got.subject_ids, ref.subject_ids)
         pd.testing.assert_frame_equal(got.attrition.to_frame(), ref.attrition.to_frame())
     # the uncached references parsed again; the workbench did not
-    # counted by hand: subject, response, time, event date, one kind per covariate and the
-    # codes of the three text covariates (centre, sex, donor_type)
-    assert wb.compute_counts["columns"] == 4 + len(roles.covariates) + 3
+    # counted by hand: subject, response, time, event date, and one kind and one set of value
+    # codes per covariate
+    assert wb.compute_counts["columns"] == 4 + 2 * len(roles.covariates)
     assert calls["codes"] == first["codes"] + 4
 
 

@@ -742,9 +742,11 @@ def _baseline_values(work: pd.DataFrame, covariates, kinds, warnings: list,
     out = pd.DataFrame(index=pd.Index(np.unique(ordered["subject"].to_numpy())))
     for c in covariates:
         col = f"cov:{c}"
-        if col not in ordered.columns and kinds[c] != "numeric":
-            _categorical_baseline(ordered, df, columns or ColumnReader(df), c, out, warnings,
-                                  labels)
+        plain_numbers = (pd.api.types.is_numeric_dtype(df[c])
+                         and not pd.api.types.is_bool_dtype(df[c])) if df is not None else False
+        if col not in ordered.columns and (kinds[c] != "numeric" or plain_numbers):
+            _coded_baseline(ordered, df, columns or ColumnReader(df), c, out, warnings, labels,
+                            as_float=kinds[c] == "numeric")
             continue
         values = (ordered[col] if col in ordered.columns else pd.Series(
             df[c].to_numpy()[ordered["_row"].to_numpy()], index=ordered.index))
@@ -764,20 +766,28 @@ def _baseline_values(work: pd.DataFrame, covariates, kinds, warnings: list,
     return out
 
 
-def _categorical_baseline(ordered: pd.DataFrame, df: pd.DataFrame, columns: ColumnReader,
-                          c: str, out: pd.DataFrame, warnings: list, labels: np.ndarray) -> None:
-    """:func:`_baseline_values` for one categorical covariate, on integer codes: the same first
-    values and the same warning as grouping the values themselves."""
+def _coded_baseline(ordered: pd.DataFrame, df: pd.DataFrame, columns: ColumnReader, c: str,
+                    out: pd.DataFrame, warnings: list, labels: np.ndarray, *,
+                    as_float: bool = False) -> None:
+    """:func:`_baseline_values` for one categorical covariate (or a numeric column with
+    ``as_float``), on integer codes: the same first values and the same warning as grouping
+    the values themselves."""
     rows = ordered["_row"].to_numpy()
     subject = ordered["subject"].to_numpy()
     codes = columns.category_codes(c)[rows]
     present = codes >= 0
-    subj, first = np.unique(subject[present], return_index=True)
-    values = pd.Series(df[c].to_numpy()[rows[present][first]], index=subj)
+    s, k = subject[present], codes[present]
+    # rows are sorted by subject: a subject's first row is where the subject changes
+    first = np.flatnonzero(np.r_[True, s[1:] != s[:-1]]) if s.size else np.zeros(0, np.int64)
+    picked = df[c].take(rows[present][first])
+    values = pd.Series(picked.to_numpy(dtype=float) if as_float else picked.to_numpy(),
+                       index=s[first])
     out[c] = values.reindex(out.index)
-    pairs = np.unique(np.c_[subject[present], codes[present]], axis=0)
-    who, n = np.unique(pairs[:, 0], return_counts=True)
-    varying = who[n > 1]
+    # distinct (subject, code) pairs as one integer each
+    width = int(k.max(initial=0)) + 1
+    pairs = pd.unique(s.astype(np.int64) * width + k)
+    n = np.bincount(pairs // width)
+    varying = np.flatnonzero(n > 1)
     if len(varying):
         warnings.append(
             f"baseline covariate '{clip(c)}' changes within {len(varying)} subject(s) "
