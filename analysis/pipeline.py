@@ -291,6 +291,14 @@ class Workbench:
                           lambda: select_cohort(dataset.frame, roles, keyed,
                                                 columns=self.columns(dataset)))
 
+    def describe(self, dataset: Dataset) -> list[dict]:
+        """:func:`~analysis.preparation.loading.describe_columns` of the table, kept under its
+        key (the page shows it on every load). Treat as read-only."""
+        from .preparation.loading import describe_columns
+
+        return self._cache.get_or_compute((dataset.key, "describe"),
+                                          lambda: describe_columns(dataset.frame))[0]
+
     def columns(self, dataset: Dataset) -> ColumnReader:
         """The dataset's role columns, each parsed once (subject codes, numbers, dates, column
         kinds) and kept in the exploratory cache under the data's key: a settings change never

@@ -16,7 +16,7 @@ import math
 from dash import Input, Output, State, ctx, no_update
 
 from analysis.errors import CohortError
-from analysis.preparation.loading import describe_columns, read_table
+from analysis.preparation.loading import read_table
 from analysis.settings import DECLARED
 
 from . import controls as ctl
@@ -182,7 +182,7 @@ def _show_dataset(context: AppContext, key: str, roles, out: dict, name: str | N
     browser store, since the shared store deduplicates uploads by content)."""
     dataset = context.datasets.get(key)
     name = name or dataset.name
-    described = describe_columns(dataset.frame)
+    described = context.workbench.describe(dataset)   # once per table, not per page load
     options = ctl.role_options(described)
     roles = ctl.keep_roles_that_fit(roles, dataset.frame.columns)
     out["data"] = {"key": dataset.key, "name": name}

@@ -127,6 +127,7 @@ def run_server(*, data_path=None, roles: Roles | None = None, settings: Settings
             print(f"cohortlens: {renamed_note(renamed)}")
         app = create_app(dataset=Dataset.from_frame(frame, name=Path(data_path).name),
                          roles=roles, settings=settings, cache_mb=cache_mb)
+    _warm_up(app._cohortlens)
     if host not in ("127.0.0.1", "localhost", "::1"):
         print(f"cohortlens: WARNING binding {host}: other computers on the network can reach "
               "this dashboard and its data.")
@@ -134,3 +135,22 @@ def run_server(*, data_path=None, roles: Roles | None = None, settings: Settings
           "(Ctrl+C stops it). Exploratory research statistics, not for individual care "
           "decisions.", flush=True)
     app.run(host=host, port=port, debug=bool(debug))
+
+
+def _warm_up(context: AppContext) -> None:
+    """Prepare the start-up table's column list and default views in the background while the
+    page is being opened (a large file then opens as soon as they are ready; a page that asks
+    meanwhile waits for the same computation instead of starting its own)."""
+    import threading
+
+    def work():
+        try:
+            dataset = context.datasets.get(context.default_key)
+            context.workbench.describe(dataset)
+            if context.default_roles is not None:
+                context.workbench.explore(dataset, context.default_roles,
+                                          context.default_settings)
+        except Exception:  # noqa: BLE001 - the page shows any problem beside its control
+            log.debug("warm-up stopped", exc_info=True)
+
+    threading.Thread(target=work, name="cohortlens-warm-up", daemon=True).start()
