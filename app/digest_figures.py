@@ -42,7 +42,7 @@ def summarised(lines: pd.DataFrame) -> bool:
 
 def summary_note(n: int) -> str:
     """The first line of a summarised view's note."""
-    return f"a summary of all {n:,} subjects (drawn so above {SUMMARY_SUBJECTS:,} subjects)"
+    return f"summary of all {n:,} subjects (shown so above {SUMMARY_SUBJECTS:,})"
 
 
 def _codes(labels: pd.Series, order: list[str]) -> np.ndarray:
@@ -222,9 +222,9 @@ def density_figure(lines: pd.DataFrame, smooth: pd.DataFrame | None, *, look: Co
                 hovertemplate="subject %{customdata[0]}<extra></extra>"))
     unit = look.covariate_unit
     xt = name + _parenthesis(", ".join(p for p in (unit, "log scale" if grid.log_x else "") if p))
-    sub = (summary_note(len(df)) + f"<br>subjects counted on a {nx} × {ny} grid (darker: more)"
-           + (f"; {grid.n_outside:,} beyond the 1st–99th slope percentile not counted"
-              if grid.n_outside else "") + "; line: lowess over every subject")
+    sub = (summary_note(len(df)) + f"<br>subjects per cell of a {nx} × {ny} grid"
+           + (f"; {grid.n_outside:,} off the axis" if grid.n_outside else "")
+           + "; line: lowess, all")
     _finish(fig, f"Subject slope against {name}", subtitle=sub, top=96, bottom=150, left=96)
     fig.add_hline(y=0, line={"color": pal.REFERENCE_COLOR, "width": 1.2, "dash": "dot"})
     fig.update_xaxes(title_text=xt, type="log" if grid.log_x else "linear")
@@ -267,9 +267,8 @@ def box_figure(lines: pd.DataFrame, *, look: CohortLook, highlight_subject=None,
                 hovertemplate="subject %{customdata[0]}<br>slope %{y:.3g}<extra></extra>"))
     yr, _ = _robust_range(slope)
     _finish(fig, f"Subject slopes by {look.stratifier}",
-            subtitle=(summary_note(len(df)) + f"<br>box statistics computed on the server; "
-                      f"whiskers to the furthest slope within {WHISKER_IQR:g} IQR; "
-                      f"{beyond:,} beyond them not drawn"),
+            subtitle=(summary_note(len(df)) + f"<br>quartiles; whiskers within "
+                      f"{WHISKER_IQR:g} IQR; {beyond:,} beyond not drawn"),
             top=96, bottom=130, left=96)
     fig.add_hline(y=0, line={"color": pal.REFERENCE_COLOR, "width": 1.2, "dash": "dot"})
     fig.update_xaxes(title_text=f"{look.stratifier} group"
