@@ -17,7 +17,6 @@ from analysis.preparation.loading import Dataset, read_table
 from analysis.pipeline import Workbench
 from analysis.settings import Roles, Settings
 
-from . import controls as ctl
 from . import hub, ids
 from .datastore import (DEFAULT_CACHE_MB, DEMO_KEY, MAX_REQUEST_BYTES, DataStore, demo_dataset,
                         upload_limit)
@@ -72,24 +71,8 @@ def create_app(*, dataset: Dataset | None = None, roles: Roles | None = None,
 
 
 def _register_page(app, context: AppContext) -> None:
-    """Page-wide callbacks: the settings store, the caution note and the SVG buttons."""
-    setting_inputs = {k: Input(ids.SETTING_INPUT[k], "value") for k in ids.SETTING_FIELDS}
-    setting_inputs["center_value"] = Input(ids.SETTING_CENTER_VALUE, "value")
-
-    @app.callback(output=dict(store=Output(ids.STORE_SETTINGS, "data"),
-                              msgs={f: Output(ids.SETTING_MSG[f], "children")
-                                    for f in ids.SETTING_FIELDS},
-                              status=Output(ids.SETTINGS_STATUS, "children")),
-                  inputs=dict(values=setting_inputs))
-    def settings_store(values):
-        settings, problems = ctl.settings_from_controls(values,
-                                                        fallback=context.default_settings)
-        msgs = {f: problems.get(f, "") for f in ids.SETTING_FIELDS}
-        if settings is None:
-            return dict(store=no_update, msgs=msgs,
-                        status="Fix the marked choice; the views keep the last valid choices.")
-        return dict(store=settings.to_dict(), msgs=msgs, status="")
-
+    """Page-wide callbacks: the caution note and the SVG buttons."""
+    # the settings store is written by the hub with the controls (app/hub.py)
     @app.callback(Output(ids.PAGE_CAUTION, "style"), Input(ids.PAGE_CAUTION_CLOSE, "n_clicks"),
                   prevent_initial_call=True)
     def hide_caution(n):
