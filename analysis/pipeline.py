@@ -260,6 +260,7 @@ class Workbench:
             "selection": sel,
             "subject_fits": sel,
             "cohort": sel + strata,
+            "subject_lines": sel + strata,
             "summaries": sel + strata + STAGE_FIELDS["summaries"],
             "residuals": sel + res,
             "variogram": sel + res + STAGE_FIELDS["variogram"],
@@ -272,7 +273,7 @@ class Workbench:
         d = settings.to_dict()
         sub = {k: d[k] for k in self.stage_fields(stage, settings)} if stage in (
             "selection", "subject_fits", "cohort", "summaries", "residuals", "variogram",
-            "lagcorr", "models") else d
+            "lagcorr", "models", "subject_lines") else d
         return (dataset.key, roles, stage, json_key(sub, 16), extra)
 
     def _memo(self, stage, dataset, roles, settings, compute, extra=()):
@@ -331,19 +332,23 @@ class Workbench:
                           lambda: fit_subject_lines(self.selection(dataset, roles, settings).panel))
 
     def subject_lines(self, dataset: Dataset, roles: Roles, settings: Settings) -> pd.DataFrame:
-        """Per-subject OLS lines joined with stratum, stratum label and raw covariate."""
-        cohort = self.cohort(dataset, roles, settings)
-        fits = self.subject_fits(dataset, roles, settings)
-        frame = fits.to_frame(cohort.subject_ids)
-        base = cohort.baseline
-        frame["stratum"] = base["stratum"].to_numpy()
-        frame["stratum_label"] = base["stratum_label"].to_numpy()
-        cov = cohort.covariate
-        frame["covariate"] = (base[cov].to_numpy() if cov is not None
-                              else np.full(len(frame), np.nan))
-        if cohort.x is not None:
-            frame["x"] = cohort.x
-        return frame
+        """Per-subject OLS lines joined with stratum, stratum label and raw covariate (kept like
+        a stage: several views read it; each caller gets its own shallow copy)."""
+        def compute():
+            cohort = self.cohort(dataset, roles, settings)
+            fits = self.subject_fits(dataset, roles, settings)
+            frame = fits.to_frame(cohort.subject_ids)
+            base = cohort.baseline
+            frame["stratum"] = base["stratum"].to_numpy()
+            frame["stratum_label"] = base["stratum_label"].to_numpy()
+            cov = cohort.covariate
+            frame["covariate"] = (base[cov].to_numpy() if cov is not None
+                                  else np.full(len(frame), np.nan))
+            if cohort.x is not None:
+                frame["x"] = cohort.x
+            return frame
+
+        return self._memo("subject_lines", dataset, roles, settings, compute).copy(deep=False)
 
     def residuals(self, dataset: Dataset, roles: Roles, settings: Settings):
         from .exploration.detrend import detrend
