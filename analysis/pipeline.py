@@ -292,6 +292,18 @@ class Workbench:
                           lambda: select_cohort(dataset.frame, roles, keyed,
                                                 columns=self.columns(dataset)))
 
+    def derived(self, stage: str, name: str, dataset: Dataset, roles: Roles, settings: Settings,
+                compute: Callable[[], Any]):
+        """A result computed from ``stage``'s results (e.g. a view's table of every visit), kept
+        under that stage's key plus ``name`` so that a change elsewhere (a highlight, another
+        stage's setting) reuses it. Treat as read-only."""
+        value, fresh = self._cache.get_or_compute(
+            self._key(stage, dataset, roles, settings, (name,)), compute)
+        if fresh:
+            with self._count_lock:
+                self.compute_counts[name] += 1
+        return value
+
     def describe(self, dataset: Dataset) -> list[dict]:
         """:func:`~analysis.preparation.loading.describe_columns` of the table, kept under its
         key (the page shows it on every load). Treat as read-only."""

@@ -52,15 +52,29 @@ def register(app, context: AppContext) -> None:
 
         def make():
             cohort = stage_call(context, "cohort", data, roles, settings)
-            frame = cohort.frame
-            frame["subject"] = frame["subject"].astype(str)
+            look = cohort_look(cohort)
+            frame, means, per = course_base(context, cohort, look, data, roles, settings)
             chosen, k, n = sample_subjects(frame, per_stratum=n_draw, seed=seed, keep=subject)
             shown = frame[frame["subject"].isin(set(chosen))]
-            fig = courses_figure(shown, full=frame, look=cohort_look(cohort),
-                                 highlight_subject=subject, highlight_stratum=stratum)
+            fig = courses_figure(shown, full=frame, look=look, highlight_subject=subject,
+                                 highlight_stratum=stratum, means=means, subjects_per=per)
             return fig, f"{k} of {n} subjects drawn (sample {seed}); means use every subject."
 
         return finish(make, "drawing courses over time", key, ("fig", "text"))
+
+
+def course_base(context, cohort, look: CohortLook, data, roles, settings):
+    """(every visit with text subject ids, group means, subjects per group) of the cohort,
+    computed once per cohort (a highlight or a new sample reuses them)."""
+    def compute():
+        frame = cohort.frame
+        frame["subject"] = frame["subject"].astype(str)
+        labels = list(look.strata) or _present_strata(look, frame["stratum_label"])
+        per = frame.groupby("stratum_label", sort=False)["subject"].nunique()
+        return frame, group_means(frame, strata=labels), per
+
+    dataset, r, s = context.inputs(data, roles, settings)
+    return context.workbench.derived("cohort", "course base", dataset, r, s, compute)
 
 
 def sample_subjects(frame: pd.DataFrame, *, per_stratum: int, seed: int,
@@ -105,7 +119,8 @@ def panel_title(label: str, n: int, *, ncol: int, bold: bool = False) -> str:
 
 def courses_figure(shown: pd.DataFrame, *, full: pd.DataFrame, look: CohortLook,
                    highlight_subject=None, highlight_stratum=None,
-                   n_bins: int = MEAN_BINS) -> go.Figure:
+                   n_bins: int = MEAN_BINS, means: pd.DataFrame | None = None,
+                   subjects_per: pd.Series | None = None) -> go.Figure:
     """Response over time, one panel per group: sampled subject lines and the group mean.
 
     Parameters
@@ -119,12 +134,15 @@ def courses_figure(shown: pd.DataFrame, *, full: pd.DataFrame, look: CohortLook,
         Drawn bold in the highlight colour in its group's panel.
     highlight_stratum : str, optional
         Its panel keeps full strength; the others fade.
+    means, subjects_per : optional
+        ``group_means(full, ...)`` and subjects per group label, when already computed.
     """
     labels = list(look.strata) or _present_strata(look, full["stratum_label"])
     k = max(len(labels), 1)
     ncol = k if k <= 4 else (int(np.ceil(k / 2)) if k <= 8 else 4)
     nrow = int(np.ceil(k / ncol))
-    subjects_per = full.groupby("stratum_label", sort=False)["subject"].nunique()
+    if subjects_per is None:
+        subjects_per = full.groupby("stratum_label", sort=False)["subject"].nunique()
     # the covariate and its unit are named once, in the figure title; each panel
     # title is the group's range and its subject count, wrapped only when too wide
     titles = [panel_title(lab, int(subjects_per.get(lab, 0)), ncol=ncol,
@@ -139,7 +157,8 @@ def courses_figure(shown: pd.DataFrame, *, full: pd.DataFrame, look: CohortLook,
     shown = shown.assign(subject=shown["subject"].astype(str),
                          stratum_label=shown["stratum_label"].astype(str))
     shown = shown.sort_values(["stratum_label", "subject", "time"], kind="stable")
-    means = group_means(full, strata=labels, n_bins=n_bins)
+    if means is None:
+        means = group_means(full, strata=labels, n_bins=n_bins)
     hl = None if highlight_subject is None else str(highlight_subject)
     hover = (f"subject %{{customdata}}<br>%{{x:.1f}} {look.time_unit}: %{{y:.1f}}"
              f" {look.response_unit}<extra></extra>")
@@ -189,7 +208,7 @@ def courses_figure(shown: pd.DataFrame, *, full: pd.DataFrame, look: CohortLook,
     fig.add_trace(go.Scatter(x=[None], y=[None], mode="lines", name="group mean, every subject",
                              line={"color": pal.REFERENCE_COLOR, "width": 4}, hoverinfo="skip"),
                   row=1, col=1)
-    total = int(full["subject"].nunique())
+    total = int(subjects_per.sum())
     drawn = int(shown["subject"].nunique())
     _finish(fig, f"{look.response} over time, by {look.stratifier_label}",
             subtitle=(f"thin lines: {drawn:,} of {total:,} subjects drawn · thick line: mean of "
