@@ -87,3 +87,24 @@ def test_density_cells_count_like_histogram2d_and_list_their_subjects():
     # the cell's own subject (what a click selects) lies in the cell, checked brute force
     own = lines.set_index("subject").loc[heat.customdata[j][i]]
     assert x0 * (1 - 1e-9) <= own["covariate"] <= x1 * (1 + 1e-9) and y0 <= own["slope"] <= y1
+
+
+def test_course_sample_from_panel_rows_equals_searching_every_visit():
+    """Reference: the sample drawn from ``frame.drop_duplicates`` and the rows found by
+    ``frame.isin`` over every visit (the way the view found them before keeping them)."""
+    from analysis.pipeline import Workbench
+    from analysis.preparation.demo import demo_roles, demo_settings, load_demo
+    from analysis.preparation.loading import Dataset
+    from app.sections.courses import sample_subjects, subject_rows
+
+    coh = Workbench().cohort(Dataset.from_frame(load_demo()), demo_roles(), demo_settings())
+    frame = coh.frame
+    frame["subject"] = frame["subject"].astype(str)
+    firsts = pd.DataFrame({"subject": frame["subject"].to_numpy()[coh.panel.starts],
+                           "stratum": np.asarray(coh.strata.codes)})
+    for seed, keep in ((1, None), (2, "R00017"), (7, None)):
+        a = sample_subjects(frame, per_stratum=40, seed=seed, keep=keep)
+        b = sample_subjects(frame, per_stratum=40, seed=seed, keep=keep, firsts=firsts)
+        assert list(a[0]) == list(b[0]) and a[1:] == b[1:]
+        pd.testing.assert_frame_equal(frame.iloc[subject_rows(coh, b[0])],
+                                      frame[frame["subject"].isin(set(a[0]))])

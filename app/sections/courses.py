@@ -53,9 +53,11 @@ def register(app, context: AppContext) -> None:
         def make():
             cohort = stage_call(context, "cohort", data, roles, settings)
             look = cohort_look(cohort)
-            frame, means, per = course_base(context, cohort, look, data, roles, settings)
-            chosen, k, n = sample_subjects(frame, per_stratum=n_draw, seed=seed, keep=subject)
-            shown = frame[frame["subject"].isin(set(chosen))]
+            frame, means, per, firsts, index = course_base(context, cohort, look, data, roles,
+                                                           settings)
+            chosen, k, n = sample_subjects(frame, per_stratum=n_draw, seed=seed, keep=subject,
+                                           firsts=firsts)
+            shown = frame.iloc[subject_rows(cohort, chosen, index)]
             fig = courses_figure(shown, full=frame, look=look, highlight_subject=subject,
                                  highlight_stratum=stratum, means=means, subjects_per=per)
             return fig, f"{k} of {n} subjects drawn (sample {seed}); means use every subject."
@@ -71,20 +73,43 @@ def course_base(context, cohort, look: CohortLook, data, roles, settings):
         frame["subject"] = frame["subject"].astype(str)
         labels = list(look.strata) or _present_strata(look, frame["stratum_label"])
         per = frame.groupby("stratum_label", sort=False)["subject"].nunique()
-        return frame, group_means(frame, strata=labels), per
+        # one row per subject in first-visit order, as frame.drop_duplicates("subject") gives
+        firsts = pd.DataFrame({"subject": frame["subject"].to_numpy()[cohort.panel.starts],
+                               "stratum": np.asarray(cohort.strata.codes)})
+        index = pd.Index(np.asarray(cohort.subject_ids).astype(str))
+        index.get_indexer(index[:1])    # builds its lookup table once, here
+        return frame, group_means(frame, strata=labels), per, firsts, index
 
     dataset, r, s = context.inputs(data, roles, settings)
     return context.workbench.derived("cohort", "course base", dataset, r, s, compute)
 
 
+def subject_rows(cohort, chosen, index: pd.Index | None = None) -> np.ndarray:
+    """Positions, in ``cohort.frame`` (panel row order), of every visit of the ``chosen``
+    subject ids (text), ascending. ``index``: the subject ids as text, when already made."""
+    p = cohort.panel
+    index = pd.Index(np.asarray(cohort.subject_ids).astype(str)) if index is None else index
+    code = index.get_indexer(np.asarray(chosen, dtype=str))
+    code = np.sort(code[code >= 0])
+    if code.size == 0:
+        return np.zeros(0, dtype=np.int64)
+    counts = p.counts[code]
+    offsets = np.arange(counts.sum()) - np.repeat(np.cumsum(counts) - counts, counts)
+    return np.repeat(p.starts[code], counts) + offsets
+
+
 def sample_subjects(frame: pd.DataFrame, *, per_stratum: int, seed: int,
-                    keep: str | None = None) -> tuple[np.ndarray, int, int]:
+                    keep: str | None = None, firsts: pd.DataFrame | None = None
+                    ) -> tuple[np.ndarray, int, int]:
     """A reproducible random sample of subjects, up to ``per_stratum`` from each group.
 
     Returns (chosen subject ids, number drawn, number available). ``keep`` (the
     highlighted subject) is always included. The same (data, seed) gives the same draw.
+    ``firsts`` (subject, stratum: one row per subject in order of first appearance) saves
+    finding them in ``frame``.
     """
-    firsts = frame.drop_duplicates("subject")[["subject", "stratum"]]
+    if firsts is None:
+        firsts = frame.drop_duplicates("subject")[["subject", "stratum"]]
     rng = np.random.default_rng(seed)
     chosen = []
     for _, grp in firsts.groupby("stratum", sort=True):
@@ -92,7 +117,8 @@ def sample_subjects(frame: pd.DataFrame, *, per_stratum: int, seed: int,
         if len(ids) > per_stratum:
             ids = rng.choice(ids, size=per_stratum, replace=False)
         chosen.extend(ids.tolist())
-    if keep is not None and keep in set(firsts["subject"].astype(str)) and keep not in chosen:
+    if keep is not None and keep not in chosen and bool(
+            (firsts["subject"].astype(str) == keep).any()):
         chosen.append(keep)
     return np.asarray(chosen, dtype=object), len(chosen), len(firsts)
 
@@ -160,6 +186,7 @@ def courses_figure(shown: pd.DataFrame, *, full: pd.DataFrame, look: CohortLook,
     if means is None:
         means = group_means(full, strata=labels, n_bins=n_bins)
     hl = None if highlight_subject is None else str(highlight_subject)
+    hl_rows = None if hl is None else full[full["subject"].astype(str) == hl]
     hover = (f"subject %{{customdata}}<br>%{{x:.1f}} {look.time_unit}: %{{y:.1f}}"
              f" {look.response_unit}<extra></extra>")
     # WebGL traces are painted above SVG ones, so once the subject lines need WebGL,
@@ -194,7 +221,7 @@ def courses_figure(shown: pd.DataFrame, *, full: pd.DataFrame, look: CohortLook,
                                f"{look.time_unit}: %{{y:.1f}} {look.response_unit}"
                                "<br>%{customdata} visits<extra></extra>")), row=row, col=col)
         if hl is not None:
-            h = full[(full["subject"].astype(str) == hl) & (full["stratum_label"].astype(str) == lab)]
+            h = hl_rows[hl_rows["stratum_label"].astype(str) == lab]
             if len(h):
                 h = h.sort_values("time")
                 fig.add_trace(kind(
