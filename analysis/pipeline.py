@@ -32,7 +32,8 @@ import pandas as pd
 from .errors import SettingsError
 from .jsonsafe import json_safe
 from .preparation.loading import Dataset
-from .preparation.prepare import CohortSelection, PreparedCohort, select_cohort, stratify
+from .preparation.prepare import (CohortSelection, ColumnReader, PreparedCohort, select_cohort,
+                                  stratify)
 from .settings import COUNT_LIMITS, STAGE_FIELDS, Roles, Settings, json_key
 
 
@@ -103,18 +104,39 @@ class ResultCache:
         self._sizer = sizer
         self._items: OrderedDict = OrderedDict()
         self._sizes: dict = {}
+        self._running: dict = {}      # key -> Event of a computation in progress
         self.nbytes = 0
         self._lock = threading.Lock()
 
     def get_or_compute(self, key, compute: Callable[[], Any]) -> tuple[Any, bool]:
-        """Return (value, computed_now)."""
-        with self._lock:
-            if key in self._items:
-                self._items.move_to_end(key)
-                return self._items[key], False
-        value = compute()
+        """Return (value, computed_now).
+
+        Computed once when several threads ask for the same key at the same time (the page's
+        callbacks run in parallel and share stages): the others wait for the first one's
+        result. When that computation fails, each waiter tries for itself (and meets the same
+        message).
+        """
+        while True:
+            with self._lock:
+                if key in self._items:
+                    self._items.move_to_end(key)
+                    return self._items[key], False
+                running = self._running.get(key)
+                if running is None:
+                    running = self._running[key] = threading.Event()
+                    break
+            running.wait()
+        try:
+            value = compute()
+        except BaseException:
+            with self._lock:
+                self._running.pop(key, None)
+            running.set()
+            raise
         size = self._sizer(value) if self.max_bytes is not None else 0
         with self._lock:
+            self._running.pop(key, None)
+            running.set()
             if key in self._items:
                 self.nbytes -= self._sizes.pop(key, 0)
             self._items[key] = value
@@ -238,6 +260,7 @@ class Workbench:
             "selection": sel,
             "subject_fits": sel,
             "cohort": sel + strata,
+            "subject_lines": sel + strata,
             "summaries": sel + strata + STAGE_FIELDS["summaries"],
             "residuals": sel + res,
             "variogram": sel + res + STAGE_FIELDS["variogram"],
@@ -250,7 +273,7 @@ class Workbench:
         d = settings.to_dict()
         sub = {k: d[k] for k in self.stage_fields(stage, settings)} if stage in (
             "selection", "subject_fits", "cohort", "summaries", "residuals", "variogram",
-            "lagcorr", "models") else d
+            "lagcorr", "models", "subject_lines") else d
         return (dataset.key, roles, stage, json_key(sub, 16), extra)
 
     def _memo(self, stage, dataset, roles, settings, compute, extra=()):
@@ -266,7 +289,41 @@ class Workbench:
     def selection(self, dataset: Dataset, roles: Roles, settings: Settings) -> CohortSelection:
         keyed = settings.only(self.stage_fields("selection", settings))
         return self._memo("selection", dataset, roles, settings,
-                          lambda: select_cohort(dataset.frame, roles, keyed))
+                          lambda: select_cohort(dataset.frame, roles, keyed,
+                                                columns=self.columns(dataset)))
+
+    def derived(self, stage: str, name: str, dataset: Dataset, roles: Roles, settings: Settings,
+                compute: Callable[[], Any]):
+        """A result computed from ``stage``'s results (e.g. a view's table of every visit), kept
+        under that stage's key plus ``name`` so that a change elsewhere (a highlight, another
+        stage's setting) reuses it. Treat as read-only."""
+        value, fresh = self._cache.get_or_compute(
+            self._key(stage, dataset, roles, settings, (name,)), compute)
+        if fresh:
+            with self._count_lock:
+                self.compute_counts[name] += 1
+        return value
+
+    def describe(self, dataset: Dataset) -> list[dict]:
+        """:func:`~analysis.preparation.loading.describe_columns` of the table, kept under its
+        key (the page shows it on every load). Treat as read-only."""
+        from .preparation.loading import describe_columns
+
+        return self._cache.get_or_compute((dataset.key, "describe"),
+                                          lambda: describe_columns(dataset.frame))[0]
+
+    def columns(self, dataset: Dataset) -> ColumnReader:
+        """The dataset's role columns, each parsed once (subject codes, numbers, dates, column
+        kinds) and kept in the exploratory cache under the data's key: a settings change never
+        re-reads them."""
+        def memo(key, compute):
+            value, fresh = self._cache.get_or_compute((dataset.key, "columns", key), compute)
+            if fresh:
+                with self._count_lock:
+                    self.compute_counts["columns"] += 1
+            return value
+
+        return ColumnReader(dataset.frame, memo)
 
     def cohort(self, dataset: Dataset, roles: Roles, settings: Settings) -> PreparedCohort:
         # the cached cohort carries exactly the settings of its key: a later request that
@@ -287,10 +344,14 @@ class Workbench:
                           lambda: fit_subject_lines(self.selection(dataset, roles, settings).panel))
 
     def subject_lines(self, dataset: Dataset, roles: Roles, settings: Settings) -> pd.DataFrame:
-        """Per-subject OLS lines joined with stratum, stratum label and raw covariate."""
-        cohort = self.cohort(dataset, roles, settings)
-        fits = self.subject_fits(dataset, roles, settings)
-        return join_subject_lines(fits.to_frame(cohort.subject_ids), cohort)
+        """Per-subject OLS lines joined with stratum, stratum label and raw covariate (kept like
+        a stage: several views read it; each caller gets its own shallow copy)."""
+        def compute():
+            cohort = self.cohort(dataset, roles, settings)
+            fits = self.subject_fits(dataset, roles, settings)
+            return join_subject_lines(fits.to_frame(cohort.subject_ids), cohort)
+
+        return self._memo("subject_lines", dataset, roles, settings, compute).copy(deep=False)
 
     def residuals(self, dataset: Dataset, roles: Roles, settings: Settings):
         from .exploration.detrend import detrend

@@ -36,6 +36,8 @@ from plotly.subplots import make_subplots
 from analysis.exploration.summaries import (ALL_LABEL, FOLLOWED, LAST_VISIT, LEFT_EARLY, MEAN_BINS,
                                             group_means, mean_interval_halfwidth)
 
+from analysis.exploration.digest import thin_steps
+
 from . import palette as pal
 from .text import short
 
@@ -581,13 +583,17 @@ CHECK_CAPTIONS = {
 
 # from app/sections/courses.py
 def sample_subjects(frame: pd.DataFrame, *, per_stratum: int, seed: int,
-                    keep: str | None = None) -> tuple[np.ndarray, int, int]:
+                    keep: str | None = None, firsts: pd.DataFrame | None = None
+                    ) -> tuple[np.ndarray, int, int]:
     """A reproducible random sample of subjects, up to ``per_stratum`` from each group.
 
     Returns (chosen subject ids, number drawn, number available). ``keep`` (the
     highlighted subject) is always included. The same (data, seed) gives the same draw.
+    ``firsts`` (subject, stratum: one row per subject in order of first appearance) saves
+    finding them in ``frame``.
     """
-    firsts = frame.drop_duplicates("subject")[["subject", "stratum"]]
+    if firsts is None:
+        firsts = frame.drop_duplicates("subject")[["subject", "stratum"]]
     rng = np.random.default_rng(seed)
     chosen = []
     for _, grp in firsts.groupby("stratum", sort=True):
@@ -595,7 +601,8 @@ def sample_subjects(frame: pd.DataFrame, *, per_stratum: int, seed: int,
         if len(ids) > per_stratum:
             ids = rng.choice(ids, size=per_stratum, replace=False)
         chosen.extend(ids.tolist())
-    if keep is not None and keep in set(firsts["subject"].astype(str)) and keep not in chosen:
+    if keep is not None and keep not in chosen and bool(
+            (firsts["subject"].astype(str) == keep).any()):
         chosen.append(keep)
     return np.asarray(chosen, dtype=object), len(chosen), len(firsts)
 
@@ -622,7 +629,8 @@ def panel_title(label: str, n: int, *, ncol: int, bold: bool = False) -> str:
 
 def courses_figure(shown: pd.DataFrame, *, full: pd.DataFrame, look: CohortLook,
                    highlight_subject=None, highlight_stratum=None,
-                   n_bins: int = MEAN_BINS) -> go.Figure:
+                   n_bins: int = MEAN_BINS, means: pd.DataFrame | None = None,
+                   subjects_per: pd.Series | None = None) -> go.Figure:
     """Response over time, one panel per group: sampled subject lines and the group mean.
 
     Parameters
@@ -636,12 +644,15 @@ def courses_figure(shown: pd.DataFrame, *, full: pd.DataFrame, look: CohortLook,
         Drawn bold in the highlight colour in its group's panel.
     highlight_stratum : str, optional
         Its panel keeps full strength; the others fade.
+    means, subjects_per : optional
+        ``group_means(full, ...)`` and subjects per group label, when already computed.
     """
     labels = list(look.strata) or _present_strata(look, full["stratum_label"])
     k = max(len(labels), 1)
     ncol = k if k <= 4 else (int(np.ceil(k / 2)) if k <= 8 else 4)
     nrow = int(np.ceil(k / ncol))
-    subjects_per = full.groupby("stratum_label", sort=False)["subject"].nunique()
+    if subjects_per is None:
+        subjects_per = full.groupby("stratum_label", sort=False)["subject"].nunique()
     # the covariate and its unit are named once, in the figure title; each panel
     # title is the group's range and its subject count, wrapped only when too wide
     titles = [panel_title(lab, int(subjects_per.get(lab, 0)), ncol=ncol,
@@ -656,8 +667,10 @@ def courses_figure(shown: pd.DataFrame, *, full: pd.DataFrame, look: CohortLook,
     shown = shown.assign(subject=shown["subject"].astype(str),
                          stratum_label=shown["stratum_label"].astype(str))
     shown = shown.sort_values(["stratum_label", "subject", "time"], kind="stable")
-    means = group_means(full, strata=labels, n_bins=n_bins)
+    if means is None:
+        means = group_means(full, strata=labels, n_bins=n_bins)
     hl = None if highlight_subject is None else str(highlight_subject)
+    hl_rows = None if hl is None else full[full["subject"].astype(str) == hl]
     hover = (f"subject %{{customdata}}<br>%{{x:.1f}} {look.time_unit}: %{{y:.1f}}"
              f" {look.response_unit}<extra></extra>")
     # WebGL traces are painted above SVG ones, so once the subject lines need WebGL,
@@ -692,7 +705,7 @@ def courses_figure(shown: pd.DataFrame, *, full: pd.DataFrame, look: CohortLook,
                                f"{look.time_unit}: %{{y:.1f}} {look.response_unit}"
                                "<br>%{customdata} visits<extra></extra>")), row=row, col=col)
         if hl is not None:
-            h = full[(full["subject"].astype(str) == hl) & (full["stratum_label"].astype(str) == lab)]
+            h = hl_rows[hl_rows["stratum_label"].astype(str) == lab]
             if len(h):
                 h = h.sort_values("time")
                 fig.add_trace(kind(
@@ -706,7 +719,7 @@ def courses_figure(shown: pd.DataFrame, *, full: pd.DataFrame, look: CohortLook,
     fig.add_trace(go.Scatter(x=[None], y=[None], mode="lines", name="group mean, every subject",
                              line={"color": pal.REFERENCE_COLOR, "width": 4}, hoverinfo="skip"),
                   row=1, col=1)
-    total = int(full["subject"].nunique())
+    total = int(subjects_per.sum())
     drawn = int(shown["subject"].nunique())
     _finish(fig, f"{look.response} over time, by {look.stratifier_label}",
             subtitle=(f"thin lines: {drawn:,} of {total:,} subjects drawn · thick line: mean of "
@@ -929,6 +942,10 @@ def _log_ticks(values: np.ndarray) -> dict:
 
 
 # from app/sections/followup.py
+#: above this many retention steps per cohort, each Kaplan–Meier curve is read on a time grid
+STEP_POINTS = 400
+
+
 def dropout_figure(dropout, *, look: CohortLook, highlight_stratum=None) -> go.Figure:
     """Left: Kaplan–Meier share of each group not yet left, with its 95% band; right: response
     at the last visit of those who left early against those who did not.
@@ -950,6 +967,8 @@ def dropout_figure(dropout, *, look: CohortLook, highlight_stratum=None) -> go.F
     for ann in fig.layout.annotations:
         ann.font = {"size": 15}
     ret = dropout.retention
+    if len(ret) > STEP_POINTS:   # a large cohort: each curve read on a time grid (same curve there)
+        ret = ret.iloc[thin_steps(ret["time"], ret["label"], n_points=STEP_POINTS)]
     order = [s for s in look.strata if s in set(ret["label"])] + [ALL_LABEL]
     for lab in order:
         r = ret[ret["label"] == lab]

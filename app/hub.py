@@ -52,6 +52,12 @@ def register(app, context: AppContext) -> None:
                            for f in _COLUMN_SETTINGS},
         stratum=Output(ids.LINK_STRATA, "value"),
         subject=Output(ids.STORE_SUBJECT, "data"),
+        # the stores the views read, written here with the controls they come from (no
+        # second round trip relaying the controls to the stores)
+        roles_store=Output(ids.STORE_ROLES, "data"),
+        settings_store=Output(ids.STORE_SETTINGS, "data"),
+        settings_msgs={f: Output(ids.SETTING_MSG[f], "children") for f in ids.SETTING_FIELDS},
+        settings_status=Output(ids.SETTINGS_STATUS, "children"),
     )
     inputs = dict(
         search=Input(ids.PAGE_URL, "search"),
@@ -77,6 +83,15 @@ def register(app, context: AppContext) -> None:
     @app.callback(output=outputs, inputs=inputs, state=state)
     def hub(search, upload, demo, reset, roles, labels, settings, view, stratum, clicks,
             stratum_click, clear, filename, data, subject, good):
+        out = route(search, upload, demo, reset, roles, labels, settings, view, stratum, clicks,
+                    stratum_click, clear, filename, data, subject, good)
+        if out is None:      # the address echoed back: nothing changed
+            return _unchanged(outputs)
+        write_stores(context, ctx.triggered_id, roles, labels, settings, out)
+        return out
+
+    def route(search, upload, demo, reset, roles, labels, settings, view, stratum, clicks,
+              stratum_click, clear, filename, data, subject, good):
         out = _unchanged(outputs)
         trig = ctx.triggered_id
         roles = {**roles, "labels": dict(labels or {})}
@@ -86,7 +101,7 @@ def register(app, context: AppContext) -> None:
                 and _same_query(search, _encode(context, now))):
             # Location echoes every query this callback writes back as a new input:
             # nothing to restore (re-setting every control would undo the user's change)
-            return out
+            return None
         if (trig is None or trig == ids.PAGE_URL
                 or (not data and trig not in (ids.DATA_UPLOAD, ids.DATA_USE_DEMO))):
             # also when a control fires before the first load's response arrived: Dash
@@ -128,6 +143,32 @@ def register(app, context: AppContext) -> None:
             now["subject"] = now["stratum"] = out["subject"] = out["stratum"] = None
         out["search"] = _encode(context, now)
         return out
+
+
+def write_stores(context: AppContext, trig, roles: dict, labels: dict, settings: dict,
+                 out: dict) -> None:
+    """Set the roles and settings stores (and the settings' messages) in ``out`` when a role,
+    a display label or a setting control changed or ``out`` itself sets some: the views read
+    the stores, so they start from this one response."""
+    set_roles = {r: v for r, v in out["roles"].items() if v is not no_update}
+    set_labels = {r: v for r, v in out["labels"].items() if v is not no_update}
+    if (trig in ids.ROLE_INPUT.values() or trig in ids.ROLE_LABEL.values() or set_roles
+            or set_labels):
+        values = {r: set_roles.get(r, (roles or {}).get(r)) for r in ids.ROLE_FIELDS}
+        values["labels"] = {r: set_labels.get(r, (labels or {}).get(r)) for r in ids.LABEL_ROLES}
+        r, problems = ctl.roles_from_controls(values, known=context.default_roles)
+        out["roles_store"] = {"roles": r.to_dict() if r else None, "problems": problems}
+    set_settings = {k: v for k, v in out["settings"].items() if v is not no_update}
+    if trig in _SETTING_IDS.values() or set_settings:
+        values = {k: set_settings.get(k, (settings or {}).get(k)) for k in _SETTING_KEYS}
+        s, problems = ctl.settings_from_controls(values, fallback=context.default_settings)
+        out["settings_msgs"] = {f: problems.get(f, "") for f in ids.SETTING_FIELDS}
+        if s is None:
+            out["settings_status"] = ("Fix the marked choice; the views keep the last valid "
+                                      "choices.")
+        else:
+            out["settings_store"] = s.to_dict()
+            out["settings_status"] = ""
 
 
 def _unchanged(spec):
@@ -215,7 +256,7 @@ def _show_dataset(context: AppContext, key: str, roles, out: dict, name: str | N
     browser store, since the shared store deduplicates uploads by content)."""
     dataset = context.datasets.get(key)
     name = name or dataset.name
-    described = describe_columns(dataset.frame)
+    described = context.workbench.describe(dataset)   # once per table, not per page load
     options = ctl.role_options(described)
     roles = ctl.keep_roles_that_fit(roles, dataset.frame.columns)
     out["data"] = {"key": dataset.key, "name": name}

@@ -69,11 +69,13 @@ PAIRS_MSG = "pairs-msg"
 LINES_GRAPH = "lines-graph"
 LINES_ORDER = "lines-order"
 LINES_MSG = "lines-msg"
+LINES_MEMBERS = "lines-members"    # subjects of a clicked band (summarised view)
 
 RATE_STRATA_GRAPH = "rate-strata-graph"
 RATE_COVARIATE_GRAPH = "rate-covariate-graph"
 RATE_TABLE = "rate-table"
 RATE_MSG = "rate-msg"
+RATE_MEMBERS = "rate-members"      # subjects of a clicked density cell
 
 FOLLOW_VISITS_GRAPH = "follow-visits-graph"
 FOLLOW_DROPOUT_GRAPH = "follow-dropout-graph"

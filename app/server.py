@@ -17,7 +17,6 @@ from analysis.preparation.loading import Dataset, read_table
 from analysis.pipeline import Workbench
 from analysis.settings import Roles, Settings
 
-from . import controls as ctl
 from . import hub, ids
 from . import presentation, travel
 from .datastore import (DEFAULT_CACHE_MB, DEMO_KEY, MAX_REQUEST_BYTES, DataStore, demo_dataset,
@@ -75,24 +74,8 @@ def create_app(*, dataset: Dataset | None = None, roles: Roles | None = None,
 
 
 def _register_page(app, context: AppContext) -> None:
-    """Page-wide callbacks: the settings store, the caution note and the SVG buttons."""
-    setting_inputs = {k: Input(ids.SETTING_INPUT[k], "value") for k in ids.SETTING_FIELDS}
-    setting_inputs["center_value"] = Input(ids.SETTING_CENTER_VALUE, "value")
-
-    @app.callback(output=dict(store=Output(ids.STORE_SETTINGS, "data"),
-                              msgs={f: Output(ids.SETTING_MSG[f], "children")
-                                    for f in ids.SETTING_FIELDS},
-                              status=Output(ids.SETTINGS_STATUS, "children")),
-                  inputs=dict(values=setting_inputs))
-    def settings_store(values):
-        settings, problems = ctl.settings_from_controls(values,
-                                                        fallback=context.default_settings)
-        msgs = {f: problems.get(f, "") for f in ids.SETTING_FIELDS}
-        if settings is None:
-            return dict(store=no_update, msgs=msgs,
-                        status="Fix the marked choice; the views keep the last valid choices.")
-        return dict(store=settings.to_dict(), msgs=msgs, status="")
-
+    """Page-wide callbacks: the caution note and the SVG buttons."""
+    # the settings store is written by the hub with the controls (app/hub.py)
     @app.callback(Output(ids.PAGE_CAUTION, "style"), Input(ids.PAGE_CAUTION_CLOSE, "n_clicks"),
                   prevent_initial_call=True)
     def hide_caution(n):
@@ -150,6 +133,7 @@ def run_server(*, data_path=None, roles: Roles | None = None, settings: Settings
             print(f"cohortlens: {renamed_note(renamed)}")
         app = create_app(dataset=Dataset.from_frame(frame, name=Path(data_path).name),
                          roles=roles, settings=settings, cache_mb=cache_mb)
+    _warm_up(app._cohortlens)
     if host not in ("127.0.0.1", "localhost", "::1"):
         print(f"cohortlens: WARNING binding {host}: other computers on the network can reach "
               "this dashboard and its data.")
@@ -160,3 +144,22 @@ def run_server(*, data_path=None, roles: Roles | None = None, settings: Settings
     if open_browser:
         open_browser_later(url)
     app.run(host=host, port=port, debug=bool(debug))
+
+
+def _warm_up(context: AppContext) -> None:
+    """Prepare the start-up table's column list and default views in the background while the
+    page is being opened (a large file then opens as soon as they are ready; a page that asks
+    meanwhile waits for the same computation instead of starting its own)."""
+    import threading
+
+    def work():
+        try:
+            dataset = context.datasets.get(context.default_key)
+            context.workbench.describe(dataset)
+            if context.default_roles is not None:
+                context.workbench.explore(dataset, context.default_roles,
+                                          context.default_settings)
+        except Exception:  # noqa: BLE001 - the page shows any problem beside its control
+            log.debug("warm-up stopped", exc_info=True)
+
+    threading.Thread(target=work, name="cohortlens-warm-up", daemon=True).start()

@@ -134,7 +134,15 @@ def _read_parquet(raw: bytes, label: str) -> pd.DataFrame:
         raise DataError(f"{label} could not be read as Parquet: {clip(exc)}") from None
 
 
-def _read_csv(raw: bytes, label: str) -> pd.DataFrame:
+#: CSV files from this size on are parsed by pyarrow (multithreaded) when it reads them exactly
+#: as pandas would (see :func:`_read_csv_pyarrow`); smaller ones, and any file pyarrow would
+#: read differently, by pandas
+PYARROW_MIN_BYTES = 1 << 20
+
+
+def _read_csv(raw: bytes, label: str, *, engine: str = "auto") -> pd.DataFrame:
+    """``engine``: 'auto' (pyarrow from :data:`PYARROW_MIN_BYTES` on), 'pyarrow' or 'pandas';
+    every engine gives the same frame and the same messages."""
     try:
         text = raw.decode("utf-8-sig")
     except UnicodeDecodeError as exc:
@@ -142,16 +150,20 @@ def _read_csv(raw: bytes, label: str) -> pd.DataFrame:
             f"{label} is not UTF-8 text (undecodable byte at position {exc.start}); "
             "save it as UTF-8 CSV, or as Parquet"
         ) from None
-    delimiter = sniff_delimiter(text)
+    delimiter = sniff_delimiter(text[:200_000])
     options = dict(sep=delimiter, skipinitialspace=True, keep_default_na=False,
                    na_values=list(NA_CELLS))
-    try:
-        frame = pd.read_csv(io.StringIO(text), **options)
-    except (pd.errors.ParserError, pd.errors.EmptyDataError) as exc:
-        raise DataError(
-            f"{label} could not be parsed as {_DELIMITER_NAMES[delimiter]}-separated text: "
-            f"{clip(exc)}"
-        ) from None
+    frame = None
+    if engine == "pyarrow" or (engine == "auto" and len(raw) >= PYARROW_MIN_BYTES):
+        frame = _read_csv_pyarrow(raw.removeprefix(_BOM), delimiter)
+    if frame is None:
+        try:
+            frame = pd.read_csv(io.StringIO(text), **options)
+        except (pd.errors.ParserError, pd.errors.EmptyDataError) as exc:
+            raise DataError(
+                f"{label} could not be parsed as {_DELIMITER_NAMES[delimiter]}-separated text: "
+                f"{clip(exc)}"
+            ) from None
     frame.columns = [str(c).strip() for c in frame.columns]
     if frame.empty:
         raise DataError(f"{label} has a header but no data rows")
@@ -167,6 +179,54 @@ def _read_csv(raw: bytes, label: str) -> pd.DataFrame:
             converted = decimal_comma_numbers(frame.iloc[:, i])
             if converted is not None:
                 frame[frame.columns[i]] = converted
+    return frame
+
+
+def _read_csv_pyarrow(raw: bytes, delimiter: str) -> pd.DataFrame | None:
+    """The table as pandas' reader in :func:`_read_csv` gives it, parsed by pyarrow; None when
+    pyarrow cannot read it or might read it differently (the caller then uses pandas, whose
+    messages name the problem): a row with a different number of fields, a column whose type
+    changes after the first block, duplicate or empty header names, cells with leading
+    spaces (pandas strips them), text 'nan' in a number column (pandas keeps it as text so
+    that the analysis can name it), whole numbers beyond a float's exact range, booleans or
+    other types pandas treats otherwise. Calendar
+    dates stay text, as pandas leaves them."""
+    import pyarrow as pa
+    import pyarrow.compute as pc
+    from pyarrow import csv as pacsv
+
+    def read(types=None):
+        return pacsv.read_csv(
+            io.BytesIO(raw), parse_options=pacsv.ParseOptions(delimiter=delimiter),
+            convert_options=pacsv.ConvertOptions(
+                null_values=list(NA_CELLS), strings_can_be_null=True,
+                quoted_strings_can_be_null=True, column_types=types or {}))
+
+    try:
+        table = read()
+        names = table.column_names
+        if len(set(names)) != len(names) or any(not str(n).strip() for n in names):
+            return None
+        dated = {n: pa.string() for n, t in zip(names, table.schema.types)
+                 if pa.types.is_temporal(t)}
+        if dated:
+            table = read(dated)
+    except (pa.ArrowInvalid, pa.ArrowNotImplementedError, pa.ArrowTypeError, ValueError):
+        return None
+    if table.num_rows == 0:
+        return None
+    for col, t in zip(table.columns, table.schema.types):
+        if pa.types.is_string(t) or pa.types.is_large_string(t):
+            if pc.any(pc.match_substring_regex(col, r"^\s")).as_py():
+                return None
+        elif pa.types.is_floating(t):
+            if pc.any(pc.is_nan(col)).as_py():
+                return None
+        elif not pa.types.is_integer(t):
+            return None
+    frame = table.to_pandas()
+    if any(_lost_digits(frame.iloc[:, i]) for i in range(frame.shape[1])):
+        return None   # ids beyond a float's exact range: pandas keeps their text
     return frame
 
 

@@ -260,7 +260,8 @@ def prepare(df: pd.DataFrame, roles: Roles, settings: Settings) -> PreparedCohor
 
 
 def select_cohort(df: pd.DataFrame, roles: Roles, settings: Settings, *,
-                  tracker: type | None = None) -> CohortSelection:
+                  tracker: type | None = None,
+                  columns: "ColumnReader | None" = None) -> CohortSelection:
     """Validate the table against the roles and apply the inclusion rules.
 
     Parameters
@@ -274,6 +275,10 @@ def select_cohort(df: pd.DataFrame, roles: Roles, settings: Settings, *,
     tracker : type, optional, keyword-only
         Counter of the inclusion steps (default :class:`_Tracker`, which stops when a step
         leaves no visit); the cluster engine passes one that lets a partition run empty.
+    columns : ColumnReader, optional
+        Where the role columns are parsed (subject codes, numbers, dates, column kinds); a
+        caching reader (``Workbench``) parses each once per data and roles, so that a
+        settings change never re-reads them. Default: parsed here.
 
     Returns
     -------
@@ -289,6 +294,7 @@ def select_cohort(df: pd.DataFrame, roles: Roles, settings: Settings, *,
         A setting that does not fit the data (e.g. origin 'as-is' with a date column).
     """
     _check_columns(df, roles, settings)
+    columns = columns or ColumnReader(df)
     # positions, not labels: a filtered or re-indexed table must line up row by row
     df = df.reset_index(drop=True)
     primary = settings.covariate or (roles.covariates[0] if roles.covariates else None)
@@ -297,25 +303,28 @@ def select_cohort(df: pd.DataFrame, roles: Roles, settings: Settings, *,
         covariates = (*covariates, settings.stratify_by)
 
     work = pd.DataFrame({"_row": np.arange(len(df), dtype=np.int64)})
-    sid, labels = _subject_codes(df[roles.subject])
+    sid, labels = columns.subject_codes(roles.subject)
     work["subject"] = sid                       # rank of the subject's label; -1 = missing
-    work["response"] = _numeric(df[roles.response], roles.response, "response", finite=True)
-    time_kind, work["time_raw"] = _time_column(df[roles.time], roles.time, "time",
-                                               settings.date_order)
+    # the parsed columns keep the table's own index: assigned by position
+    work["response"] = columns.numeric(roles.response, "response").to_numpy()
+    time_kind, time_raw = columns.time_column(roles.time, "time", settings.date_order)
+    work["time_raw"] = time_raw.to_numpy()
     if settings.origin == "as-is" and time_kind == "date":
         raise SettingsError(
             f"column '{clip(roles.time)}' holds dates, so time since an origin must be computed: "
             "choose origin 'event-date' (with an event-date column) or 'first-visit'",
             field="origin")
     if settings.origin == "event-date":
-        work["event"] = _time_values(df[roles.event_date], roles.event_date, "event date",
-                                     time_kind, settings.date_order)
+        work["event"] = columns.time_values(roles.event_date, "event date", time_kind,
+                                            settings.date_order).to_numpy()
     if roles.followup_end:
-        work["fu_end"] = _time_values(df[roles.followup_end], roles.followup_end,
-                                      "follow-up end", time_kind, settings.date_order)
+        work["fu_end"] = columns.time_values(roles.followup_end, "follow-up end", time_kind,
+                                             settings.date_order).to_numpy()
     latest = float(_days(work["time_raw"]).max()) if time_kind == "date" else np.nan
-    for c in covariates:
-        work[f"cov:{c}"] = df[c].to_numpy()
+    if settings.duplicates == "average":
+        # averaged visits keep each covariate's first non-missing value among their rows
+        for c in covariates:
+            work[f"cov:{c}"] = df[c].to_numpy()
 
     tracker = (tracker or _Tracker)(work["subject"].to_numpy())
     keep = (work["subject"] >= 0) & work["response"].notna() & work["time_raw"].notna()
@@ -348,8 +357,8 @@ def select_cohort(df: pd.DataFrame, roles: Roles, settings: Settings, *,
         tracker.record("Repeated visits at the same time averaged", work["subject"].to_numpy())
 
     warnings: list[str] = []
-    kinds = {c: ("numeric" if column_kind(df[c]) == "number" else "categorical") for c in covariates}
-    base = _baseline_values(work, covariates, kinds, warnings, labels)
+    kinds = {c: ("numeric" if columns.kind(c) == "number" else "categorical") for c in covariates}
+    base = _baseline_values(work, covariates, kinds, warnings, labels, df=df, columns=columns)
 
     if primary and settings.require_covariate:
         has = base.index[base[primary].notna()].to_numpy()
@@ -419,6 +428,48 @@ def stratify(selection: CohortSelection, settings: Settings) -> PreparedCohort:
     warnings.extend(getattr(strata, "notes", ()))
     return PreparedCohort(selection=selection, strata=strata, x=x, center_value=center_value,
                           baseline=base, warnings=tuple(warnings), settings=settings)
+
+
+# --------------------------------------------------------------------------- column parsing
+class ColumnReader:
+    """Parses the role columns of one table for :func:`select_cohort`.
+
+    Each answer depends only on the table, the column, its role and the date order, never on
+    the other settings; ``memo(key, compute)`` (default: compute every time) lets a cache keep
+    them, so that changing, say, the fewest visits re-runs the inclusion rules on parsed
+    arrays instead of re-reading text and dates. A parse that fails raises its message each
+    time it is asked (failures are not kept). Treat the returned arrays as read-only.
+    """
+
+    def __init__(self, df: pd.DataFrame, memo=None):
+        self._df = df
+        self._memo = memo or (lambda key, compute: compute())
+
+    def subject_codes(self, column: str) -> tuple[np.ndarray, np.ndarray]:
+        """(code per row, distinct labels), see :func:`_subject_codes`."""
+        return self._memo(("subject", column), lambda: _subject_codes(self._df[column]))
+
+    def numeric(self, column: str, role: str) -> pd.Series:
+        """Finite numbers as float (see :func:`_numeric`)."""
+        return self._memo(("numeric", column, role),
+                          lambda: _numeric(self._df[column], column, role, finite=True))
+
+    def time_column(self, column: str, role: str, order: str) -> tuple[str, pd.Series]:
+        return self._memo(("time", column, role, order),
+                          lambda: _time_column(self._df[column], column, role, order))
+
+    def time_values(self, column: str, role: str, kind: str, order: str) -> pd.Series:
+        return self._memo(("time values", column, role, kind, order),
+                          lambda: _time_values(self._df[column], column, role, kind, order))
+
+    def category_codes(self, column: str) -> np.ndarray:
+        """Integer code of each row's value (equal values, equal codes; -1 = missing)."""
+        return self._memo(("codes", column),
+                          lambda: pd.factorize(self._df[column], use_na_sentinel=True)[0])
+
+    def kind(self, column: str) -> str:
+        """'number', 'date' or 'text' (:func:`analysis.loading.column_kind`)."""
+        return self._memo(("kind", column), lambda: column_kind(self._df[column]))
 
 
 # --------------------------------------------------------------------------- helpers
@@ -685,14 +736,24 @@ def _handle_duplicates(work: pd.DataFrame, roles: Roles, settings: Settings,
 
 
 def _baseline_values(work: pd.DataFrame, covariates, kinds, warnings: list,
-                     labels: np.ndarray) -> pd.DataFrame:
+                     labels: np.ndarray, *, df: pd.DataFrame | None = None,
+                     columns: ColumnReader | None = None) -> pd.DataFrame:
     """First non-missing value in time order per subject (indexed by subject code); warn when
-    a covariate varies. ``work`` is sorted by (subject, time)."""
+    a covariate varies. ``work`` is sorted by (subject, time); a covariate not carried in
+    ``work`` (as ``cov:NAME``) is read from ``df`` at the rows ``work['_row']``, a categorical
+    one through its integer codes (``columns.category_codes``)."""
     ordered = work
     out = pd.DataFrame(index=pd.Index(np.unique(ordered["subject"].to_numpy())))
     for c in covariates:
         col = f"cov:{c}"
-        values = ordered[col]
+        plain_numbers = (pd.api.types.is_numeric_dtype(df[c])
+                         and not pd.api.types.is_bool_dtype(df[c])) if df is not None else False
+        if col not in ordered.columns and (kinds[c] != "numeric" or plain_numbers):
+            _coded_baseline(ordered, df, columns or ColumnReader(df), c, out, warnings, labels,
+                            as_float=kinds[c] == "numeric")
+            continue
+        values = (ordered[col] if col in ordered.columns else pd.Series(
+            df[c].to_numpy()[ordered["_row"].to_numpy()], index=ordered.index))
         if kinds[c] == "numeric":
             values = _numeric(values.reset_index(drop=True), c, "baseline covariate")
             values.index = ordered.index
@@ -707,6 +768,35 @@ def _baseline_values(work: pd.DataFrame, covariates, kinds, warnings: list,
                 f"(e.g. {', '.join(map(clip, labels[varying[:3]]))}); "
                 "the first visit's value is used")
     return out
+
+
+def _coded_baseline(ordered: pd.DataFrame, df: pd.DataFrame, columns: ColumnReader, c: str,
+                    out: pd.DataFrame, warnings: list, labels: np.ndarray, *,
+                    as_float: bool = False) -> None:
+    """:func:`_baseline_values` for one categorical covariate (or a numeric column with
+    ``as_float``), on integer codes: the same first values and the same warning as grouping
+    the values themselves."""
+    rows = ordered["_row"].to_numpy()
+    subject = ordered["subject"].to_numpy()
+    codes = columns.category_codes(c)[rows]
+    present = codes >= 0
+    s, k = subject[present], codes[present]
+    # rows are sorted by subject: a subject's first row is where the subject changes
+    first = np.flatnonzero(np.r_[True, s[1:] != s[:-1]]) if s.size else np.zeros(0, np.int64)
+    picked = df[c].take(rows[present][first])
+    values = pd.Series(picked.to_numpy(dtype=float) if as_float else picked.to_numpy(),
+                       index=s[first])
+    out[c] = values.reindex(out.index)
+    # distinct (subject, code) pairs as one integer each
+    width = int(k.max(initial=0)) + 1
+    pairs = pd.unique(s.astype(np.int64) * width + k)
+    n = np.bincount(pairs // width)
+    varying = np.flatnonzero(n > 1)
+    if len(varying):
+        warnings.append(
+            f"baseline covariate '{clip(c)}' changes within {len(varying)} subject(s) "
+            f"(e.g. {', '.join(map(clip, labels[varying[:3]]))}); "
+            "the first visit's value is used")
 
 
 def _sort_key(v):

@@ -56,14 +56,47 @@ def register(app, context: AppContext) -> None:
 
         def make():
             cohort = stage_call(context, "cohort", data, roles, settings)
-            frame = cohort.frame
-            frame["subject"] = frame["subject"].astype(str)
-            chosen, k, n = sample_subjects(frame, per_stratum=n_draw, seed=seed, keep=subject)
-            shown = frame[frame["subject"].isin(set(chosen))]
-            fig = courses_figure(shown, full=frame, look=cohort_look(cohort),
-                                 highlight_subject=subject, highlight_stratum=stratum)
+            look = cohort_look(cohort)
+            frame, means, per, firsts, index = course_base(context, cohort, look, data, roles,
+                                                           settings)
+            chosen, k, n = sample_subjects(frame, per_stratum=n_draw, seed=seed, keep=subject,
+                                           firsts=firsts)
+            shown = frame.iloc[subject_rows(cohort, chosen, index)]
+            fig = courses_figure(shown, full=frame, look=look, highlight_subject=subject,
+                                 highlight_stratum=stratum, means=means, subjects_per=per)
             return fig, f"{k} of {n} subjects drawn (sample {seed}); means use every subject."
 
         return finish(make, "drawing courses over time", key, ("fig", "text"))
 
 
+def course_base(context, cohort, look: CohortLook, data, roles, settings):
+    """(every visit with text subject ids, group means, subjects per group) of the cohort,
+    computed once per cohort (a highlight or a new sample reuses them)."""
+    def compute():
+        frame = cohort.frame
+        frame["subject"] = frame["subject"].astype(str)
+        labels = list(look.strata) or _present_strata(look, frame["stratum_label"])
+        per = frame.groupby("stratum_label", sort=False)["subject"].nunique()
+        # one row per subject in first-visit order, as frame.drop_duplicates("subject") gives
+        firsts = pd.DataFrame({"subject": frame["subject"].to_numpy()[cohort.panel.starts],
+                               "stratum": np.asarray(cohort.strata.codes)})
+        index = pd.Index(np.asarray(cohort.subject_ids).astype(str))
+        index.get_indexer(index[:1])    # builds its lookup table once, here
+        return frame, group_means(frame, strata=labels), per, firsts, index
+
+    dataset, r, s = context.inputs(data, roles, settings)
+    return context.workbench.derived("cohort", "course base", dataset, r, s, compute)
+
+
+def subject_rows(cohort, chosen, index: pd.Index | None = None) -> np.ndarray:
+    """Positions, in ``cohort.frame`` (panel row order), of every visit of the ``chosen``
+    subject ids (text), ascending. ``index``: the subject ids as text, when already made."""
+    p = cohort.panel
+    index = pd.Index(np.asarray(cohort.subject_ids).astype(str)) if index is None else index
+    code = index.get_indexer(np.asarray(chosen, dtype=str))
+    code = np.sort(code[code >= 0])
+    if code.size == 0:
+        return np.zeros(0, dtype=np.int64)
+    counts = p.counts[code]
+    offsets = np.arange(counts.sum()) - np.repeat(np.cumsum(counts) - counts, counts)
+    return np.repeat(p.starts[code], counts) + offsets

@@ -1,7 +1,7 @@
 """Data & roles: the upload (or the demo), the column-role dropdowns and the first rows."""
 from __future__ import annotations
 
-from dash import Input, Output, dash_table, dcc, html
+from dash import dash_table, dcc, html
 
 from analysis.settings import Settings
 
@@ -98,13 +98,5 @@ def layout(settings: Settings | None = None,
 
 
 def register(app, context: AppContext) -> None:
-    """The roles store (the upload, the demo button and the previews are the hub's)."""
-    @app.callback(Output(ids.STORE_ROLES, "data"),
-                  *[Input(ids.ROLE_INPUT[r], "value") for r in ids.ROLE_FIELDS],
-                  *[Input(ids.ROLE_LABEL[r], "value") for r in ids.LABEL_ROLES])
-    def roles_store(*values):
-        n = len(ids.ROLE_FIELDS)
-        picked = dict(zip(ids.ROLE_FIELDS, values[:n]))
-        picked["labels"] = dict(zip(ids.LABEL_ROLES, values[n:]))
-        roles, problems = ctl.roles_from_controls(picked, known=context.default_roles)
-        return {"roles": roles.to_dict() if roles else None, "problems": problems}
+    """Nothing of its own: the upload, the demo button, the previews and the roles store are
+    the hub's (app/hub.py)."""

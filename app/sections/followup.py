@@ -2,14 +2,18 @@
 the last visit (the statistics come from :mod:`analysis.exploration.summaries`)."""
 from __future__ import annotations
 
+import json
+
 import numpy as np
 import pandas as pd
 import plotly.graph_objects as go
-from dash import Output, State, html
+from dash import Output, State, html, no_update
 from plotly.subplots import make_subplots
 
 from analysis.exploration.summaries import (ALL_LABEL, BAND_METHOD, FOLLOWED, LAST_VISIT, LEFT_EARLY,
                                 mean_interval_halfwidth, visit_counts)
+
+from analysis.exploration.digest import thin_steps
 
 from .. import ids
 from .. import palette as pal
@@ -38,15 +42,21 @@ def register(app, context: AppContext) -> None:
                   Output(ids.FOLLOW_MSG, "children"), Output(ids.VIEW_RENDERED["follow"], "data"),
                   *STORES, *HIGHLIGHT, State(ids.VIEW_RENDERED["follow"], "data"))
     def follow(data, roles, settings, subject, stratum, last):
-        key = render_key(context, "summaries", data, roles, settings, subject, stratum)
+        # the loss-to-follow-up figure does not show the highlighted subject: when only the
+        # subject changed, it is not drawn or sent again
+        unchanged = render_key(context, "summaries", data, roles, settings, stratum)
+        key = json.dumps([unchanged, subject])
         skip_if_same(key, last)
+        same_dropout = isinstance(last, str) and last.startswith(json.dumps([unchanged])[:-1])
 
         def make():
             frame, summ, cohort = summary_inputs(context, data, roles, settings)
             look = cohort_look(cohort)
-            return (visits_figure(frame, look=look, highlight_subject=subject,
-                                  highlight_stratum=stratum),
-                    dropout_figure(summ.dropout, look=look, highlight_stratum=stratum),
+            visits = visits_figure(frame, look=look, highlight_subject=subject,
+                                   highlight_stratum=stratum)
+            if same_dropout:
+                return visits, no_update, no_update
+            return (visits, dropout_figure(summ.dropout, look=look, highlight_stratum=stratum),
                     dropout_note(summ.dropout, time_unit=cohort.settings.unit))
 
         return finish(make, "summarising follow-up", key, ("fig", "fig", "list"))

@@ -8,7 +8,7 @@ from typing import Sequence
 import numpy as np
 import pandas as pd
 import plotly.graph_objects as go
-from dash import Output, State, dash_table, html
+from dash import Input, Output, State, dash_table, html
 
 from analysis.exploration.summaries import stratum_column_labels
 from analysis.numbers import fmt, interval
@@ -20,9 +20,11 @@ from ..figures import (GL_POINTS, CohortLook, _finish, _parenthesis, _plural, _p
                        _robust_range, _strength, cohort_look, colour_alpha, empty_figure)
 from ..figures import (RATE_LEFT, RATE_TOP, _log_ticks,  # noqa: F401  (Dash-free: the report
                        slope_vs_covariate_figure)        # draws it too)
-from ..session import AppContext
+from ..digest_figures import (box_figure, cell_click_members, density_figure, members_note,
+                              summarised)
+from ..session import AppContext, attempt
 from ..text import short
-from ..views import HIGHLIGHT, STORES, finish, render_key, skip_if_same, summary_inputs
+from ..views import HIGHLIGHT, STORES, finish, render_key, skip_if_same, stage_call, summary_inputs
 
 ANCHOR = "section-rate"
 NAV = "Rate of change vs covariate"
@@ -39,6 +41,7 @@ def layout(settings=None, max_upload_bytes=None):
                        graph(ids.RATE_STRATA_GRAPH, 440),
                        graph(ids.RATE_COVARIATE_GRAPH, 440),
                    ]),
+                   html.Div(id=ids.RATE_MEMBERS),
                    # the columns a clinician reads first; every column folded below
                    dash_table.DataTable(id=RATE_TABLE_MAIN, style_as_list_view=True,
                                         style_cell={"fontFamily": "inherit", "fontSize": "15px",
@@ -70,6 +73,13 @@ def register(app, context: AppContext) -> None:
             columns = rate_table_columns(table.columns, cohort)
             table = table[[c["id"] for c in columns]]
             look = cohort_look(cohort)
+            if summarised(frame):
+                return (box_figure(frame, look=look, highlight_subject=subject,
+                                   highlight_stratum=stratum),
+                        density_figure(frame, summ.slope_smooth, look=look,
+                                       highlight_subject=subject),
+                        table.astype(object).where(table.notna(), None).to_dict("records"),
+                        columns, *first_read_table(summ.stratum_table, cohort))
             return (slopes_by_stratum_figure(frame, look=look, highlight_subject=subject,
                                              highlight_stratum=stratum),
                     slope_vs_covariate_figure(frame, summ.slope_smooth, look=look,
@@ -80,6 +90,26 @@ def register(app, context: AppContext) -> None:
 
         return finish(make, "summarising rates of change", key,
                       ("fig", "fig", "list", "list", "list", "list"))
+
+    @app.callback(Output(ids.RATE_MEMBERS, "children"),
+                  Input(ids.RATE_COVARIATE_GRAPH, "clickData"),
+                  *(State(i.component_id, i.component_property) for i in STORES),
+                  prevent_initial_call=True)
+    def cell_members(click, data, roles, settings):
+        def make():
+            frame = stage_call(context, "subject_lines", data, roles, settings)
+            if not summarised(frame):
+                return ""
+            got = cell_click_members(frame, cohort_look(
+                stage_call(context, "cohort", data, roles, settings)), click)
+            if got is None:
+                return ""
+            m, subjects, (x0, x1, y0, y1) = got
+            return members_note(f"Cell {x0:.3g}–{x1:.3g} × slope {y0:.3g} to {y1:.3g}",
+                                m.total, subjects)
+
+        value, text, _ = attempt(make, what="listing the subjects of the cell")
+        return value if value is not None else text
 
 
 def first_read_table(table: pd.DataFrame, cohort) -> tuple[list[dict], list[dict]]:

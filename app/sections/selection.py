@@ -3,6 +3,8 @@
 Not a numbered section (no entry in the page's navigation)."""
 from __future__ import annotations
 
+import numpy as np
+import pandas as pd
 from dash import Input, Output, dash_table, dcc, html
 
 from analysis.numbers import fmt, signed_term
@@ -53,8 +55,12 @@ def register(app, context: AppContext) -> None:
 def _card(context, data, roles, settings, subject):
     cohort = stage_call(context, "cohort", data, roles, settings)
     lines = stage_call(context, "subject_lines", data, roles, settings)
-    frame = cohort.frame
-    mine = frame[frame["subject"].astype(str) == str(subject)]
+    # the subject's visits straight from the panel (no table of every visit is built)
+    code = np.flatnonzero(np.asarray(cohort.subject_ids).astype(str) == str(subject))
+    p = cohort.panel
+    rows = (slice(int(p.starts[code[0]]), int(p.starts[code[0]] + p.counts[code[0]]))
+            if code.size else slice(0, 0))
+    mine = pd.DataFrame({"time": p.time[rows], "response": p.y[rows]})
     row = lines[lines["subject"].astype(str) == str(subject)]
     if mine.empty or row.empty:
         return html.Span(f"Subject {subject} is not in the analysed cohort with these choices.",
