@@ -27,7 +27,7 @@ from analysis.exploration.digest import (BAND_STEP, GRID_SHAPE, MEMBERS_SHOWN, S
 
 from . import palette as pal
 from .figures import (CohortLook, _finish, _parenthesis, _plural, _present_strata, _robust_range,
-                      _rows_to_segments, _strength, colour_alpha, empty_figure)
+                      _rows_to_segments, _strength, empty_figure)
 from .text import short
 
 #: percent units between two groups' blocks in the band view

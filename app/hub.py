@@ -16,7 +16,7 @@ import math
 from dash import Input, Output, State, ctx, no_update
 
 from analysis.errors import CohortError
-from analysis.preparation.loading import describe_columns, read_table
+from analysis.preparation.loading import read_table
 from analysis.settings import DECLARED, Settings
 
 from . import controls as ctl

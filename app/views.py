@@ -101,3 +101,28 @@ def finish(make, what: str, key: str, shape: tuple[str, ...]):
 
 # earlier private names (kept for callers outside app/)
 _stage_call = stage_call
+
+
+def register_members(app, context: AppContext, *, output: str, graph: str, describe,
+                     what: str) -> None:
+    """A click on a summarised view's band or cell lists the subjects in it under the view.
+
+    ``describe(lines, look, click)`` gives ``(title, total, subject ids)`` of what was clicked,
+    or None (a click on anything else, or a view drawn subject by subject)."""
+    from .digest_figures import members_note, summarised
+    from .figures import cohort_look
+
+    @app.callback(Output(output, "children"), Input(graph, "clickData"),
+                  *(State(i.component_id, i.component_property) for i in STORES),
+                  prevent_initial_call=True)
+    def members(click, data, roles, settings):
+        def make():
+            lines = stage_call(context, "subject_lines", data, roles, settings)
+            if not summarised(lines):
+                return ""
+            got = describe(lines, cohort_look(stage_call(context, "cohort", data, roles,
+                                                         settings)), click)
+            return "" if got is None else members_note(*got)
+
+        value, text, _ = attempt(make, what=what)
+        return value if value is not None else text

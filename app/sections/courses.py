@@ -2,21 +2,15 @@
 group's binned mean (computed by :func:`analysis.exploration.summaries.group_means`)."""
 from __future__ import annotations
 
-import textwrap
-
 import numpy as np
 import pandas as pd
-import plotly.graph_objects as go
 from dash import Input, Output, State, html
-from plotly.subplots import make_subplots
 
-from analysis.exploration.summaries import MEAN_BINS, group_means
+from analysis.exploration.summaries import group_means
 
 from .. import ids
-from .. import palette as pal
 from ..components import graph, message, number, section
-from ..figures import (GL_POINTS, PANEL_TITLE_SIZE, CohortLook, _finish, _present_strata,
-                       _segments, _strength, cohort_look)
+from ..figures import CohortLook, _present_strata, cohort_look
 from ..figures import courses_figure, panel_title, sample_subjects  # noqa: F401  (Dash-free: the report draws it too)
 from ..session import AppContext
 from ..urlstate import MAX_DRAW, MAX_SEED, VIEW_DEFAULTS

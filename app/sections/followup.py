@@ -8,12 +8,8 @@ import numpy as np
 import pandas as pd
 import plotly.graph_objects as go
 from dash import Output, State, html, no_update
-from plotly.subplots import make_subplots
 
-from analysis.exploration.summaries import (ALL_LABEL, BAND_METHOD, FOLLOWED, LAST_VISIT, LEFT_EARLY,
-                                mean_interval_halfwidth, visit_counts)
-
-from analysis.exploration.digest import thin_steps
+from analysis.exploration.summaries import BAND_METHOD, visit_counts
 
 from .. import ids
 from .. import palette as pal

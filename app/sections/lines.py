@@ -1,25 +1,18 @@
 """Subject lines: each subject's least-squares slope with its 95% interval, grouped by group."""
 from __future__ import annotations
 
-from typing import Sequence
-
-import numpy as np
-import pandas as pd
-import plotly.graph_objects as go
 from dash import Input, Output, State, dcc, html
 
 from .. import ids
-from .. import palette as pal
 from ..components import graph, message, section
-from ..figures import CohortLook, _finish, _plural, _robust_range, _rows_to_segments, _strength, \
-    cohort_look
-from ..figures import (MAX_SUBJECT_TICKS, ORDER_COLUMNS, interval_layout,  # noqa: F401  (Dash-free:
-                       intervals_figure)                                    # the report draws it too)
-from ..digest_figures import band_click_members, bands_figure, members_note, summarised
-from ..session import AppContext, attempt
+from ..figures import cohort_look
+from ..figures import intervals_figure  # noqa: F401  (Dash-free: the report draws it too)
+from ..digest_figures import band_click_members, bands_figure, summarised
+from ..session import AppContext
 from ..text import short
 from ..urlstate import LINE_ORDERS, VIEW_DEFAULTS
-from ..views import HIGHLIGHT, STORES, finish, render_key, skip_if_same, stage_call
+from ..views import (HIGHLIGHT, STORES, finish, register_members, render_key, skip_if_same,
+                     stage_call)
 
 ANCHOR = "section-lines"
 NAV = "Subject lines"
@@ -61,23 +54,14 @@ def register(app, context: AppContext) -> None:
 
         return finish(make, "drawing subject lines", key, ("fig",))
 
-    @app.callback(Output(ids.LINES_MEMBERS, "children"), Input(ids.LINES_GRAPH, "clickData"),
-                  *(State(i.component_id, i.component_property) for i in STORES),
-                  prevent_initial_call=True)
-    def band_members(click, data, roles, settings):
-        def make():
-            frame = stage_call(context, "subject_lines", data, roles, settings)
-            if not summarised(frame):
-                return ""
-            got = band_click_members(frame, cohort_look(
-                stage_call(context, "cohort", data, roles, settings)), click)
-            if got is None:
-                return ""
-            lab, (lo, hi), m, subjects = got
-            return members_note(f"Group {short(lab)}, {lo:g}th–{hi:g}th percentile of slope",
-                                m.total, subjects)
+    def band(lines, look, click):
+        got = band_click_members(lines, look, click)
+        if got is None:
+            return None
+        lab, (lo, hi), m, subjects = got
+        return (f"Group {short(lab)}, {lo:g}th–{hi:g}th percentile of slope", m.total, subjects)
 
-        value, text, _ = attempt(make, what="listing the subjects of the band")
-        return value if value is not None else text
+    register_members(app, context, output=ids.LINES_MEMBERS, graph=ids.LINES_GRAPH,
+                     describe=band, what="listing the subjects of the band")
 
 

@@ -8,7 +8,7 @@ from typing import Sequence
 import numpy as np
 import pandas as pd
 import plotly.graph_objects as go
-from dash import Input, Output, State, dash_table, html
+from dash import Output, State, dash_table, html
 
 from analysis.exploration.summaries import stratum_column_labels
 from analysis.numbers import fmt, interval
@@ -16,15 +16,15 @@ from analysis.numbers import fmt, interval
 from .. import ids
 from .. import palette as pal
 from ..components import graph, message, section
-from ..figures import (GL_POINTS, CohortLook, _finish, _parenthesis, _plural, _present_strata,
-                       _robust_range, _strength, cohort_look, colour_alpha, empty_figure)
-from ..figures import (RATE_LEFT, RATE_TOP, _log_ticks,  # noqa: F401  (Dash-free: the report
-                       slope_vs_covariate_figure)        # draws it too)
-from ..digest_figures import (box_figure, cell_click_members, density_figure, members_note,
-                              summarised)
-from ..session import AppContext, attempt
+from ..figures import (CohortLook, _finish, _parenthesis, _present_strata, _robust_range,
+                       _strength, cohort_look)
+from ..figures import (RATE_LEFT, RATE_TOP,  # noqa: F401  (Dash-free: the report draws it too)
+                       slope_vs_covariate_figure)
+from ..digest_figures import box_figure, cell_click_members, density_figure, summarised
+from ..session import AppContext
 from ..text import short
-from ..views import HIGHLIGHT, STORES, finish, render_key, skip_if_same, stage_call, summary_inputs
+from ..views import (HIGHLIGHT, STORES, finish, register_members, render_key, skip_if_same,
+                     summary_inputs)
 
 ANCHOR = "section-rate"
 NAV = "Rate of change vs covariate"
@@ -91,25 +91,15 @@ def register(app, context: AppContext) -> None:
         return finish(make, "summarising rates of change", key,
                       ("fig", "fig", "list", "list", "list", "list"))
 
-    @app.callback(Output(ids.RATE_MEMBERS, "children"),
-                  Input(ids.RATE_COVARIATE_GRAPH, "clickData"),
-                  *(State(i.component_id, i.component_property) for i in STORES),
-                  prevent_initial_call=True)
-    def cell_members(click, data, roles, settings):
-        def make():
-            frame = stage_call(context, "subject_lines", data, roles, settings)
-            if not summarised(frame):
-                return ""
-            got = cell_click_members(frame, cohort_look(
-                stage_call(context, "cohort", data, roles, settings)), click)
-            if got is None:
-                return ""
-            m, subjects, (x0, x1, y0, y1) = got
-            return members_note(f"Cell {x0:.3g}–{x1:.3g} × slope {y0:.3g} to {y1:.3g}",
-                                m.total, subjects)
+    def cell(lines, look, click):
+        got = cell_click_members(lines, look, click)
+        if got is None:
+            return None
+        m, subjects, (x0, x1, y0, y1) = got
+        return f"Cell {x0:.3g}–{x1:.3g} × slope {y0:.3g} to {y1:.3g}", m.total, subjects
 
-        value, text, _ = attempt(make, what="listing the subjects of the cell")
-        return value if value is not None else text
+    register_members(app, context, output=ids.RATE_MEMBERS, graph=ids.RATE_COVARIATE_GRAPH,
+                     describe=cell, what="listing the subjects of the cell")
 
 
 def first_read_table(table: pd.DataFrame, cohort) -> tuple[list[dict], list[dict]]:
