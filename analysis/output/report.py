@@ -564,7 +564,7 @@ def _exploration_html(ex, unit: str, placed=None) -> str:
     strata = stratum_frame(ex.summaries.stratum_table, covariate=ex.cohort.covariate, unit=unit)
     shown = strata.copy()
     for c in shown.columns[1:]:
-        shown[c] = [v if isinstance(v, str) else format_number(v, 4) for v in shown[c]]
+        shown[c] = [v if isinstance(v, str) else fmt(v, 4) for v in shown[c]]
     out.append(table_html(shown, numeric=tuple(shown.columns[1:])))
     if placed.get("courses"):
         out.append("<h2>Courses over time, by group</h2>")
