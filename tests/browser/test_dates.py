@@ -4,12 +4,9 @@ from __future__ import annotations
 
 import pandas as pd
 
-from analysis.preparation.demo import demo_settings
-from analysis.preparation.loading import Dataset
-from analysis.pipeline import Workbench
 from app import ids
-from test_dashboard import (TIMEOUT, UPLOAD_ROLES, choose, map_roles, no_traceback, open_demo,
-                            shot, upload, upload_frame, wait_drawn)
+from test_dashboard import (TIMEOUT, choose, map_roles, no_traceback, open_demo, shot, upload,
+                            upload_frame, upload_reference, wait_drawn, wait_for_counts)
 
 
 def test_unclear_date_order_is_asked_for_beside_the_time_role(server_url, page, artifacts,
@@ -35,12 +32,8 @@ def test_unclear_date_order_is_asked_for_beside_the_time_role(server_url, page, 
 
     choose(page, ids.SETTING_INPUT["date_order"], "day first")
     # reference: the same visits with ISO dates, analysed by a fresh Workbench
-    settings = demo_settings().replace(covariate=None, stratify_by=None)
-    ref = Workbench().explore(Dataset.from_frame(frame), UPLOAD_ROLES, settings)
-    status = page.locator(f"#{ids.ROLES_STATUS}")
-    status.get_by_text(f"{ref.cohort.panel.n_subjects:,} subjects", exact=False).wait_for(
-        timeout=TIMEOUT)
-    assert f"{ref.cohort.panel.n_obs:,} visits" in status.inner_text()
+    ref = upload_reference(frame)
+    wait_for_counts(page, ref)
     assert time_msg.inner_text().strip() == ""
     wait_drawn(page, ids.COURSE_GRAPH)
     no_traceback(page)

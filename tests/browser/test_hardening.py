@@ -116,6 +116,8 @@ def test_columns_with_names_thousands_of_characters_long(server_url, page, tmp_p
                       ("event_date", "tx_date"), ("response", "egfr"),
                       ("covariates", "urine_protein_ratio")):
         choose(page, ids.ROLE_INPUT[role], short(new[long[col]]))
+    # a new table starts from the neutral time origin ('as given'), which dates cannot use
+    choose(page, ids.SETTING_INPUT["origin"], "Since each subject's event date")
     for gid in (ids.COURSE_GRAPH, ids.SPREAD_GRAPH):
         layout = json.dumps(wait_drawn(page, gid)["layout"])
         assert gid != ids.COURSE_GRAPH or "egfr_xx" in layout   # the response named, cut short
