@@ -175,6 +175,17 @@ def test_semicolon_decimal_commas_read_as_numbers_like_pandas_decimal_option():
     assert got["note"].dtype != float
 
 
+def test_decimal_commas_with_nan_written_out_read_like_the_point_decimal_file():
+    # reference: the same table written with decimal points, read by the same reader (a cell
+    # written 'nan' must not turn a decimal-comma column into text: it was a covariate read
+    # as categories, e.g. a group called "10,10")
+    comma = read_table(b"id;x;y\na;8,1;1\nb;nan;2,5\nc;10,3;inf\n", name="c.csv")
+    point = read_table(b"id,x,y\na,8.1,1\nb,nan,2.5\nc,10.3,inf\n", name="p.csv")
+    for c in ("x", "y"):
+        assert comma[c].tolist() == point[c].tolist()
+        assert column_kind(comma[c]) == column_kind(point[c]) == "number"
+
+
 def test_quoted_comma_numbers_in_a_comma_file_are_not_rescaled():
     # in a comma-separated file "1,234" is ambiguous (thousands?): left as text
     got = read_table(b'id,y\na,"1,234"\nb,"2,5"\n', name="v.csv")

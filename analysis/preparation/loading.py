@@ -243,7 +243,9 @@ def _lost_digits(s: pd.Series) -> bool:
 def decimal_comma_numbers(s: pd.Series) -> pd.Series | None:
     """The column as floats if every non-missing cell is a number written with a decimal
     comma (``64,8``, ``-0,5``, ``1,2e3``) or a whole number, and at least one has a comma;
-    otherwise None."""
+    otherwise None. Cells written 'nan' or 'inf' (:data:`NON_FINITE_TEXT`) do not stop it:
+    the column then comes back as text with decimal points, exactly as a point-decimal file
+    reads, so that the analysis names those cells the same way."""
     if not (pd.api.types.is_object_dtype(s) or pd.api.types.is_string_dtype(s)):
         return None
     values = s.dropna()
@@ -251,11 +253,18 @@ def decimal_comma_numbers(s: pd.Series) -> pd.Series | None:
         return None
     values = values.astype("string").str.strip()
     values = values[values != ""]
+
+    def readable(v: pd.Series) -> pd.Series:
+        return v.str.fullmatch(_DECIMAL_COMMA) | v.str.lower().isin(NON_FINITE_TEXT)
+
     sample = values.iloc[:: max(1, len(values) // 500)]
-    if not (sample.str.fullmatch(_DECIMAL_COMMA).all()
-            and values.str.fullmatch(_DECIMAL_COMMA).all()
+    if not (readable(sample).all() and readable(values).all()
             and values.str.contains(",", regex=False).any()):
         return None
+    if values.str.lower().str.lstrip("+-").eq("nan").any():
+        # pandas keeps a point-decimal column with a written 'nan' as text (and reads 'inf'
+        # as a number): the same here, in the column's own text type
+        return s.str.strip().str.replace(",", ".", regex=False)
     text = s.astype("string").str.strip().str.replace(",", ".", regex=False)
     return pd.to_numeric(text.mask(text == ""), errors="coerce").astype(float)
 
