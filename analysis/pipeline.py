@@ -396,7 +396,7 @@ class Workbench:
         def compute():
             cohort = self.cohort(dataset, roles, settings)
             fits = self.subject_fits(dataset, roles, settings)
-            slopes = np.asarray(fits.to_frame()["slope"], dtype=float)
+            slopes = np.asarray(fits.slope, dtype=float)
             return build_summaries(cohort, slopes,
                                    lambda: cohort_dropout(cohort, data_cut=settings.data_cut))
 

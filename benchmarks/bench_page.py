@@ -275,25 +275,19 @@ class PageRun:
         return self.page.evaluate("() => Date.now()")
 
 
-def set_number(page, control_id: str, value) -> None:
-    box = page.locator(f"#{control_id}")
-    box.fill(str(value))
-    box.press("Enter")
+def _page_helpers():
+    """The browser tests' ways of typing a number and choosing from a dropdown (one copy)."""
+    sys.path.insert(0, str(ROOT / "tests" / "browser"))
+    from test_dashboard import choose, set_number
 
-
-def choose(page, dropdown_id: str, text: str) -> None:
-    import re
-
-    page.locator(f"#{dropdown_id}").click()
-    page.locator(".dash-dropdown-option",
-                 has_text=re.compile("^" + re.escape(text) + r"(\s|$)")).first.click()
-    page.keyboard.press("Escape")
+    return choose, set_number
 
 
 def drive(url: str, timeout_ms: int) -> dict:
     from playwright.sync_api import sync_playwright
 
     base = _analysis()[0].demo_settings()
+    choose, set_number = _page_helpers()
     out = {"actions": {}}
     with sync_playwright() as pw:
         browser = pw.chromium.launch(executable_path=CHROMIUM, headless=True,

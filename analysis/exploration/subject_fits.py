@@ -6,7 +6,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from ..confidence import t_quantile
+from ..confidence import CONFIDENCE_LEVEL, t_quantile
 from ..errors import SettingsError
 from ..preparation.panel import Panel
 
@@ -102,7 +102,7 @@ class SubjectLines:
         return frame
 
 
-def fit_subject_lines(panel: Panel, *, level: float = 0.95) -> SubjectLines:
+def fit_subject_lines(panel: Panel, *, level: float = CONFIDENCE_LEVEL) -> SubjectLines:
     """Fit ``y = a + b * time`` by OLS separately for every subject.
 
     Parameters
