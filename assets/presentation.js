@@ -66,22 +66,31 @@
      remembers the base font size it was scaled from, and a figure the page redraws (new
      layout from the server) is scaled again on the next check. */
   var SCALE = 1.35;
+  /* a size set in the figure's layout, else in its template (the figures' shared look) */
+  function get(obj, path) {
+    return path.split(".").reduce(function (o, k) { return o && o[k]; }, obj);
+  }
+  function sizeAt(layout, path, templatePath) {
+    var v = get(layout, path);
+    return typeof v === "number" ? v : get(layout.template && layout.template.layout,
+                                           templatePath || path);
+  }
   function fontPaths(layout) {
-    var out = [["font.size", layout.font && layout.font.size],
-               ["title.font.size", layout.title && layout.title.font && layout.title.font.size],
-               ["title.subtitle.font.size", layout.title && layout.title.subtitle &&
-                 layout.title.subtitle.font && layout.title.subtitle.font.size],
-               ["legend.font.size", layout.legend && layout.legend.font && layout.legend.font.size],
-               ["hoverlabel.font.size", layout.hoverlabel && layout.hoverlabel.font &&
-                 layout.hoverlabel.font.size]];
+    var out = [["font.size", sizeAt(layout, "font.size")],
+               ["title.font.size", sizeAt(layout, "title.font.size")],
+               ["title.subtitle.font.size", sizeAt(layout, "title.subtitle.font.size")],
+               ["legend.font.size", sizeAt(layout, "legend.font.size")],
+               ["hoverlabel.font.size", sizeAt(layout, "hoverlabel.font.size")]];
     ["t", "b", "l"].forEach(function (side) {      /* room for the larger titles and legend */
       out.push(["margin." + side, layout.margin && layout.margin[side]]);
     });
     Object.keys(layout).forEach(function (key) {
       if (/^[xy]axis\d*$/.test(key) && layout[key]) {
-        var ax = layout[key];
-        out.push([key + ".title.font.size", ax.title && ax.title.font && ax.title.font.size]);
-        out.push([key + ".tickfont.size", ax.tickfont && ax.tickfont.size]);
+        var base = key.charAt(0) + "axis";         /* the template styles every x (y) axis */
+        out.push([key + ".title.font.size", sizeAt(layout, key + ".title.font.size",
+                                                   base + ".title.font.size")]);
+        out.push([key + ".tickfont.size", sizeAt(layout, key + ".tickfont.size",
+                                                 base + ".tickfont.size")]);
       }
     });
     (layout.annotations || []).forEach(function (a, i) {
@@ -92,7 +101,7 @@
   function scaleFigure(gd, on) {
     var layout = gd.layout;
     if (!window.Plotly || !layout || !gd.data || !gd.data.length) { return; }
-    var size = layout.font && layout.font.size;
+    var size = sizeAt(layout, "font.size");
     var scaled = gd._clScaledSize !== undefined && size === gd._clScaledSize;
     if (on === scaled) { return; }
     var f = on ? SCALE : 1 / SCALE, update = {};

@@ -99,7 +99,8 @@ def test_every_figure_has_title_axis_titles_legend_and_units(res):
         xt = [t for t in _axis_titles(fig, "x") if t]
         yt = [t for t in _axis_titles(fig, "y") if t]
         assert xt and yt, name
-        assert fig.layout.font.size >= 14, name
+        # the fonts come from the figures' shared template unless a figure sets its own
+        assert (fig.layout.font.size or fig.layout.template.layout.font.size) >= 14, name
         has_legend = fig.layout.showlegend is not False and any(
             t.showlegend is not False and t.name for t in fig.data)
         has_colorbar = any(getattr(t, "colorbar", None) is not None and t.type == "heatmap"

@@ -80,8 +80,8 @@ def test_presentation_mode_round_trips_through_the_url_and_steps_by_keyboard(ser
     page.screenshot(path=str(artifacts / "review-present-1280.png"))
     # figures' fonts grow with the page's (the figure style's base size, app/figures.py FONT)
     from app.figures import FONT
-    font_js = ("(((document.querySelector('#course-graph .js-plotly-plot') || {}).layout || {})"
-               ".font || {}).size")
+    font_js = ("(((document.querySelector('#course-graph .js-plotly-plot') || {})._fullLayout"
+               " || {}).font || {}).size")                   # as drawn: layout over template
     page.wait_for_function(f"{font_js} > {FONT['size']}", timeout=TIMEOUT)
 
     # the keyboard steps through the page: each press moves down, and the sections come to
