@@ -22,6 +22,7 @@ from analysis.settings import DECLARED, Settings
 from . import controls as ctl
 from . import ids, urlstate
 from .session import AppContext, attempt
+from .views import render_key
 from .text import clip_message, echo, option, renamed_note, short, shorten_columns
 
 PREVIEW_ROWS = 6
@@ -58,6 +59,7 @@ def register(app, context: AppContext) -> None:
         settings_store=Output(ids.STORE_SETTINGS, "data"),
         settings_msgs={f: Output(ids.SETTING_MSG[f], "children") for f in ids.SETTING_FIELDS},
         settings_status=Output(ids.SETTINGS_STATUS, "children"),
+        stage_keys={s: Output(k, "data") for s, k in ids.STAGE_KEY.items()},
     )
     inputs = dict(
         search=Input(ids.PAGE_URL, "search"),
@@ -78,16 +80,20 @@ def register(app, context: AppContext) -> None:
         data=State(ids.STORE_DATA, "data"),
         subject=State(ids.STORE_SUBJECT, "data"),
         good=State(ids.STORE_SETTINGS, "data"),
+        roles_now=State(ids.STORE_ROLES, "data"),
+        stage_keys={s: State(k, "data") for s, k in ids.STAGE_KEY.items()},
     )
 
     @app.callback(output=outputs, inputs=inputs, state=state)
     def hub(search, upload, demo, reset, roles, labels, settings, view, stratum, clicks,
-            stratum_click, clear, filename, data, subject, good):
+            stratum_click, clear, filename, data, subject, good, roles_now, stage_keys):
         out = route(search, upload, demo, reset, roles, labels, settings, view, stratum, clicks,
                     stratum_click, clear, filename, data, subject, good)
         if out is None:      # the address echoed back: nothing changed
             return _unchanged(outputs)
         write_stores(context, ctx.triggered_id, roles, labels, settings, out)
+        write_stage_keys(context, out, data=data, roles=roles_now, settings=good,
+                         current=stage_keys)
         return out
 
     def route(search, upload, demo, reset, roles, labels, settings, view, stratum, clicks,
@@ -169,6 +175,23 @@ def write_stores(context: AppContext, trig, roles: dict, labels: dict, settings:
         else:
             out["settings_store"] = s.to_dict()
             out["settings_status"] = ""
+
+
+def write_stage_keys(context: AppContext, out: dict, *, data, roles, settings,
+                     current: dict) -> None:
+    """Set each stage's key store in ``out`` when what the stage's views draw from changes
+    with this response (data, roles or that stage's settings); others stay, so their views
+    are not called at all."""
+    def now(name, before):
+        value = out.get(name, no_update)
+        return before if value is no_update else value
+
+    data, roles = now("data", data), now("roles_store", roles)
+    settings = now("settings_store", settings)
+    out["stage_keys"] = {}
+    for stage, before in current.items():
+        key = render_key(context, stage, data, roles, settings)
+        out["stage_keys"][stage] = no_update if key == before else key
 
 
 def _unchanged(spec):

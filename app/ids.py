@@ -14,6 +14,9 @@ PAGE_ALERT = "page-alert"
 STORE_DATA = "store-data"            # {"key": str, "name": str}
 STORE_ROLES = "store-roles"          # Roles.to_dict() or None
 STORE_SETTINGS = "store-settings"    # Settings.to_dict() (valid) 
+#: per analysis stage, the key of what its views draw from (data, roles, the stage's settings);
+#: rewritten only when it changes, so a setting redraws only the views that depend on it
+STAGE_KEY = {s: f"store-stage-{s}" for s in ("cohort", "summaries", "variogram", "lagcorr")}
 STORE_SUBJECT = "store-subject"      # selected subject id (str) or None
 
 # -- data section ------------------------------------------------------------

@@ -31,6 +31,7 @@ def build_layout(settings: Settings, *, max_upload_bytes: int | None = None) -> 
         dcc.Store(id=ids.STORE_DATA),
         dcc.Store(id=ids.STORE_ROLES),
         dcc.Store(id=ids.STORE_SETTINGS),
+        *[dcc.Store(id=k) for k in ids.STAGE_KEY.values()],
         dcc.Store(id=ids.STORE_SUBJECT),
         *[dcc.Store(id=v) for v in ids.VIEW_RENDERED.values()],
         header(),

@@ -25,6 +25,14 @@ STORES = (Input(ids.STORE_DATA, "data"), Input(ids.STORE_ROLES, "data"),
 HIGHLIGHT = (Input(ids.STORE_SUBJECT, "data"), Input(ids.LINK_STRATA, "value"))
 
 
+def stage_stores(stage: str) -> tuple:
+    """A view's dependencies on the stores: data, roles and settings read as they are, and the
+    call made only when ``stage``'s key changes (:data:`app.ids.STAGE_KEY`, written by the
+    hub). The callback takes one more argument after ``settings``: that key."""
+    return (*(State(i.component_id, i.component_property) for i in STORES),
+            Input(ids.STAGE_KEY[stage], "data"))
+
+
 def render_key(context: AppContext, stage: str, data, roles, settings, *extra) -> str:
     """What a view's picture depends on: data key, roles, its stage's settings and extras."""
     try:
@@ -76,8 +84,8 @@ def figure_and_note_view(app, context: AppContext, *, view: str, stage: str, gra
     """
     @app.callback(Output(graph, "figure"), Output(note, "children"), Output(msg, "children"),
                   Output(rendered_id(view), "data"),
-                  *STORES, State(rendered_id(view), "data"))
-    def _view(data, roles, settings, last):
+                  *stage_stores(stage), State(rendered_id(view), "data"))
+    def _view(data, roles, settings, _stage_key, last):
         key = render_key(context, stage, data, roles, settings)
         skip_if_same(key, last)
         return finish(lambda: build(data, roles, settings), what, key, ("fig", "text"))

@@ -14,7 +14,7 @@ from ..figures import CohortLook, _present_strata, cohort_look
 from ..figures import courses_figure, panel_title, sample_subjects  # noqa: F401  (Dash-free: the report draws it too)
 from ..session import AppContext
 from ..urlstate import MAX_DRAW, MAX_SEED, VIEW_DEFAULTS
-from ..views import HIGHLIGHT, STORES, finish, render_key, skip_if_same, stage_call
+from ..views import HIGHLIGHT, stage_stores, finish, render_key, skip_if_same, stage_call
 
 ANCHOR = "section-course"
 NAV = "Courses over time"
@@ -41,9 +41,9 @@ def layout(settings=None, max_upload_bytes=None):
 def register(app, context: AppContext) -> None:
     @app.callback(Output(ids.COURSE_GRAPH, "figure"), Output(ids.COURSE_NOTE, "children"),
                   Output(ids.COURSE_MSG, "children"), Output(ids.VIEW_RENDERED["course"], "data"),
-                  *STORES, *HIGHLIGHT, Input(ids.COURSE_DRAW, "value"),
+                  *stage_stores("cohort"), *HIGHLIGHT, Input(ids.COURSE_DRAW, "value"),
                   Input(ids.COURSE_SEED, "value"), State(ids.VIEW_RENDERED["course"], "data"))
-    def courses(data, roles, settings, subject, stratum, n_draw, seed, last):
+    def courses(data, roles, settings, _stage_key, subject, stratum, n_draw, seed, last):
         n_draw, seed = int(n_draw or 40), int(seed or 1)
         key = render_key(context, "cohort", data, roles, settings, subject, stratum, n_draw, seed)
         skip_if_same(key, last)

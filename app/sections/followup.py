@@ -17,7 +17,7 @@ from ..components import graph, message, section
 from ..figures import CohortLook, _finish, _plural, _strength, cohort_look, colour_alpha
 from ..figures import dropout_figure  # noqa: F401  (Dash-free: the report draws it too)
 from ..session import AppContext
-from ..views import HIGHLIGHT, STORES, finish, render_key, skip_if_same, summary_inputs
+from ..views import HIGHLIGHT, stage_stores, finish, render_key, skip_if_same, summary_inputs
 
 ANCHOR = "section-follow"
 NAV = "Follow-up & loss"
@@ -36,8 +36,9 @@ def register(app, context: AppContext) -> None:
     @app.callback(Output(ids.FOLLOW_VISITS_GRAPH, "figure"),
                   Output(ids.FOLLOW_DROPOUT_GRAPH, "figure"), Output(ids.FOLLOW_NOTE, "children"),
                   Output(ids.FOLLOW_MSG, "children"), Output(ids.VIEW_RENDERED["follow"], "data"),
-                  *STORES, *HIGHLIGHT, State(ids.VIEW_RENDERED["follow"], "data"))
-    def follow(data, roles, settings, subject, stratum, last):
+                  *stage_stores("summaries"), *HIGHLIGHT,
+                  State(ids.VIEW_RENDERED["follow"], "data"))
+    def follow(data, roles, settings, _stage_key, subject, stratum, last):
         # the loss-to-follow-up figure does not show the highlighted subject: when only the
         # subject changed, it is not drawn or sent again
         unchanged = render_key(context, "summaries", data, roles, settings, stratum)

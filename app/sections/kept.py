@@ -2,7 +2,7 @@
 from __future__ import annotations
 
 import numpy as np
-from dash import Input, Output, dash_table, html
+from dash import Input, Output, State, dash_table, html
 from dash.dash_table.Format import Format
 
 from analysis.errors import SettingsError
@@ -41,9 +41,11 @@ def register(app, context: AppContext) -> None:
                     status=Output(ids.ROLES_STATUS, "children"),
                     chips=Output(ids.LINK_STRATA, "options"),
                     size_note=Output(ids.STRATA_SIZE_NOTE, "children")),
-        inputs=dict(data=Input(ids.STORE_DATA, "data"), roles=Input(ids.STORE_ROLES, "data"),
-                    settings=Input(ids.STORE_SETTINGS, "data")))
-    def cohort_panel(data, roles, settings):
+        # called when the cohort stage's key changes (app/views.py stage_stores)
+        inputs=dict(data=State(ids.STORE_DATA, "data"), roles=State(ids.STORE_ROLES, "data"),
+                    settings=State(ids.STORE_SETTINGS, "data"),
+                    stage_key=Input(ids.STAGE_KEY["cohort"], "data")))
+    def cohort_panel(data, roles, settings, stage_key):
         out = dict(table=[], cols=[], notes=[], settings_msg="", status="", chips=[],
                    size_note="", role_msgs={r: "" for r in ids.ROLE_FIELDS})
         problems = (roles or {}).get("problems") or {}

@@ -11,7 +11,7 @@ from ..digest_figures import band_click_members, bands_figure, summarised
 from ..session import AppContext
 from ..text import short
 from ..urlstate import LINE_ORDERS, VIEW_DEFAULTS
-from ..views import (HIGHLIGHT, STORES, finish, register_members, render_key, skip_if_same,
+from ..views import (HIGHLIGHT, stage_stores, finish, register_members, render_key, skip_if_same,
                      stage_call)
 
 ANCHOR = "section-lines"
@@ -36,9 +36,9 @@ def layout(settings=None, max_upload_bytes=None):
 def register(app, context: AppContext) -> None:
     @app.callback(Output(ids.LINES_GRAPH, "figure"), Output(ids.LINES_MSG, "children"),
                   Output(ids.VIEW_RENDERED["lines"], "data"),
-                  *STORES, *HIGHLIGHT, Input(ids.LINES_ORDER, "value"),
+                  *stage_stores("cohort"), *HIGHLIGHT, Input(ids.LINES_ORDER, "value"),
                   State(ids.VIEW_RENDERED["lines"], "data"))
-    def lines(data, roles, settings, subject, stratum, order, last):
+    def lines(data, roles, settings, _stage_key, subject, stratum, order, last):
         order = order or "slope"
         key = render_key(context, "cohort", data, roles, settings, subject, stratum, order)
         skip_if_same(key, last)

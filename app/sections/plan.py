@@ -269,8 +269,11 @@ def simulation_text(check) -> str:
 
 # ------------------------------------------------------------------ callbacks
 def register(app, context: AppContext) -> None:
+    # not at the page's opening: no models are fitted then, and the layout starts with the
+    # hint shown and the body hidden (saves the opening round trips of this and its followers)
     @app.callback(Output(HINT, "style"), Output(BODY, "style"), Output(MODEL, "options"),
-                  Output(MODEL, "value"), Input(ids.MODELS_SNAPSHOT, "data"))
+                  Output(MODEL, "value"), Input(ids.MODELS_SNAPSHOT, "data"),
+                  prevent_initial_call=True)
     def models_ready(snapshot):
         hide, show = {"display": "none"}, {}
         if not snapshot:

@@ -23,7 +23,7 @@ from ..figures import (RATE_LEFT, RATE_TOP,  # noqa: F401  (Dash-free: the repor
 from ..digest_figures import box_figure, cell_click_members, density_figure, summarised
 from ..session import AppContext
 from ..text import short
-from ..views import (HIGHLIGHT, STORES, finish, register_members, render_key, skip_if_same,
+from ..views import (HIGHLIGHT, stage_stores, finish, register_members, render_key, skip_if_same,
                      summary_inputs)
 
 ANCHOR = "section-rate"
@@ -62,8 +62,8 @@ def register(app, context: AppContext) -> None:
                   Output(ids.RATE_TABLE, "data"), Output(ids.RATE_TABLE, "columns"),
                   Output(RATE_TABLE_MAIN, "data"), Output(RATE_TABLE_MAIN, "columns"),
                   Output(ids.RATE_MSG, "children"), Output(ids.VIEW_RENDERED["rate"], "data"),
-                  *STORES, *HIGHLIGHT, State(ids.VIEW_RENDERED["rate"], "data"))
-    def rate(data, roles, settings, subject, stratum, last):
+                  *stage_stores("summaries"), *HIGHLIGHT, State(ids.VIEW_RENDERED["rate"], "data"))
+    def rate(data, roles, settings, _stage_key, subject, stratum, last):
         key = render_key(context, "summaries", data, roles, settings, subject, stratum)
         skip_if_same(key, last)
 

@@ -14,7 +14,7 @@ from ..components import busy
 from ..figures import cohort_look
 from ..session import AppContext, attempt
 from ..text import short
-from ..views import stage_call
+from ..views import stage_call, stage_stores
 
 ANCHOR = None
 NAV = None
@@ -40,10 +40,9 @@ def layout(settings=None, max_upload_bytes=None):
 
 
 def register(app, context: AppContext) -> None:
-    @app.callback(Output(ids.LINK_CARD, "children"),
-                  Input(ids.STORE_DATA, "data"), Input(ids.STORE_ROLES, "data"),
-                  Input(ids.STORE_SETTINGS, "data"), Input(ids.STORE_SUBJECT, "data"))
-    def subject_card(data, roles, settings, subject):
+    @app.callback(Output(ids.LINK_CARD, "children"), *stage_stores("cohort"),
+                  Input(ids.STORE_SUBJECT, "data"))
+    def subject_card(data, roles, settings, _stage_key, subject):
         if not subject:
             return html.Span("Click a subject in any view to follow it everywhere.",
                              className="cl-hint")
