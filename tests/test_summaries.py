@@ -211,6 +211,40 @@ def test_group_means_match_pandas_cut_and_groupby():
         np.testing.assert_array_equal(g["visits"].to_numpy(), r["n"].to_numpy())
 
 
+def test_group_means_read_a_categorical_label_as_its_text():
+    """The categorical fast path (codes, one text comparison per category) gives the same
+    table as the same labels given as text, including a label outside ``strata`` and a
+    missing one (reference: the text path, pandas Categorical built from the strings)."""
+    from analysis.exploration.summaries import group_means
+
+    frame, _ = _long_frame()
+    text = frame.assign(stratum_label=frame["stratum_label"].astype(object))
+    text.loc[text.index[:7], "stratum_label"] = "other"
+    text.loc[text.index[7:11], "stratum_label"] = np.nan
+    cat = text.assign(stratum_label=pd.Categorical(text["stratum_label"],
+                                                   categories=["high", "other", "low", "mid"]))
+    strata = ["low", "mid", "high"]
+    pd.testing.assert_frame_equal(group_means(cat, strata=strata),
+                                  group_means(text, strata=strata))
+
+
+def test_page_visit_frame_equals_the_cohort_table():
+    """The courses view's fast visit table holds the cohort's own table's values
+    (reference: PreparedCohort.frame, built independently from the same panel)."""
+    from analysis.pipeline import Workbench
+    from analysis.preparation.demo import demo_roles, demo_settings, load_demo
+    from analysis.preparation.loading import Dataset
+    from app.sections.courses import visit_frame
+
+    cohort = Workbench().cohort(Dataset.from_frame(load_demo()), demo_roles(), demo_settings())
+    ref, got = cohort.frame, visit_frame(cohort)
+    for col in ("subject", "stratum_label"):
+        np.testing.assert_array_equal(got[col].astype(str).to_numpy(),
+                                      ref[col].astype(str).to_numpy())
+    for col in ("time", "response", "stratum"):
+        np.testing.assert_array_equal(got[col].to_numpy(), ref[col].to_numpy())
+
+
 def test_visit_counts_match_a_brute_force_count():
     from analysis.exploration.summaries import visit_counts
 

@@ -610,6 +610,21 @@ MEAN_BINS = 12
 MEAN_MIN_VISITS = 5
 
 
+def label_positions(frame: pd.DataFrame, strata) -> np.ndarray:
+    """Position of each row's ``stratum_label`` in ``strata`` (-1 where it is not there).
+
+    A categorical label column is read through its codes: one text comparison per category,
+    not per row (text work on a million visit rows is otherwise the slow part).
+    """
+    lab = frame["stratum_label"]
+    if isinstance(lab.dtype, pd.CategoricalDtype):
+        pos = {str(v): i for i, v in enumerate(strata)}
+        lut = np.array([pos.get(str(c), -1) for c in lab.cat.categories] + [-1], dtype=np.int64)
+        return lut[lab.cat.codes.to_numpy()]          # code -1 (no label) -> the last entry
+    return pd.Categorical(lab.astype(str).to_numpy(),
+                          categories=list(strata)).codes.astype(np.int64)
+
+
 def group_means(full: pd.DataFrame, *, strata, n_bins: int = MEAN_BINS,
                 min_visits: int = MEAN_MIN_VISITS) -> pd.DataFrame:
     """Binned mean response over time per group, from every subject of the group.
@@ -625,15 +640,14 @@ def group_means(full: pd.DataFrame, *, strata, n_bins: int = MEAN_BINS,
     """
     t = full["time"].to_numpy(float)
     y = full["response"].to_numpy(float)
-    lab = full["stratum_label"].astype(str).to_numpy()
     cols = ["stratum_label", "bin", "time", "response", "visits"]
     ok = np.isfinite(t) & np.isfinite(y)
     if not ok.any():
         return pd.DataFrame(columns=cols)
-    t, y, lab = t[ok], y[ok], lab[ok]
+    codes = label_positions(full, strata)[ok]
+    t, y = t[ok], y[ok]
     edges, b = equal_width_bins(t, n_bins)
     nb = edges.size - 1
-    codes = pd.Categorical(lab, categories=list(strata)).codes.astype(np.int64)
     keep = codes >= 0
     key = codes[keep] * nb + b[keep]
     size = len(strata) * nb

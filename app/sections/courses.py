@@ -7,6 +7,7 @@ import pandas as pd
 from dash import Input, Output, State, html
 
 from analysis.exploration.summaries import group_means
+from analysis.preparation.strata import MISSING_LABEL
 
 from .. import ids
 from ..components import graph, message, number, section
@@ -67,19 +68,43 @@ def course_base(context, cohort, look: CohortLook, data, roles, settings):
     """(every visit with text subject ids, group means, subjects per group) of the cohort,
     computed once per cohort (a highlight or a new sample reuses them)."""
     def compute():
-        frame = cohort.frame
-        frame["subject"] = frame["subject"].astype(str)
+        frame = visit_frame(cohort)
         labels = list(look.strata) or _present_strata(look, frame["stratum_label"])
-        per = frame.groupby("stratum_label", sort=False)["subject"].nunique()
+        # subjects per group label, from the one group code per subject
+        codes = np.asarray(cohort.strata.codes)
+        names = frame["stratum_label"].cat.categories
+        count = np.bincount(np.where(codes < 0, len(names) - 1, codes), minlength=len(names))
+        per = pd.Series(count, index=names.astype(str))
+        per = per[per > 0]
         # one row per subject in first-visit order, as frame.drop_duplicates("subject") gives
         firsts = pd.DataFrame({"subject": frame["subject"].to_numpy()[cohort.panel.starts],
-                               "stratum": np.asarray(cohort.strata.codes)})
-        index = pd.Index(np.asarray(cohort.subject_ids).astype(str))
+                               "stratum": codes})
+        index = pd.Index(np.asarray(cohort.subject_ids).astype(str), dtype=object)
         index.get_indexer(index[:1])    # builds its lookup table once, here
         return frame, group_means(frame, strata=labels), per, firsts, index
 
     dataset, r, s = context.inputs(data, roles, settings)
     return context.workbench.derived("cohort", "course base", dataset, r, s, compute)
+
+
+def visit_frame(cohort) -> pd.DataFrame:
+    """The cohort's visits in panel row order (subject as text, time, response, stratum,
+    stratum_label), built for speed at a million rows: subject ids stay plain Python text
+    (no conversion to an Arrow string column) and the group label is categorical (one label
+    per group code, :data:`analysis.preparation.strata.MISSING_LABEL` for code -1)."""
+    p = cohort.panel
+    codes = np.asarray(cohort.strata.codes)
+    names = tuple(map(str, cohort.strata.labels)) + (MISSING_LABEL,)
+    row_codes = codes[p.codes]
+    subjects = np.asarray(cohort.subject_ids).astype(str).astype(object)[p.codes]
+    return pd.DataFrame({
+        "subject": pd.Series(subjects, dtype=object),
+        "time": p.time,
+        "response": p.y,
+        "stratum": row_codes,
+        "stratum_label": pd.Categorical.from_codes(
+            np.where(row_codes < 0, len(names) - 1, row_codes), categories=list(names)),
+    })
 
 
 def subject_rows(cohort, chosen, index: pd.Index | None = None) -> np.ndarray:
