@@ -634,6 +634,15 @@ def sample_subjects(frame: pd.DataFrame, *, per_stratum: int, seed: int,
     return np.asarray(chosen, dtype=object), len(chosen), len(firsts)
 
 
+def _is_subject(column: pd.Series, subject: str) -> np.ndarray:
+    """Rows of ``subject`` (text) in a subject column, text or categorical (a categorical
+    column is compared through its codes: no text per row)."""
+    if isinstance(column.dtype, pd.CategoricalDtype):
+        where = np.flatnonzero(column.cat.categories.astype(str) == subject)
+        return column.cat.codes.to_numpy() == (where[0] if where.size else -2)
+    return (column.astype(str) == subject).to_numpy()
+
+
 def panel_title(label: str, n: int, *, ncol: int, bold: bool = False) -> str:
     """``"1.0 – 10.7 · n = 265"``: a small-multiple title that fits its panel.
 
@@ -697,7 +706,7 @@ def courses_figure(shown: pd.DataFrame, *, full: pd.DataFrame, look: CohortLook,
     if means is None:
         means = group_means(full, strata=labels, n_bins=n_bins)
     hl = None if highlight_subject is None else str(highlight_subject)
-    hl_rows = None if hl is None else full[full["subject"].astype(str) == hl]
+    hl_rows = None if hl is None else full[_is_subject(full["subject"], hl)]
     hover = (f"subject %{{customdata}}<br>%{{x:.1f}} {look.time_unit}: %{{y:.1f}}"
              f" {look.response_unit}<extra></extra>")
     # WebGL traces are painted above SVG ones, so once the subject lines need WebGL,

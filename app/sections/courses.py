@@ -77,7 +77,9 @@ def course_base(context, cohort, look: CohortLook, data, roles, settings):
         per = pd.Series(count, index=names.astype(str))
         per = per[per > 0]
         # one row per subject in first-visit order, as frame.drop_duplicates("subject") gives
-        firsts = pd.DataFrame({"subject": frame["subject"].to_numpy()[cohort.panel.starts],
+        subject = frame["subject"].cat
+        firsts = pd.DataFrame({"subject": np.asarray(subject.categories, dtype=object)[
+                                   subject.codes.to_numpy()[cohort.panel.starts]],
                                "stratum": codes})
         index = pd.Index(np.asarray(cohort.subject_ids).astype(str), dtype=object)
         index.get_indexer(index[:1])    # builds its lookup table once, here
@@ -89,16 +91,16 @@ def course_base(context, cohort, look: CohortLook, data, roles, settings):
 
 def visit_frame(cohort) -> pd.DataFrame:
     """The cohort's visits in panel row order (subject as text, time, response, stratum,
-    stratum_label), built for speed at a million rows: subject ids stay plain Python text
-    (no conversion to an Arrow string column) and the group label is categorical (one label
-    per group code, :data:`analysis.preparation.strata.MISSING_LABEL` for code -1)."""
+    stratum_label), built for speed at a million rows: subject and group label are
+    categorical on the panel's codes (one text per subject and per group, not per visit;
+    :data:`analysis.preparation.strata.MISSING_LABEL` for group code -1)."""
     p = cohort.panel
     codes = np.asarray(cohort.strata.codes)
     names = tuple(map(str, cohort.strata.labels)) + (MISSING_LABEL,)
     row_codes = codes[p.codes]
-    subjects = np.asarray(cohort.subject_ids).astype(str).astype(object)[p.codes]
+    ids_ = pd.Index(np.asarray(cohort.subject_ids).astype(str), dtype=object)
     return pd.DataFrame({
-        "subject": pd.Series(subjects, dtype=object),
+        "subject": pd.Categorical.from_codes(p.codes, categories=ids_),
         "time": p.time,
         "response": p.y,
         "stratum": row_codes,
