@@ -46,8 +46,13 @@ def summary_note(n: int) -> str:
 
 
 def _codes(labels: pd.Series, order: list[str]) -> np.ndarray:
+    """Each label's position in ``order`` (``len(order)`` for any other label or none);
+    one text lookup per distinct label, not per subject."""
     rank = {s: i for i, s in enumerate(order)}
-    return labels.astype(str).map(rank).fillna(len(order)).to_numpy(dtype=np.int64)
+    codes, uniques = pd.factorize(labels, use_na_sentinel=True)
+    lut = np.array([rank.get(str(u), len(order)) for u in uniques] + [len(order)],
+                   dtype=np.int64)
+    return lut[codes]              # code -1 (no label) -> the last entry
 
 
 def _slopes(lines: pd.DataFrame, labels: list[str]):
