@@ -7,8 +7,10 @@ not refit the per-subject lines or re-read the table.
 
 Stages and the settings they read (see :data:`analysis.settings.STAGE_FIELDS`)::
 
-    selection     origin, unit, window, min visits, require covariate, covariate, duplicates,
-                  date order
+    ordered       origin, unit, window, covariate, duplicates, date order (the visits kept,
+                  sorted, with each subject's baseline values: the selection before its
+                  per-subject rules)
+    selection     ordered + min visits, require covariate
     cohort        selection + transform, centring, stratifier and its cut
     subject_fits  selection
     residuals     selection + detrending (+ strata when detrending within strata)
@@ -34,6 +36,7 @@ from .jsonsafe import json_safe
 from .preparation.loading import Dataset
 from .preparation.prepare import (CohortSelection, ColumnReader, PreparedCohort, select_cohort,
                                   stratify)
+from .preparation.prepare import OrderedVisits, finish_selection, order_visits
 from .settings import COUNT_LIMITS, STAGE_FIELDS, Roles, Settings, json_key
 
 
@@ -257,6 +260,7 @@ class Workbench:
         strata = STAGE_FIELDS["strata"]
         res = STAGE_FIELDS["residuals"] + (strata if settings.detrend_within_strata else ())
         table = {
+            "ordered": tuple(f for f in sel if f not in ("min_visits", "require_covariate")),
             "selection": sel,
             "subject_fits": sel,
             "cohort": sel + strata,
@@ -272,7 +276,7 @@ class Workbench:
     def _key(self, stage: str, dataset: Dataset, roles: Roles, settings: Settings, extra=()):
         d = settings.to_dict()
         sub = {k: d[k] for k in self.stage_fields(stage, settings)} if stage in (
-            "selection", "subject_fits", "cohort", "summaries", "residuals", "variogram",
+            "ordered", "selection", "subject_fits", "cohort", "summaries", "residuals", "variogram",
             "lagcorr", "models", "subject_lines") else d
         return (dataset.key, roles, stage, json_key(sub, 16), extra)
 
@@ -289,8 +293,17 @@ class Workbench:
     def selection(self, dataset: Dataset, roles: Roles, settings: Settings) -> CohortSelection:
         keyed = settings.only(self.stage_fields("selection", settings))
         return self._memo("selection", dataset, roles, settings,
-                          lambda: select_cohort(dataset.frame, roles, keyed,
-                                                columns=self.columns(dataset)))
+                          lambda: finish_selection(self.ordered_visits(dataset, roles, settings),
+                                                   roles, keyed))
+
+    def ordered_visits(self, dataset: Dataset, roles: Roles, settings: Settings) -> OrderedVisits:
+        """The selection's work before the per-subject rules (see
+        :func:`~analysis.preparation.prepare.order_visits`): a change of the fewest visits or of
+        requiring the covariate starts from it. Treat as read-only."""
+        keyed = settings.only(self.stage_fields("ordered", settings))
+        return self._memo("ordered", dataset, roles, settings,
+                          lambda: order_visits(dataset.frame, roles, keyed,
+                                               columns=self.columns(dataset)))
 
     def derived(self, stage: str, name: str, dataset: Dataset, roles: Roles, settings: Settings,
                 compute: Callable[[], Any]):
@@ -397,8 +410,13 @@ class Workbench:
             cohort = self.cohort(dataset, roles, settings)
             fits = self.subject_fits(dataset, roles, settings)
             slopes = np.asarray(fits.slope, dtype=float)
+            # the smooth reads the selection's covariate and slopes, never the strata: kept
+            # under the subject fits' key, so a change of how groups are cut reuses it
+            smooth = self.derived("subject_fits", "slope smooth", dataset, roles, settings,
+                                  lambda: slope_smooth(cohort, slopes))
             return build_summaries(cohort, slopes,
-                                   lambda: cohort_dropout(cohort, data_cut=settings.data_cut))
+                                   lambda: cohort_dropout(cohort, data_cut=settings.data_cut),
+                                   smooth=smooth)
 
         return self._memo("summaries", dataset, roles, settings, compute)
 
@@ -440,17 +458,35 @@ def join_subject_lines(frame: pd.DataFrame, cohort: PreparedCohort) -> pd.DataFr
     return frame
 
 
-def build_summaries(cohort: PreparedCohort, slopes: np.ndarray, dropout: Callable) -> Summaries:
-    """Stratum table and slope smooth from the per-subject slopes, and ``dropout()``."""
-    from .exploration.summaries import slope_covariate_smooth, stratum_table
-
+def _raw_covariate(cohort: PreparedCohort) -> tuple[bool, np.ndarray]:
+    """(the primary covariate is numeric, its untransformed value per subject or NaN)."""
     cov = cohort.covariate
     numeric = cov is not None and cohort.selection.covariate_kinds[cov] == "numeric"
     raw = (cohort.baseline[cov].to_numpy(float) if numeric
            else np.full(cohort.panel.n_subjects, np.nan))
+    return numeric, raw
+
+
+def slope_smooth(cohort: PreparedCohort, slopes: np.ndarray) -> pd.DataFrame:
+    """The slope-against-covariate smooth of :func:`build_summaries` (empty for a categorical
+    or absent covariate); reads only the selection's covariate and the slopes."""
+    from .exploration.summaries import slope_covariate_smooth
+
+    numeric, raw = _raw_covariate(cohort)
+    return (slope_covariate_smooth(raw, slopes) if numeric
+            else pd.DataFrame({"covariate": [], "slope_smooth": []}))
+
+
+def build_summaries(cohort: PreparedCohort, slopes: np.ndarray, dropout: Callable,
+                    smooth: pd.DataFrame | None = None) -> Summaries:
+    """Stratum table and slope smooth from the per-subject slopes, and ``dropout()``
+    (``smooth``: :func:`slope_smooth` already computed for this cohort's selection)."""
+    from .exploration.summaries import stratum_table
+
+    _, raw = _raw_covariate(cohort)
     table = stratum_table(cohort.panel, cohort.strata, raw, slopes)
-    smooth = (slope_covariate_smooth(raw, slopes) if numeric
-              else pd.DataFrame({"covariate": [], "slope_smooth": []}))
+    if smooth is None:
+        smooth = slope_smooth(cohort, slopes)
     return Summaries(table, smooth, dropout())
 
 

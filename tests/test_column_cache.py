@@ -167,3 +167,28 @@ def test_categorical_baselines_from_codes_equal_grouping_the_values():
     pd.testing.assert_frame_equal(fast.baseline, grouped.baseline)
     assert fast.warnings == grouped.warnings
     assert any("'site' changes within" in w for w in fast.warnings)
+
+
+def test_per_subject_rules_start_from_the_cached_ordered_visits():
+    """Fewest visits and requiring the covariate re-run only the per-subject rules; each
+    result equals an uncached selection (reference: ``select_cohort`` on the table), also
+    after the cached ordered visits served other settings first (they are not changed)."""
+    frame, roles, base = load_demo(), demo_roles(), demo_settings()
+    wb = Workbench()
+    ds = Dataset.from_frame(frame)
+    changes = (dict(min_visits=5), dict(require_covariate=False),
+               dict(min_visits=2, require_covariate=False), {})
+    for change in changes:
+        got = wb.selection(ds, roles, base.replace(**change))
+        ref = prepare.select_cohort(frame, roles, base.replace(**change).only(
+            Workbench.stage_fields("selection", base)))
+        np.testing.assert_array_equal(got.panel.codes, ref.panel.codes)
+        np.testing.assert_array_equal(got.panel.time, ref.panel.time)
+        np.testing.assert_array_equal(got.panel.y, ref.panel.y)
+        np.testing.assert_array_equal(got.subject_ids, ref.subject_ids)
+        pd.testing.assert_frame_equal(got.baseline, ref.baseline)
+        pd.testing.assert_frame_equal(got.attrition.to_frame(), ref.attrition.to_frame())
+        np.testing.assert_array_equal(got.followup.origin, ref.followup.origin)
+        assert got.warnings == ref.warnings
+    assert wb.compute_counts["ordered"] == 1
+    assert wb.compute_counts["selection"] == len(changes)

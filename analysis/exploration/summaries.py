@@ -460,8 +460,9 @@ def dropout_from_subjects(last_time, last_y, strata: Strata, *, t_max: float,
         pot = np.where(after, last_time, pot)
         slack = overdue_gaps * (gap if math.isfinite(gap) else 0.0)
         left = last_time < np.minimum(horizon, pot) - slack
-        status = np.where(left, LEFT_EARLY_STATUS,
-                          np.where(pot < horizon, CENSORED_STATUS, COMPLETE_STATUS))
+        # status as its index in STATUSES (counted as integers), then as text
+        status_code = np.where(left, 0, np.where(pot < horizon, 1, 2))
+        status = np.asarray(STATUSES, dtype=object)[status_code]
         times = np.where(left, last_time, np.minimum(pot, horizon))
         events = left
         status_rule = (
@@ -475,6 +476,7 @@ def dropout_from_subjects(last_time, last_y, strata: Strata, *, t_max: float,
         pot = np.full(m, np.nan)
         left = np.zeros(m, dtype=bool)
         status = np.full(m, None, dtype=object)
+        status_code = np.full(m, -1)
         times, events = last_time, np.ones(m, dtype=bool)
         status_rule = ("not classified: without calendar dates or a follow-up end column, "
                        "leaving early cannot be told apart from the end of the data")
@@ -496,12 +498,15 @@ def dropout_from_subjects(last_time, last_y, strata: Strata, *, t_max: float,
             curve.insert(0, "stratum", code)
             curves.append(curve)
         if classified:
-            count_rows.append((code, label, *(int(np.sum(sel & (status == s))) for s in STATUSES)))
+            per = np.bincount(status_code[sel], minlength=len(STATUSES))
+            count_rows.append((code, label, *(int(n) for n in per)))
     by_stratum = pd.DataFrame(rows, columns=["stratum", "label", "followup", "n", "mean", "sd",
                                              "median"])
     retention = pd.concat(curves, ignore_index=True)[list(RETENTION_COLUMNS)]
     count_table = pd.DataFrame(count_rows, columns=["stratum", "label", *STATUSES])
-    counts = ({s: int(np.sum(status == s)) for s in STATUSES} if classified else {})
+    counts = ({s: int(n) for s, n in zip(STATUSES, np.bincount(status_code,
+                                                            minlength=len(STATUSES)))}
+              if classified else {})
     profiles = profiles(last_time, int(n_time_bins))
     return Dropout(horizon=float(horizon), horizon_rule=rule, classified=classified,
                    typical_gap=gap, status_rule=status_rule,

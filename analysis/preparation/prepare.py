@@ -13,6 +13,7 @@ Two steps, cached separately by the pipeline:
 """
 from __future__ import annotations
 
+import copy
 from dataclasses import dataclass
 
 import numpy as np
@@ -293,6 +294,35 @@ def select_cohort(df: pd.DataFrame, roles: Roles, settings: Settings, *,
     SettingsError
         A setting that does not fit the data (e.g. origin 'as-is' with a date column).
     """
+    ordered = order_visits(df, roles, settings, tracker=tracker, columns=columns)
+    return finish_selection(ordered, roles, settings)
+
+
+@dataclass(frozen=True, eq=False)
+class OrderedVisits:
+    """:func:`select_cohort`'s work before the per-subject rules (baseline covariate present,
+    fewest visits): the visits kept so far in (subject, time) order, each subject's baseline
+    values and the inclusion steps counted. It does not depend on ``min_visits`` or
+    ``require_covariate``, so a cache keeps it across changes of those two (treat as read-only).
+    """
+
+    work: pd.DataFrame
+    base: pd.DataFrame
+    covariate_kinds: dict
+    primary: str | None
+    warnings: tuple[str, ...]
+    labels: np.ndarray
+    time_kind: str
+    latest: float
+    tracker: "_Tracker"
+
+
+def order_visits(df: pd.DataFrame, roles: Roles, settings: Settings, *,
+                 tracker: type | None = None,
+                 columns: "ColumnReader | None" = None) -> OrderedVisits:
+    """The first part of :func:`select_cohort` (same parameters): validation, time origin, the
+    row-level inclusion steps, the sort and each subject's baseline values. Reads every
+    selection setting except ``min_visits`` and ``require_covariate``."""
     _check_columns(df, roles, settings)
     columns = columns or ColumnReader(df)
     # positions, not labels: a filtered or re-indexed table must line up row by row
@@ -359,18 +389,37 @@ def select_cohort(df: pd.DataFrame, roles: Roles, settings: Settings, *,
     warnings: list[str] = []
     kinds = {c: ("numeric" if columns.kind(c) == "number" else "categorical") for c in covariates}
     base = _baseline_values(work, covariates, kinds, warnings, labels, df=df, columns=columns)
+    return OrderedVisits(work=work, base=base, covariate_kinds=kinds, primary=primary,
+                         warnings=tuple(warnings), labels=labels, time_kind=time_kind,
+                         latest=latest, tracker=tracker)
 
+
+def finish_selection(ordered: OrderedVisits, roles: Roles, settings: Settings) -> CohortSelection:
+    """The second part of :func:`select_cohort`: the per-subject rules (baseline covariate
+    present, fewest visits), the panel and the per-subject table. ``ordered`` is not changed."""
+    work, base, kinds, primary = ordered.work, ordered.base, ordered.covariate_kinds, ordered.primary
+    labels, time_kind, latest = ordered.labels, ordered.time_kind, ordered.latest
+    warnings = list(ordered.warnings)
+    tracker = ordered.tracker.copy()
+    # both rules keep or drop whole subjects: counted on the subject codes, applied at once
+    sub = work["subject"].to_numpy()
+    kept = np.ones(sub.size, dtype=bool)
     if primary and settings.require_covariate:
-        has = base.index[base[primary].notna()].to_numpy()
-        work = work[np.isin(work["subject"].to_numpy(), has)]
-        tracker.record(f"Baseline {clip(primary)} present", work["subject"].to_numpy())
+        has = np.zeros(len(labels), dtype=bool)
+        has[base.index[base[primary].notna()].to_numpy()] = True
+        kept = has[sub]
+        tracker.record(f"Baseline {clip(primary)} present", sub[kept])
 
-    n_visits = np.bincount(work["subject"].to_numpy(), minlength=len(labels))
-    work = work[n_visits[work["subject"].to_numpy()] >= settings.min_visits]
+    n_visits = np.bincount(sub[kept], minlength=len(labels))
+    kept &= n_visits[sub] >= settings.min_visits
     tracker.record(f"At least {settings.min_visits} visit{'s' if settings.min_visits > 1 else ''}",
-                   work["subject"].to_numpy())
+                   sub[kept])
+    work = work[kept]
 
-    ranks, codes = np.unique(work["subject"].to_numpy(), return_inverse=True)
+    # rows are sorted by subject: the distinct subjects and their codes from where it changes
+    sub = sub[kept]
+    change = np.r_[True, sub[1:] != sub[:-1]]
+    ranks, codes = sub[change], np.cumsum(change) - 1
     panel = Panel.from_codes(codes, work["time"].to_numpy(float), work["response"].to_numpy(float))
     ids = labels[ranks]
     baseline = base.reindex(ranks)
@@ -493,6 +542,12 @@ class _Tracker:
 
     def result(self) -> Attrition:
         return Attrition(tuple(self._steps))
+
+    def copy(self) -> "_Tracker":
+        """The same counter with its own list of steps (recording on it leaves this one)."""
+        twin = copy.copy(self)
+        twin._steps = list(self._steps)
+        return twin
 
 
 def _check_columns(df: pd.DataFrame, roles: Roles, settings: Settings) -> None:
@@ -691,7 +746,7 @@ def _followup_basis(work: pd.DataFrame, codes: np.ndarray, roles: Roles, setting
                     kind: str, latest: float, labels: np.ndarray) -> FollowupBasis:
     """Per-subject origin (time column's scale) = raw time minus anchored time, first row of each
     subject; the follow-up end likewise. ``work`` and ``codes`` are in panel row order."""
-    first = np.unique(codes, return_index=True)[1]
+    first = np.flatnonzero(np.r_[True, codes[1:] != codes[:-1]])   # codes are sorted
     scale = opt.DAYS_PER_UNIT[settings.unit] if kind == "date" else 1.0
     raw = _days(work["time_raw"]) if kind == "date" else work["time_raw"].to_numpy(float)
     origin = (raw - work["time"].to_numpy(float) * scale)[first]
