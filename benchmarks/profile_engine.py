@@ -64,6 +64,7 @@ def main() -> None:
         gc.collect()
         before = dict(wb.compute_counts)
         prof = cProfile.Profile() if args.profile else None
+        c0 = time.process_time()
         t0 = time.perf_counter()
         if prof:
             prof.enable()
@@ -71,9 +72,10 @@ def main() -> None:
         if prof:
             prof.disable()
         secs = time.perf_counter() - t0
+        cpu = time.process_time() - c0
         ran = {k: v - before.get(k, 0) for k, v in wb.compute_counts.items()
                if v - before.get(k, 0)}
-        print(f"{name:18s} {secs:6.2f} s  stages {ran}", flush=True)
+        print(f"{name:18s} {secs:6.2f} s (cpu {cpu:5.2f} s)  stages {ran}", flush=True)
         if prof:
             out = io.StringIO()
             pstats.Stats(prof, stream=out).sort_stats("cumulative").print_stats(args.top)

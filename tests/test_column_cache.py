@@ -47,9 +47,9 @@ def test_settings_changes_parse_each_column_once(monkeypatch):
         np.testing.assert_array_equal(got.subject_ids, ref.subject_ids)
         pd.testing.assert_frame_equal(got.attrition.to_frame(), ref.attrition.to_frame())
     # the uncached references parsed again; the workbench did not
-    # counted by hand: subject, response, time, event date, and one kind and one set of value
-    # codes per covariate
-    assert wb.compute_counts["columns"] == 4 + 2 * len(roles.covariates)
+    # counted by hand: subject, response, time, event date, the rows' (subject, time) order,
+    # and one kind and one set of value codes per covariate
+    assert wb.compute_counts["columns"] == 5 + 2 * len(roles.covariates)
     assert calls["codes"] == first["codes"] + 4
 
 
@@ -60,9 +60,9 @@ def test_a_new_date_order_parses_the_dates_again_but_not_the_ids(monkeypatch):
     wb.selection(ds, roles, base)
     n = wb.compute_counts["columns"]
     wb.selection(ds, roles, base.replace(date_order="day-first"))
-    # visit date and event date again (the order is part of their key); ids, response and
-    # covariate kinds reused
-    assert wb.compute_counts["columns"] == n + 2
+    # visit date, event date and the rows' (subject, time) order again (the date order is part
+    # of their key); ids, response and covariate kinds reused
+    assert wb.compute_counts["columns"] == n + 3
 
 
 def test_bad_event_dates_keep_their_message_and_do_not_matter_without_that_origin():

@@ -166,7 +166,7 @@ def _fit(t, y, at, method, spline_df, frac, notes):
         knots, text = spline_plan(distinct, spline_df, notes)
         # the basis is elementwise in time: built once per distinct time and gathered to the
         # rows (the same design matrix, at a fraction of the cost on long tables)
-        design = natural_spline_basis(distinct, knots, intercept=True)[where]
+        design = np.take(natural_spline_basis(distinct, knots, intercept=True), where, axis=0)
         if at.size >= t.size and np.array_equal(at[:t.size], t):
             design_at = np.concatenate(
                 (design, natural_spline_basis(at[t.size:], knots, intercept=True)))

@@ -332,13 +332,18 @@ def order_visits(df: pd.DataFrame, roles: Roles, settings: Settings, *,
     if settings.stratify_by and settings.stratify_by not in covariates:
         covariates = (*covariates, settings.stratify_by)
 
-    work = pd.DataFrame({"_row": np.arange(len(df), dtype=np.int64)})
     sid, labels = columns.subject_codes(roles.subject)
-    work["subject"] = sid                       # rank of the subject's label; -1 = missing
-    # the parsed columns keep the table's own index: assigned by position
-    work["response"] = columns.numeric(roles.response, "response").to_numpy()
     time_kind, time_raw = columns.time_column(roles.time, "time", settings.date_order)
-    work["time_raw"] = time_raw.to_numpy()
+    # the rows in (subject, raw time, row) order, kept per data and roles: the anchored time
+    # rises with the raw time within a subject, so the sort below usually finds them in order
+    order = columns.visit_order(roles.subject, roles.time, "time", settings.date_order,
+                                sid, time_raw)
+    # labelled by their row position, as a table in row order would be
+    work = pd.DataFrame({"_row": order}, index=pd.Index(order))
+    work["subject"] = sid[order]                # rank of the subject's label; -1 = missing
+    # the parsed columns keep the table's own index: assigned by position
+    work["response"] = columns.numeric(roles.response, "response").to_numpy()[order]
+    work["time_raw"] = time_raw.to_numpy()[order]
     if settings.origin == "as-is" and time_kind == "date":
         raise SettingsError(
             f"column '{clip(roles.time)}' holds dates, so time since an origin must be computed: "
@@ -346,15 +351,15 @@ def order_visits(df: pd.DataFrame, roles: Roles, settings: Settings, *,
             field="origin")
     if settings.origin == "event-date":
         work["event"] = columns.time_values(roles.event_date, "event date", time_kind,
-                                            settings.date_order).to_numpy()
+                                            settings.date_order).to_numpy()[order]
     if roles.followup_end:
         work["fu_end"] = columns.time_values(roles.followup_end, "follow-up end", time_kind,
-                                             settings.date_order).to_numpy()
+                                             settings.date_order).to_numpy()[order]
     latest = float(_days(work["time_raw"]).max()) if time_kind == "date" else np.nan
     if settings.duplicates == "average":
         # averaged visits keep each covariate's first non-missing value among their rows
         for c in covariates:
-            work[f"cov:{c}"] = df[c].to_numpy()
+            work[f"cov:{c}"] = df[c].to_numpy()[order]
 
     tracker = (tracker or _Tracker)(work["subject"].to_numpy())
     keep = (work["subject"] >= 0) & work["response"].notna() & work["time_raw"].notna()
@@ -380,8 +385,10 @@ def order_visits(df: pd.DataFrame, roles: Roles, settings: Settings, *,
                        f"{settings.unit}",
                        work["subject"].to_numpy())
 
-    # one sort by (subject, time); every later step keeps this order
-    work = work.iloc[np.lexsort((work["time"].to_numpy(), work["subject"].to_numpy()))]
+    # one sort by (subject, time), ties in row order; every later step keeps this order
+    sub, t, row = work["subject"].to_numpy(), work["time"].to_numpy(), work["_row"].to_numpy()
+    if not _in_visit_order(sub, t, row):
+        work = work.iloc[np.lexsort((row, t, sub))]
     work = _handle_duplicates(work, roles, settings, labels)
     if settings.duplicates == "average":
         tracker.record("Repeated visits at the same time averaged", work["subject"].to_numpy())
@@ -510,6 +517,14 @@ class ColumnReader:
     def time_values(self, column: str, role: str, kind: str, order: str) -> pd.Series:
         return self._memo(("time values", column, role, kind, order),
                           lambda: _time_values(self._df[column], column, role, kind, order))
+
+    def visit_order(self, subject: str, time: str, role: str, order: str,
+                    codes: np.ndarray, raw: pd.Series) -> np.ndarray:
+        """Row positions sorted by subject code, then raw time (missing last), then row: a
+        stable sort by (subject, raw time); ``codes`` and ``raw`` are those columns as this
+        reader parsed them (:meth:`subject_codes`, :meth:`time_column`)."""
+        return self._memo(("visit order", subject, time, role, order),
+                          lambda: np.lexsort((raw.to_numpy(), codes)).astype(np.int64))
 
     def category_codes(self, column: str) -> np.ndarray:
         """Integer code of each row's value (equal values, equal codes; -1 = missing)."""
@@ -703,6 +718,15 @@ def _time_values(s: pd.Series, column: str, role: str, kind: str, order: str) ->
     return read_dates(s, order=order, column=column, role=role)
 
 
+def _in_visit_order(subject: np.ndarray, time: np.ndarray, row: np.ndarray) -> bool:
+    """Whether the rows are sorted by subject, then time, then row (what a stable sort by
+    (subject, time) of a table in row order gives)."""
+    if subject.size < 2:
+        return True
+    ds, dt = np.diff(subject), np.diff(time)
+    return bool(np.all((ds > 0) | ((ds == 0) & ((dt > 0) | ((dt == 0) & (np.diff(row) > 0))))))
+
+
 def _check_constant_within_subject(work: pd.DataFrame, col: str, column: str, role: str,
                                    labels: np.ndarray) -> None:
     n = work.groupby("subject", sort=True)[col].nunique(dropna=True)
@@ -713,8 +737,8 @@ def _check_constant_within_subject(work: pd.DataFrame, col: str, column: str, ro
             f"column '{clip(column)}' ({role}) must be the same on every row of a subject; it "
             f"varies for {len(varying)} subject(s), e.g. "
             f"{', '.join(map(clip, labels[varying[:3]]))} "
-            f"({row_list(first['_row'].to_numpy())})",
-            column=column, positions=first["_row"].to_numpy()[:20])
+            f"({row_list(np.sort(first['_row'].to_numpy()))})",
+            column=column, positions=np.sort(first["_row"].to_numpy())[:20])
 
 
 def _anchor(work: pd.DataFrame, settings: Settings, kind: str) -> np.ndarray:
@@ -798,7 +822,10 @@ def _baseline_values(work: pd.DataFrame, covariates, kinds, warnings: list,
     ``work`` (as ``cov:NAME``) is read from ``df`` at the rows ``work['_row']``, a categorical
     one through its integer codes (``columns.category_codes``)."""
     ordered = work
-    out = pd.DataFrame(index=pd.Index(np.unique(ordered["subject"].to_numpy())))
+    subject = ordered["subject"].to_numpy()
+    # sorted by subject: the distinct codes are where it changes
+    out = pd.DataFrame(index=pd.Index(subject[np.r_[True, subject[1:] != subject[:-1]]]
+                                      if subject.size else np.unique(subject)))
     for c in covariates:
         col = f"cov:{c}"
         plain_numbers = (pd.api.types.is_numeric_dtype(df[c])
@@ -842,11 +869,10 @@ def _coded_baseline(ordered: pd.DataFrame, df: pd.DataFrame, columns: ColumnRead
     values = pd.Series(picked.to_numpy(dtype=float) if as_float else picked.to_numpy(),
                        index=s[first])
     out[c] = values.reindex(out.index)
-    # distinct (subject, code) pairs as one integer each
-    width = int(k.max(initial=0)) + 1
-    pairs = pd.unique(s.astype(np.int64) * width + k)
-    n = np.bincount(pairs // width)
-    varying = np.flatnonzero(n > 1)
+    # a subject holds more than one distinct code exactly when two of its neighbouring rows
+    # hold different codes
+    differs = s[1:][(s[1:] == s[:-1]) & (k[1:] != k[:-1])]
+    varying = differs[np.r_[True, differs[1:] != differs[:-1]]] if differs.size else differs
     if len(varying):
         warnings.append(
             f"baseline covariate '{clip(c)}' changes within {len(varying)} subject(s) "
