@@ -362,7 +362,8 @@ class Workbench:
         def compute():
             cohort = self.cohort(dataset, roles, settings)
             fits = self.subject_fits(dataset, roles, settings)
-            return join_subject_lines(fits.to_frame(cohort.subject_ids), cohort)
+            # the ids as the per-subject table holds them (no conversion of each id again)
+            return join_subject_lines(fits.to_frame(cohort.baseline["subject"].array), cohort)
 
         return self._memo("subject_lines", dataset, roles, settings, compute).copy(deep=False)
 
@@ -449,7 +450,7 @@ def join_subject_lines(frame: pd.DataFrame, cohort: PreparedCohort) -> pd.DataFr
     stratum label, raw covariate and ``x``."""
     base = cohort.baseline
     frame["stratum"] = base["stratum"].to_numpy()
-    frame["stratum_label"] = base["stratum_label"].to_numpy()
+    frame["stratum_label"] = base["stratum_label"].array
     cov = cohort.covariate
     frame["covariate"] = (base[cov].to_numpy() if cov is not None
                           else np.full(len(frame), np.nan))

@@ -48,8 +48,8 @@ def test_settings_changes_parse_each_column_once(monkeypatch):
         pd.testing.assert_frame_equal(got.attrition.to_frame(), ref.attrition.to_frame())
     # the uncached references parsed again; the workbench did not
     # counted by hand: subject, response, time, event date, the rows' (subject, time) order,
-    # and one kind and one set of value codes per covariate
-    assert wb.compute_counts["columns"] == 5 + 2 * len(roles.covariates)
+    # the subject ids as text, and one kind and one set of value codes per covariate
+    assert wb.compute_counts["columns"] == 6 + 2 * len(roles.covariates)
     assert calls["codes"] == first["codes"] + 4
 
 
@@ -192,3 +192,23 @@ def test_per_subject_rules_start_from_the_cached_ordered_visits():
         assert got.warnings == ref.warnings
     assert wb.compute_counts["ordered"] == 1
     assert wb.compute_counts["selection"] == len(changes)
+
+
+@pytest.mark.parametrize("ids", ["text", "integers"])
+def test_subject_columns_are_what_pandas_makes_of_the_ids(ids):
+    """The per-subject tables take their id column from a text array made once; reference:
+    pandas' own reading of the ids as a numpy object array (values and dtype)."""
+    frame, roles, base = load_demo(), demo_roles(), demo_settings()
+    if ids == "integers":
+        frame["recipient_id"] = frame["recipient_id"].str.replace(r"\D", "", regex=True).astype(int)
+    ds = Dataset.from_frame(frame)
+    wb = Workbench()
+    ex = wb.explore(ds, roles, base)
+    expected = pd.Series(np.asarray(ex.cohort.subject_ids, dtype=object), name="subject")
+    pd.testing.assert_series_equal(ex.cohort.baseline["subject"], expected)
+    pd.testing.assert_series_equal(ex.subject_lines["subject"], expected)
+    pd.testing.assert_series_equal(ex.summaries.dropout.subjects["subject"], expected)
+    labels = pd.Series(np.asarray(ex.cohort.strata.labels + ("No value",), dtype=object)[
+        ex.cohort.strata.codes], name="stratum_label")
+    pd.testing.assert_series_equal(ex.cohort.baseline["stratum_label"], labels)
+    pd.testing.assert_series_equal(ex.subject_lines["stratum_label"], labels)

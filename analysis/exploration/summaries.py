@@ -445,7 +445,8 @@ def dropout_from_subjects(last_time, last_y, strata: Strata, *, t_max: float,
         if not math.isfinite(horizon):
             raise SettingsError(f"horizon == {horizon}, must be a finite time")
         rule = f"horizon = {plain_number(horizon, '.4g')} (chosen)"
-    ids = np.arange(m) if subject_ids is None else np.asarray(subject_ids)
+    ids = (np.arange(m) if subject_ids is None else subject_ids
+           if isinstance(subject_ids, pd.api.extensions.ExtensionArray) else np.asarray(subject_ids))
     if ids.shape != (m,):
         raise DataError(f"subject_ids has {ids.size} entries, expected one per subject ({m})")
     gap = typical_gap
@@ -523,7 +524,7 @@ def cohort_dropout(cohort, *, data_cut: str | None = None, horizon: float | None
     pot, source, notes = (basis.potential(data_cut=data_cut, time_max=cohort.settings.time_max)
                           if basis is not None else (None, "", ()))
     return dropout_summary(cohort.panel, cohort.strata, horizon=horizon,
-                           subject_ids=cohort.subject_ids, potential_followup=pot,
+                           subject_ids=cohort.baseline["subject"].array, potential_followup=pot,
                            followup_source=source, notes=notes, time_unit=cohort.settings.unit)
 
 

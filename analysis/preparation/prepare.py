@@ -315,6 +315,9 @@ class OrderedVisits:
     time_kind: str
     latest: float
     tracker: "_Tracker"
+    #: ``labels`` as a pandas text array when they are all text (None otherwise), so that a
+    #: table of subjects takes its ids from it instead of converting Python strings each time
+    label_text: "pd.api.extensions.ExtensionArray | None" = None
 
 
 def order_visits(df: pd.DataFrame, roles: Roles, settings: Settings, *,
@@ -398,7 +401,8 @@ def order_visits(df: pd.DataFrame, roles: Roles, settings: Settings, *,
     base = _baseline_values(work, covariates, kinds, warnings, labels, df=df, columns=columns)
     return OrderedVisits(work=work, base=base, covariate_kinds=kinds, primary=primary,
                          warnings=tuple(warnings), labels=labels, time_kind=time_kind,
-                         latest=latest, tracker=tracker)
+                         latest=latest, tracker=tracker,
+                         label_text=columns.subject_text(roles.subject, labels))
 
 
 def finish_selection(ordered: OrderedVisits, roles: Roles, settings: Settings) -> CohortSelection:
@@ -431,7 +435,8 @@ def finish_selection(ordered: OrderedVisits, roles: Roles, settings: Settings) -
     ids = labels[ranks]
     baseline = base.reindex(ranks)
     baseline.index.name = None
-    baseline.insert(0, "subject", ids)
+    baseline.insert(0, "subject", ids if ordered.label_text is None
+                    else ordered.label_text.take(ranks))
     baseline = baseline.reset_index(drop=True)
     baseline["n_visits"] = panel.counts
     baseline["first_time"] = panel.time[panel.starts]
@@ -480,10 +485,20 @@ def stratify(selection: CohortSelection, settings: Settings) -> PreparedCohort:
         strata = categorical_strata(base[by].to_numpy(object), name=by)
     labels = np.asarray(tuple(strata.labels) + (MISSING_LABEL,), dtype=object)
     base["stratum"] = strata.codes
-    base["stratum_label"] = labels[strata.codes]
+    base["stratum_label"] = _text_take(labels, strata.codes)
     warnings.extend(getattr(strata, "notes", ()))
     return PreparedCohort(selection=selection, strata=strata, x=x, center_value=center_value,
                           baseline=base, warnings=tuple(warnings), settings=settings)
+
+
+def _text_take(labels: np.ndarray, codes: np.ndarray):
+    """``labels[codes]`` (numpy indexing: -1 is the last label) as the column pandas makes of
+    it: taken from a pandas text array when the labels are all text (one conversion of the
+    few labels instead of one per row)."""
+    inferred = pd.Series(labels)
+    if isinstance(inferred.dtype, pd.StringDtype):
+        return inferred.array.take(np.asarray(codes, dtype=np.int64))
+    return labels[codes]
 
 
 # --------------------------------------------------------------------------- column parsing
@@ -517,6 +532,16 @@ class ColumnReader:
     def time_values(self, column: str, role: str, kind: str, order: str) -> pd.Series:
         return self._memo(("time values", column, role, kind, order),
                           lambda: _time_values(self._df[column], column, role, kind, order))
+
+    def subject_text(self, column: str, labels: np.ndarray):
+        """The distinct subject ``labels`` (:meth:`subject_codes`) as a pandas text array when
+        pandas reads them as text, else None (taking from it gives the column a table of
+        those labels would get)."""
+        def compute():
+            inferred = pd.Series(labels)
+            return inferred.array if isinstance(inferred.dtype, pd.StringDtype) else None
+
+        return self._memo(("subject text", column), compute)
 
     def visit_order(self, subject: str, time: str, role: str, order: str,
                     codes: np.ndarray, raw: pd.Series) -> np.ndarray:
