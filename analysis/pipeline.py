@@ -80,7 +80,10 @@ def deep_nbytes(obj, _seen: set | None = None, _depth: int = 0) -> int:
     size = sys.getsizeof(obj)
     attrs = getattr(obj, "__dict__", None)
     if attrs is not None:
-        size += sum(deep_nbytes(v, seen, _depth + 1) for v in attrs.values())
+        # attributes that are cache entries of their own (e.g. a cohort's selection) are
+        # counted there, not again in every result that refers to them
+        apart = getattr(type(obj), "_cached_apart", ())
+        size += sum(deep_nbytes(v, seen, _depth + 1) for k, v in attrs.items() if k not in apart)
     for name in getattr(type(obj), "__slots__", ()):
         size += deep_nbytes(getattr(obj, name, None), seen, _depth + 1)
     return size
@@ -227,8 +230,9 @@ class Workbench:
         Bound on cached fitted model sets (the ``models`` stage).
     max_bytes : int or None
         Memory budget of the cached results (estimated by :func:`deep_nbytes`); three
-        quarters go to the exploratory stages, one quarter to fitted model sets. None: no
-        byte bound (the entry counts only).
+        quarters go to the exploratory stages (a quarter of that to the parsed role columns,
+        bounded on their own), one quarter to fitted model sets. None: no byte bound (the
+        entry counts only).
 
     Attributes
     ----------
@@ -240,7 +244,13 @@ class Workbench:
                  max_bytes: int | None = None):
         explore_bytes = None if max_bytes is None else max(1, max_bytes * 3 // 4)
         model_bytes = None if max_bytes is None else max(1, max_bytes - explore_bytes)
-        self._cache = ResultCache(max_entries, explore_bytes)
+        # the parsed role columns (a quarter of the exploratory share) are bounded apart from
+        # the results, so that a run of settings changes never pushes them out (a large file's
+        # dates would be parsed again)
+        column_bytes = None if explore_bytes is None else max(1, explore_bytes // 4)
+        self._columns = ResultCache(max(64, max_entries), column_bytes)
+        self._cache = ResultCache(max_entries, None if explore_bytes is None
+                                  else max(1, explore_bytes - column_bytes))
         # fitted model sets keep their data and are slow to make: a bound of their own
         self._model_cache = ResultCache(max_model_sets, model_bytes)
         self.compute_counts: Counter = Counter()
@@ -249,7 +259,7 @@ class Workbench:
     @property
     def nbytes(self) -> int:
         """Estimated memory of the cached results (0 when not bounded by bytes)."""
-        return self._cache.nbytes + self._model_cache.nbytes
+        return self._cache.nbytes + self._columns.nbytes + self._model_cache.nbytes
 
     # -- keys ------------------------------------------------------------
     @staticmethod
@@ -330,7 +340,7 @@ class Workbench:
         kinds) and kept in the exploratory cache under the data's key: a settings change never
         re-reads them."""
         def memo(key, compute):
-            value, fresh = self._cache.get_or_compute((dataset.key, "columns", key), compute)
+            value, fresh = self._columns.get_or_compute((dataset.key, "columns", key), compute)
             if fresh:
                 with self._count_lock:
                     self.compute_counts["columns"] += 1

@@ -179,6 +179,10 @@ class PreparedCohort:
         ``selection.baseline`` plus ``x``, ``stratum`` and ``stratum_label``.
     """
 
+    #: (not a field) the selection is a cache entry of its own: memory estimates of a cached
+    #: cohort leave it out (``analysis.pipeline.deep_nbytes``)
+    _cached_apart = ("selection",)
+
     selection: CohortSelection
     strata: Strata
     x: np.ndarray | None
@@ -491,6 +495,16 @@ def stratify(selection: CohortSelection, settings: Settings) -> PreparedCohort:
                           baseline=base, warnings=tuple(warnings), settings=settings)
 
 
+def _small_ints(codes: np.ndarray) -> np.ndarray:
+    """Integer codes (-1 and up) in the smallest signed type that holds them (the same values;
+    a million rows of a few categories keep 1 MB instead of 8)."""
+    top = int(codes.max(initial=0))
+    for kind in (np.int8, np.int16, np.int32):
+        if top <= np.iinfo(kind).max:
+            return codes.astype(kind)
+    return codes
+
+
 def _text_take(labels: np.ndarray, codes: np.ndarray):
     """``labels[codes]`` (numpy indexing: -1 is the last label) as the column pandas makes of
     it: taken from a pandas text array when the labels are all text (one conversion of the
@@ -554,7 +568,8 @@ class ColumnReader:
     def category_codes(self, column: str) -> np.ndarray:
         """Integer code of each row's value (equal values, equal codes; -1 = missing)."""
         return self._memo(("codes", column),
-                          lambda: pd.factorize(self._df[column], use_na_sentinel=True)[0])
+                          lambda: _small_ints(pd.factorize(self._df[column],
+                                                           use_na_sentinel=True)[0]))
 
     def kind(self, column: str) -> str:
         """'number', 'date' or 'text' (:func:`analysis.loading.column_kind`)."""
