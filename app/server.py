@@ -116,6 +116,27 @@ def open_browser_later(url: str, delay: float = 1.0):
     return timer
 
 
+#: glibc mallopt parameter numbers (malloc.h)
+M_ARENA_MAX = -8
+
+
+def limit_allocator_arenas(arenas: int = 2) -> bool:
+    """Cap the C allocator's per-thread memory pools (glibc malloc arenas) at ``arenas``.
+
+    The server answers each callback on its own thread; glibc gives busy threads arenas of
+    their own (up to eight per core), and large tables freed in one arena are not reused by
+    another, so a 1 M-row session held a third more memory than it used. Two arenas keep the
+    peak close to what the views hold. Returns whether the allocator took the setting (False
+    where there is no glibc ``mallopt``, e.g. macOS: nothing changes there).
+    """
+    import ctypes
+
+    try:
+        return bool(ctypes.CDLL(None).mallopt(M_ARENA_MAX, int(arenas)))
+    except (OSError, AttributeError):
+        return False
+
+
 def run_server(*, data_path=None, roles: Roles | None = None, settings: Settings | None = None,
                host: str = "127.0.0.1", port: int = 8050, debug: bool = False,
                cache_mb: float = DEFAULT_CACHE_MB, verbose: bool = False,
@@ -125,6 +146,7 @@ def run_server(*, data_path=None, roles: Roles | None = None, settings: Settings
     from analysis.preparation.demo import DEMO_CSV
 
     request_logging(verbose)
+    limit_allocator_arenas()        # before the warm-up and request threads start
     if data_path is None or Path(data_path) == DEMO_CSV:
         app = create_app(roles=roles, settings=settings, cache_mb=cache_mb)
     else:
