@@ -1,7 +1,7 @@
-"""The server caps the C allocator's arenas before its threads start.
+"""The server tunes the C allocator (arenas, mmap threshold) before its threads start.
 
-Reference: the glibc manual (mallopt returns 1 on success, 0 on error; M_ARENA_MAX is -8 in
-malloc.h) and ``platform.libc_ver`` for which C library runs the tests.
+Reference: the glibc manual (mallopt returns 1 on success, 0 on error; M_ARENA_MAX is -8 and
+M_MMAP_THRESHOLD -3 in malloc.h) and ``platform.libc_ver`` for which C library runs the tests.
 """
 from __future__ import annotations
 
@@ -10,18 +10,18 @@ import platform
 from app import server
 
 
-def test_arena_cap_is_taken_by_glibc_and_harmless_elsewhere():
-    took = server.limit_allocator_arenas(2)
+def test_allocator_settings_are_taken_by_glibc_and_harmless_elsewhere():
+    took = server.tune_allocator()
     if platform.system() == "Linux" and platform.libc_ver()[0] == "glibc":
         assert took is True
     else:
         assert took is False
-    assert server.M_ARENA_MAX == -8     # glibc malloc.h
+    assert (server.M_ARENA_MAX, server.M_MMAP_THRESHOLD) == (-8, -3)     # glibc malloc.h
 
 
-def test_run_server_sets_the_cap_before_starting(monkeypatch):
+def test_run_server_tunes_the_allocator_before_starting(monkeypatch):
     order = []
-    monkeypatch.setattr(server, "limit_allocator_arenas", lambda *a: order.append("cap") or True)
+    monkeypatch.setattr(server, "tune_allocator", lambda *a: order.append("cap") or True)
     monkeypatch.setattr(server, "_warm_up", lambda ctx: order.append("warm-up"))
     monkeypatch.setattr(server.dash.Dash, "run", lambda self, **kw: order.append("run"))
     server.run_server()
