@@ -212,3 +212,20 @@ def test_subject_columns_are_what_pandas_makes_of_the_ids(ids):
         ex.cohort.strata.codes], name="stratum_label")
     pd.testing.assert_series_equal(ex.cohort.baseline["stratum_label"], labels)
     pd.testing.assert_series_equal(ex.subject_lines["stratum_label"], labels)
+
+
+@pytest.mark.parametrize("ids", ["text", "integers"])
+def test_cohort_visit_table_is_what_pandas_makes_of_the_ids(ids):
+    """``PreparedCohort.frame`` takes ids and group labels from the per-subject columns;
+    reference: the table built from numpy object arrays of ids and labels per visit."""
+    frame, roles, base = load_demo(), demo_roles(), demo_settings()
+    if ids == "integers":
+        frame["recipient_id"] = frame["recipient_id"].str.replace(r"\D", "", regex=True).astype(int)
+    cohort = Workbench().cohort(Dataset.from_frame(frame), roles, base)
+    p = cohort.panel
+    codes = cohort.strata.codes[p.codes]
+    labels = np.asarray(cohort.strata.labels + ("No value",), dtype=object)
+    expected = pd.DataFrame({"subject": np.asarray(cohort.subject_ids, dtype=object)[p.codes],
+                             "time": p.time, "response": p.y, "stratum": codes,
+                             "stratum_label": labels[codes]})
+    pd.testing.assert_frame_equal(cohort.frame, expected)

@@ -248,13 +248,14 @@ class PreparedCohort:
         """Long table in panel row order: subject, time, response, stratum, stratum_label."""
         p = self.panel
         codes = self.strata.codes[p.codes]
-        labels = np.asarray(self.strata.labels + (MISSING_LABEL,), dtype=object)
+        # ids and labels taken from the per-subject table's columns (text arrays made once):
+        # the same column as from the object arrays, without converting a string per visit
         return pd.DataFrame({
-            "subject": self.subject_ids[p.codes],
+            "subject": self.baseline["subject"].array.take(p.codes),
             "time": p.time,
             "response": p.y,
             "stratum": codes,
-            "stratum_label": labels[codes],
+            "stratum_label": self.baseline["stratum_label"].array.take(p.codes),
         })
 
 
@@ -812,12 +813,14 @@ def _followup_basis(work: pd.DataFrame, codes: np.ndarray, roles: Roles, setting
     subject; the follow-up end likewise. ``work`` and ``codes`` are in panel row order."""
     first = np.flatnonzero(np.r_[True, codes[1:] != codes[:-1]])   # codes are sorted
     scale = opt.DAYS_PER_UNIT[settings.unit] if kind == "date" else 1.0
-    raw = _days(work["time_raw"]) if kind == "date" else work["time_raw"].to_numpy(float)
-    origin = (raw - work["time"].to_numpy(float) * scale)[first]
+    # elementwise, so computed on each subject's first row only
+    lead = work.iloc[first]
+    raw = _days(lead["time_raw"]) if kind == "date" else lead["time_raw"].to_numpy(float)
+    origin = raw - lead["time"].to_numpy(float) * scale
     end = None
     if roles.followup_end:
-        fu = work["fu_end"]
-        end = (_days(fu) if kind == "date" else fu.to_numpy(float))[first]
+        fu = lead["fu_end"]
+        end = _days(fu) if kind == "date" else fu.to_numpy(float)
         if kind == "number" and np.isnan(end).any():
             miss = np.flatnonzero(np.isnan(end))
             rows = work["_row"].to_numpy()[first[miss]]
