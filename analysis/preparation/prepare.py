@@ -496,6 +496,10 @@ def stratify(selection: CohortSelection, settings: Settings) -> PreparedCohort:
                           baseline=base, warnings=tuple(warnings), settings=settings)
 
 
+#: the dtype pandas gives an object array of strings
+_INFERRED_TEXT = pd.Series(np.array(["a"], dtype=object)).dtype
+
+
 def _small_ints(codes: np.ndarray) -> np.ndarray:
     """Integer codes (-1 and up) in the smallest signed type that holds them (the same values;
     a million rows of a few categories keep 1 MB instead of 8)."""
@@ -905,12 +909,18 @@ def _coded_baseline(ordered: pd.DataFrame, df: pd.DataFrame, columns: ColumnRead
     subject = ordered["subject"].to_numpy()
     codes = columns.category_codes(c)[rows]
     present = codes >= 0
-    s, k = subject[present], codes[present]
+    if present.all():           # a column without gaps: no copies
+        s, k, at = subject, codes, rows
+    else:
+        s, k, at = subject[present], codes[present], rows[present]
     # rows are sorted by subject: a subject's first row is where the subject changes
     first = np.flatnonzero(np.r_[True, s[1:] != s[:-1]]) if s.size else np.zeros(0, np.int64)
-    picked = df[c].take(rows[present][first])
-    values = pd.Series(picked.to_numpy(dtype=float) if as_float else picked.to_numpy(),
-                       index=s[first])
+    picked = df[c].take(at[first])
+    # text as pandas reads an object array of it is kept as such (no round trip through
+    # Python strings); anything else through numpy, as before
+    values = pd.Series(picked.to_numpy(dtype=float) if as_float
+                       else picked.array if picked.dtype == _INFERRED_TEXT
+                       else picked.to_numpy(), index=s[first])
     out[c] = values.reindex(out.index)
     # a subject holds more than one distinct code exactly when two of its neighbouring rows
     # hold different codes
