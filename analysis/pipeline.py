@@ -7,8 +7,10 @@ not refit the per-subject lines or re-read the table.
 
 Stages and the settings they read (see :data:`analysis.settings.STAGE_FIELDS`)::
 
-    selection     origin, unit, window, min visits, require covariate, covariate, duplicates,
-                  date order
+    ordered       origin, unit, window, covariate, duplicates, date order (the visits kept,
+                  sorted, with each subject's baseline values: the selection before its
+                  per-subject rules)
+    selection     ordered + min visits, require covariate
     cohort        selection + transform, centring, stratifier and its cut
     subject_fits  selection
     residuals     selection + detrending (+ strata when detrending within strata)
@@ -34,6 +36,7 @@ from .jsonsafe import json_safe
 from .preparation.loading import Dataset
 from .preparation.prepare import (CohortSelection, ColumnReader, PreparedCohort, select_cohort,
                                   stratify)
+from .preparation.prepare import OrderedVisits, finish_selection, order_visits
 from .settings import COUNT_LIMITS, STAGE_FIELDS, Roles, Settings, json_key
 
 
@@ -77,7 +80,10 @@ def deep_nbytes(obj, _seen: set | None = None, _depth: int = 0) -> int:
     size = sys.getsizeof(obj)
     attrs = getattr(obj, "__dict__", None)
     if attrs is not None:
-        size += sum(deep_nbytes(v, seen, _depth + 1) for v in attrs.values())
+        # attributes that are cache entries of their own (e.g. a cohort's selection) are
+        # counted there, not again in every result that refers to them
+        apart = getattr(type(obj), "_cached_apart", ())
+        size += sum(deep_nbytes(v, seen, _depth + 1) for k, v in attrs.items() if k not in apart)
     for name in getattr(type(obj), "__slots__", ()):
         size += deep_nbytes(getattr(obj, name, None), seen, _depth + 1)
     return size
@@ -224,8 +230,9 @@ class Workbench:
         Bound on cached fitted model sets (the ``models`` stage).
     max_bytes : int or None
         Memory budget of the cached results (estimated by :func:`deep_nbytes`); three
-        quarters go to the exploratory stages, one quarter to fitted model sets. None: no
-        byte bound (the entry counts only).
+        quarters go to the exploratory stages (a quarter of that to the parsed role columns,
+        bounded on their own), one quarter to fitted model sets. None: no byte bound (the
+        entry counts only).
 
     Attributes
     ----------
@@ -237,7 +244,13 @@ class Workbench:
                  max_bytes: int | None = None):
         explore_bytes = None if max_bytes is None else max(1, max_bytes * 3 // 4)
         model_bytes = None if max_bytes is None else max(1, max_bytes - explore_bytes)
-        self._cache = ResultCache(max_entries, explore_bytes)
+        # the parsed role columns (a quarter of the exploratory share) are bounded apart from
+        # the results, so that a run of settings changes never pushes them out (a large file's
+        # dates would be parsed again)
+        column_bytes = None if explore_bytes is None else max(1, explore_bytes // 4)
+        self._columns = ResultCache(max(64, max_entries), column_bytes)
+        self._cache = ResultCache(max_entries, None if explore_bytes is None
+                                  else max(1, explore_bytes - column_bytes))
         # fitted model sets keep their data and are slow to make: a bound of their own
         self._model_cache = ResultCache(max_model_sets, model_bytes)
         self.compute_counts: Counter = Counter()
@@ -246,7 +259,7 @@ class Workbench:
     @property
     def nbytes(self) -> int:
         """Estimated memory of the cached results (0 when not bounded by bytes)."""
-        return self._cache.nbytes + self._model_cache.nbytes
+        return self._cache.nbytes + self._columns.nbytes + self._model_cache.nbytes
 
     # -- keys ------------------------------------------------------------
     @staticmethod
@@ -257,6 +270,7 @@ class Workbench:
         strata = STAGE_FIELDS["strata"]
         res = STAGE_FIELDS["residuals"] + (strata if settings.detrend_within_strata else ())
         table = {
+            "ordered": tuple(f for f in sel if f not in ("min_visits", "require_covariate")),
             "selection": sel,
             "subject_fits": sel,
             "cohort": sel + strata,
@@ -272,7 +286,7 @@ class Workbench:
     def _key(self, stage: str, dataset: Dataset, roles: Roles, settings: Settings, extra=()):
         d = settings.to_dict()
         sub = {k: d[k] for k in self.stage_fields(stage, settings)} if stage in (
-            "selection", "subject_fits", "cohort", "summaries", "residuals", "variogram",
+            "ordered", "selection", "subject_fits", "cohort", "summaries", "residuals", "variogram",
             "lagcorr", "models", "subject_lines") else d
         return (dataset.key, roles, stage, json_key(sub, 16), extra)
 
@@ -289,8 +303,17 @@ class Workbench:
     def selection(self, dataset: Dataset, roles: Roles, settings: Settings) -> CohortSelection:
         keyed = settings.only(self.stage_fields("selection", settings))
         return self._memo("selection", dataset, roles, settings,
-                          lambda: select_cohort(dataset.frame, roles, keyed,
-                                                columns=self.columns(dataset)))
+                          lambda: finish_selection(self.ordered_visits(dataset, roles, settings),
+                                                   roles, keyed))
+
+    def ordered_visits(self, dataset: Dataset, roles: Roles, settings: Settings) -> OrderedVisits:
+        """The selection's work before the per-subject rules (see
+        :func:`~analysis.preparation.prepare.order_visits`): a change of the fewest visits or of
+        requiring the covariate starts from it. Treat as read-only."""
+        keyed = settings.only(self.stage_fields("ordered", settings))
+        return self._memo("ordered", dataset, roles, settings,
+                          lambda: order_visits(dataset.frame, roles, keyed,
+                                               columns=self.columns(dataset)))
 
     def derived(self, stage: str, name: str, dataset: Dataset, roles: Roles, settings: Settings,
                 compute: Callable[[], Any]):
@@ -317,7 +340,7 @@ class Workbench:
         kinds) and kept in the exploratory cache under the data's key: a settings change never
         re-reads them."""
         def memo(key, compute):
-            value, fresh = self._cache.get_or_compute((dataset.key, "columns", key), compute)
+            value, fresh = self._columns.get_or_compute((dataset.key, "columns", key), compute)
             if fresh:
                 with self._count_lock:
                     self.compute_counts["columns"] += 1
@@ -349,7 +372,8 @@ class Workbench:
         def compute():
             cohort = self.cohort(dataset, roles, settings)
             fits = self.subject_fits(dataset, roles, settings)
-            return join_subject_lines(fits.to_frame(cohort.subject_ids), cohort)
+            # the ids as the per-subject table holds them (no conversion of each id again)
+            return join_subject_lines(fits.to_frame(cohort.baseline["subject"].array), cohort)
 
         return self._memo("subject_lines", dataset, roles, settings, compute).copy(deep=False)
 
@@ -397,8 +421,13 @@ class Workbench:
             cohort = self.cohort(dataset, roles, settings)
             fits = self.subject_fits(dataset, roles, settings)
             slopes = np.asarray(fits.slope, dtype=float)
+            # the smooth reads the selection's covariate and slopes, never the strata: kept
+            # under the subject fits' key, so a change of how groups are cut reuses it
+            smooth = self.derived("subject_fits", "slope smooth", dataset, roles, settings,
+                                  lambda: slope_smooth(cohort, slopes))
             return build_summaries(cohort, slopes,
-                                   lambda: cohort_dropout(cohort, data_cut=settings.data_cut))
+                                   lambda: cohort_dropout(cohort, data_cut=settings.data_cut),
+                                   smooth=smooth)
 
         return self._memo("summaries", dataset, roles, settings, compute)
 
@@ -431,7 +460,7 @@ def join_subject_lines(frame: pd.DataFrame, cohort: PreparedCohort) -> pd.DataFr
     stratum label, raw covariate and ``x``."""
     base = cohort.baseline
     frame["stratum"] = base["stratum"].to_numpy()
-    frame["stratum_label"] = base["stratum_label"].to_numpy()
+    frame["stratum_label"] = base["stratum_label"].array
     cov = cohort.covariate
     frame["covariate"] = (base[cov].to_numpy() if cov is not None
                           else np.full(len(frame), np.nan))
@@ -440,17 +469,35 @@ def join_subject_lines(frame: pd.DataFrame, cohort: PreparedCohort) -> pd.DataFr
     return frame
 
 
-def build_summaries(cohort: PreparedCohort, slopes: np.ndarray, dropout: Callable) -> Summaries:
-    """Stratum table and slope smooth from the per-subject slopes, and ``dropout()``."""
-    from .exploration.summaries import slope_covariate_smooth, stratum_table
-
+def _raw_covariate(cohort: PreparedCohort) -> tuple[bool, np.ndarray]:
+    """(the primary covariate is numeric, its untransformed value per subject or NaN)."""
     cov = cohort.covariate
     numeric = cov is not None and cohort.selection.covariate_kinds[cov] == "numeric"
     raw = (cohort.baseline[cov].to_numpy(float) if numeric
            else np.full(cohort.panel.n_subjects, np.nan))
+    return numeric, raw
+
+
+def slope_smooth(cohort: PreparedCohort, slopes: np.ndarray) -> pd.DataFrame:
+    """The slope-against-covariate smooth of :func:`build_summaries` (empty for a categorical
+    or absent covariate); reads only the selection's covariate and the slopes."""
+    from .exploration.summaries import slope_covariate_smooth
+
+    numeric, raw = _raw_covariate(cohort)
+    return (slope_covariate_smooth(raw, slopes) if numeric
+            else pd.DataFrame({"covariate": [], "slope_smooth": []}))
+
+
+def build_summaries(cohort: PreparedCohort, slopes: np.ndarray, dropout: Callable,
+                    smooth: pd.DataFrame | None = None) -> Summaries:
+    """Stratum table and slope smooth from the per-subject slopes, and ``dropout()``
+    (``smooth``: :func:`slope_smooth` already computed for this cohort's selection)."""
+    from .exploration.summaries import stratum_table
+
+    _, raw = _raw_covariate(cohort)
     table = stratum_table(cohort.panel, cohort.strata, raw, slopes)
-    smooth = (slope_covariate_smooth(raw, slopes) if numeric
-              else pd.DataFrame({"covariate": [], "slope_smooth": []}))
+    if smooth is None:
+        smooth = slope_smooth(cohort, slopes)
     return Summaries(table, smooth, dropout())
 
 

@@ -67,7 +67,8 @@ def calls(monkeypatch):
 
         monkeypatch.setattr(module, name, wrapper)
 
-    counted(analysis.pipeline, "select_cohort", "select")
+    # the selection stage: its per-subject rules on the cached ordered visits
+    counted(analysis.pipeline, "finish_selection", "select")
     counted(analysis.pipeline, "stratify", "stratify")
     counted(analysis.exploration.subject_fits, "fit_subject_lines", "fits")
     counted(analysis.exploration.detrend, "detrend", "detrend")

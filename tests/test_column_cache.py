@@ -47,9 +47,9 @@ def test_settings_changes_parse_each_column_once(monkeypatch):
         np.testing.assert_array_equal(got.subject_ids, ref.subject_ids)
         pd.testing.assert_frame_equal(got.attrition.to_frame(), ref.attrition.to_frame())
     # the uncached references parsed again; the workbench did not
-    # counted by hand: subject, response, time, event date, and one kind and one set of value
-    # codes per covariate
-    assert wb.compute_counts["columns"] == 4 + 2 * len(roles.covariates)
+    # counted by hand: subject, response, time, event date, the rows' (subject, time) order,
+    # the subject ids as text, and one kind and one set of value codes per covariate
+    assert wb.compute_counts["columns"] == 6 + 2 * len(roles.covariates)
     assert calls["codes"] == first["codes"] + 4
 
 
@@ -60,9 +60,9 @@ def test_a_new_date_order_parses_the_dates_again_but_not_the_ids(monkeypatch):
     wb.selection(ds, roles, base)
     n = wb.compute_counts["columns"]
     wb.selection(ds, roles, base.replace(date_order="day-first"))
-    # visit date and event date again (the order is part of their key); ids, response and
-    # covariate kinds reused
-    assert wb.compute_counts["columns"] == n + 2
+    # visit date, event date and the rows' (subject, time) order again (the date order is part
+    # of their key); ids, response and covariate kinds reused
+    assert wb.compute_counts["columns"] == n + 3
 
 
 def test_bad_event_dates_keep_their_message_and_do_not_matter_without_that_origin():
@@ -167,3 +167,65 @@ def test_categorical_baselines_from_codes_equal_grouping_the_values():
     pd.testing.assert_frame_equal(fast.baseline, grouped.baseline)
     assert fast.warnings == grouped.warnings
     assert any("'site' changes within" in w for w in fast.warnings)
+
+
+def test_per_subject_rules_start_from_the_cached_ordered_visits():
+    """Fewest visits and requiring the covariate re-run only the per-subject rules; each
+    result equals an uncached selection (reference: ``select_cohort`` on the table), also
+    after the cached ordered visits served other settings first (they are not changed)."""
+    frame, roles, base = load_demo(), demo_roles(), demo_settings()
+    wb = Workbench()
+    ds = Dataset.from_frame(frame)
+    changes = (dict(min_visits=5), dict(require_covariate=False),
+               dict(min_visits=2, require_covariate=False), {})
+    for change in changes:
+        got = wb.selection(ds, roles, base.replace(**change))
+        ref = prepare.select_cohort(frame, roles, base.replace(**change).only(
+            Workbench.stage_fields("selection", base)))
+        np.testing.assert_array_equal(got.panel.codes, ref.panel.codes)
+        np.testing.assert_array_equal(got.panel.time, ref.panel.time)
+        np.testing.assert_array_equal(got.panel.y, ref.panel.y)
+        np.testing.assert_array_equal(got.subject_ids, ref.subject_ids)
+        pd.testing.assert_frame_equal(got.baseline, ref.baseline)
+        pd.testing.assert_frame_equal(got.attrition.to_frame(), ref.attrition.to_frame())
+        np.testing.assert_array_equal(got.followup.origin, ref.followup.origin)
+        assert got.warnings == ref.warnings
+    assert wb.compute_counts["ordered"] == 1
+    assert wb.compute_counts["selection"] == len(changes)
+
+
+@pytest.mark.parametrize("ids", ["text", "integers"])
+def test_subject_columns_are_what_pandas_makes_of_the_ids(ids):
+    """The per-subject tables take their id column from a text array made once; reference:
+    pandas' own reading of the ids as a numpy object array (values and dtype)."""
+    frame, roles, base = load_demo(), demo_roles(), demo_settings()
+    if ids == "integers":
+        frame["recipient_id"] = frame["recipient_id"].str.replace(r"\D", "", regex=True).astype(int)
+    ds = Dataset.from_frame(frame)
+    wb = Workbench()
+    ex = wb.explore(ds, roles, base)
+    expected = pd.Series(np.asarray(ex.cohort.subject_ids, dtype=object), name="subject")
+    pd.testing.assert_series_equal(ex.cohort.baseline["subject"], expected)
+    pd.testing.assert_series_equal(ex.subject_lines["subject"], expected)
+    pd.testing.assert_series_equal(ex.summaries.dropout.subjects["subject"], expected)
+    labels = pd.Series(np.asarray(ex.cohort.strata.labels + ("No value",), dtype=object)[
+        ex.cohort.strata.codes], name="stratum_label")
+    pd.testing.assert_series_equal(ex.cohort.baseline["stratum_label"], labels)
+    pd.testing.assert_series_equal(ex.subject_lines["stratum_label"], labels)
+
+
+@pytest.mark.parametrize("ids", ["text", "integers"])
+def test_cohort_visit_table_is_what_pandas_makes_of_the_ids(ids):
+    """``PreparedCohort.frame`` takes ids and group labels from the per-subject columns;
+    reference: the table built from numpy object arrays of ids and labels per visit."""
+    frame, roles, base = load_demo(), demo_roles(), demo_settings()
+    if ids == "integers":
+        frame["recipient_id"] = frame["recipient_id"].str.replace(r"\D", "", regex=True).astype(int)
+    cohort = Workbench().cohort(Dataset.from_frame(frame), roles, base)
+    p = cohort.panel
+    codes = cohort.strata.codes[p.codes]
+    labels = np.asarray(cohort.strata.labels + ("No value",), dtype=object)
+    expected = pd.DataFrame({"subject": np.asarray(cohort.subject_ids, dtype=object)[p.codes],
+                             "time": p.time, "response": p.y, "stratum": codes,
+                             "stratum_label": labels[codes]})
+    pd.testing.assert_frame_equal(cohort.frame, expected)

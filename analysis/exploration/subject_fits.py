@@ -90,7 +90,8 @@ class SubjectLines:
         if subject_ids is None:
             subject = np.arange(self.n_subjects, dtype=np.int64)
         else:
-            subject = np.asarray(subject_ids)
+            subject = (subject_ids if isinstance(subject_ids, pd.api.extensions.ExtensionArray)
+                       else np.asarray(subject_ids))
             if subject.shape != (self.n_subjects,):
                 raise ValueError(f"subject_ids has {subject.size} entries, expected one per "
                                  f"subject ({self.n_subjects})")

@@ -445,7 +445,8 @@ def dropout_from_subjects(last_time, last_y, strata: Strata, *, t_max: float,
         if not math.isfinite(horizon):
             raise SettingsError(f"horizon == {horizon}, must be a finite time")
         rule = f"horizon = {plain_number(horizon, '.4g')} (chosen)"
-    ids = np.arange(m) if subject_ids is None else np.asarray(subject_ids)
+    ids = (np.arange(m) if subject_ids is None else subject_ids
+           if isinstance(subject_ids, pd.api.extensions.ExtensionArray) else np.asarray(subject_ids))
     if ids.shape != (m,):
         raise DataError(f"subject_ids has {ids.size} entries, expected one per subject ({m})")
     gap = typical_gap
@@ -460,8 +461,9 @@ def dropout_from_subjects(last_time, last_y, strata: Strata, *, t_max: float,
         pot = np.where(after, last_time, pot)
         slack = overdue_gaps * (gap if math.isfinite(gap) else 0.0)
         left = last_time < np.minimum(horizon, pot) - slack
-        status = np.where(left, LEFT_EARLY_STATUS,
-                          np.where(pot < horizon, CENSORED_STATUS, COMPLETE_STATUS))
+        # status as its index in STATUSES (counted as integers), then as text
+        status_code = np.where(left, 0, np.where(pot < horizon, 1, 2))
+        status = np.asarray(STATUSES, dtype=object)[status_code]
         times = np.where(left, last_time, np.minimum(pot, horizon))
         events = left
         status_rule = (
@@ -475,6 +477,7 @@ def dropout_from_subjects(last_time, last_y, strata: Strata, *, t_max: float,
         pot = np.full(m, np.nan)
         left = np.zeros(m, dtype=bool)
         status = np.full(m, None, dtype=object)
+        status_code = np.full(m, -1)
         times, events = last_time, np.ones(m, dtype=bool)
         status_rule = ("not classified: without calendar dates or a follow-up end column, "
                        "leaving early cannot be told apart from the end of the data")
@@ -496,12 +499,15 @@ def dropout_from_subjects(last_time, last_y, strata: Strata, *, t_max: float,
             curve.insert(0, "stratum", code)
             curves.append(curve)
         if classified:
-            count_rows.append((code, label, *(int(np.sum(sel & (status == s))) for s in STATUSES)))
+            per = np.bincount(status_code[sel], minlength=len(STATUSES))
+            count_rows.append((code, label, *(int(n) for n in per)))
     by_stratum = pd.DataFrame(rows, columns=["stratum", "label", "followup", "n", "mean", "sd",
                                              "median"])
     retention = pd.concat(curves, ignore_index=True)[list(RETENTION_COLUMNS)]
     count_table = pd.DataFrame(count_rows, columns=["stratum", "label", *STATUSES])
-    counts = ({s: int(np.sum(status == s)) for s in STATUSES} if classified else {})
+    counts = ({s: int(n) for s, n in zip(STATUSES, np.bincount(status_code,
+                                                            minlength=len(STATUSES)))}
+              if classified else {})
     profiles = profiles(last_time, int(n_time_bins))
     return Dropout(horizon=float(horizon), horizon_rule=rule, classified=classified,
                    typical_gap=gap, status_rule=status_rule,
@@ -518,7 +524,7 @@ def cohort_dropout(cohort, *, data_cut: str | None = None, horizon: float | None
     pot, source, notes = (basis.potential(data_cut=data_cut, time_max=cohort.settings.time_max)
                           if basis is not None else (None, "", ()))
     return dropout_summary(cohort.panel, cohort.strata, horizon=horizon,
-                           subject_ids=cohort.subject_ids, potential_followup=pot,
+                           subject_ids=cohort.baseline["subject"].array, potential_followup=pot,
                            followup_source=source, notes=notes, time_unit=cohort.settings.unit)
 
 

@@ -13,6 +13,7 @@ Two steps, cached separately by the pipeline:
 """
 from __future__ import annotations
 
+import copy
 from dataclasses import dataclass
 
 import numpy as np
@@ -178,6 +179,10 @@ class PreparedCohort:
         ``selection.baseline`` plus ``x``, ``stratum`` and ``stratum_label``.
     """
 
+    #: (not a field) the selection is a cache entry of its own: memory estimates of a cached
+    #: cohort leave it out (``analysis.pipeline.deep_nbytes``)
+    _cached_apart = ("selection",)
+
     selection: CohortSelection
     strata: Strata
     x: np.ndarray | None
@@ -243,13 +248,14 @@ class PreparedCohort:
         """Long table in panel row order: subject, time, response, stratum, stratum_label."""
         p = self.panel
         codes = self.strata.codes[p.codes]
-        labels = np.asarray(self.strata.labels + (MISSING_LABEL,), dtype=object)
+        # ids and labels taken from the per-subject table's columns (text arrays made once):
+        # the same column as from the object arrays, without converting a string per visit
         return pd.DataFrame({
-            "subject": self.subject_ids[p.codes],
+            "subject": self.baseline["subject"].array.take(p.codes),
             "time": p.time,
             "response": p.y,
             "stratum": codes,
-            "stratum_label": labels[codes],
+            "stratum_label": self.baseline["stratum_label"].array.take(p.codes),
         })
 
 
@@ -293,6 +299,38 @@ def select_cohort(df: pd.DataFrame, roles: Roles, settings: Settings, *,
     SettingsError
         A setting that does not fit the data (e.g. origin 'as-is' with a date column).
     """
+    ordered = order_visits(df, roles, settings, tracker=tracker, columns=columns)
+    return finish_selection(ordered, roles, settings)
+
+
+@dataclass(frozen=True, eq=False)
+class OrderedVisits:
+    """:func:`select_cohort`'s work before the per-subject rules (baseline covariate present,
+    fewest visits): the visits kept so far in (subject, time) order, each subject's baseline
+    values and the inclusion steps counted. It does not depend on ``min_visits`` or
+    ``require_covariate``, so a cache keeps it across changes of those two (treat as read-only).
+    """
+
+    work: pd.DataFrame
+    base: pd.DataFrame
+    covariate_kinds: dict
+    primary: str | None
+    warnings: tuple[str, ...]
+    labels: np.ndarray
+    time_kind: str
+    latest: float
+    tracker: "_Tracker"
+    #: ``labels`` as a pandas text array when they are all text (None otherwise), so that a
+    #: table of subjects takes its ids from it instead of converting Python strings each time
+    label_text: "pd.api.extensions.ExtensionArray | None" = None
+
+
+def order_visits(df: pd.DataFrame, roles: Roles, settings: Settings, *,
+                 tracker: type | None = None,
+                 columns: "ColumnReader | None" = None) -> OrderedVisits:
+    """The first part of :func:`select_cohort` (same parameters): validation, time origin, the
+    row-level inclusion steps, the sort and each subject's baseline values. Reads every
+    selection setting except ``min_visits`` and ``require_covariate``."""
     _check_columns(df, roles, settings)
     columns = columns or ColumnReader(df)
     # positions, not labels: a filtered or re-indexed table must line up row by row
@@ -302,13 +340,18 @@ def select_cohort(df: pd.DataFrame, roles: Roles, settings: Settings, *,
     if settings.stratify_by and settings.stratify_by not in covariates:
         covariates = (*covariates, settings.stratify_by)
 
-    work = pd.DataFrame({"_row": np.arange(len(df), dtype=np.int64)})
     sid, labels = columns.subject_codes(roles.subject)
-    work["subject"] = sid                       # rank of the subject's label; -1 = missing
-    # the parsed columns keep the table's own index: assigned by position
-    work["response"] = columns.numeric(roles.response, "response").to_numpy()
     time_kind, time_raw = columns.time_column(roles.time, "time", settings.date_order)
-    work["time_raw"] = time_raw.to_numpy()
+    # the rows in (subject, raw time, row) order, kept per data and roles: the anchored time
+    # rises with the raw time within a subject, so the sort below usually finds them in order
+    order = columns.visit_order(roles.subject, roles.time, "time", settings.date_order,
+                                sid, time_raw)
+    # labelled by their row position, as a table in row order would be
+    work = pd.DataFrame({"_row": order}, index=pd.Index(order))
+    work["subject"] = sid[order]                # rank of the subject's label; -1 = missing
+    # the parsed columns keep the table's own index: assigned by position
+    work["response"] = columns.numeric(roles.response, "response").to_numpy()[order]
+    work["time_raw"] = time_raw.to_numpy()[order]
     if settings.origin == "as-is" and time_kind == "date":
         raise SettingsError(
             f"column '{clip(roles.time)}' holds dates, so time since an origin must be computed: "
@@ -316,15 +359,15 @@ def select_cohort(df: pd.DataFrame, roles: Roles, settings: Settings, *,
             field="origin")
     if settings.origin == "event-date":
         work["event"] = columns.time_values(roles.event_date, "event date", time_kind,
-                                            settings.date_order).to_numpy()
+                                            settings.date_order).to_numpy()[order]
     if roles.followup_end:
         work["fu_end"] = columns.time_values(roles.followup_end, "follow-up end", time_kind,
-                                             settings.date_order).to_numpy()
+                                             settings.date_order).to_numpy()[order]
     latest = float(_days(work["time_raw"]).max()) if time_kind == "date" else np.nan
     if settings.duplicates == "average":
         # averaged visits keep each covariate's first non-missing value among their rows
         for c in covariates:
-            work[f"cov:{c}"] = df[c].to_numpy()
+            work[f"cov:{c}"] = df[c].to_numpy()[order]
 
     tracker = (tracker or _Tracker)(work["subject"].to_numpy())
     keep = (work["subject"] >= 0) & work["response"].notna() & work["time_raw"].notna()
@@ -350,8 +393,10 @@ def select_cohort(df: pd.DataFrame, roles: Roles, settings: Settings, *,
                        f"{settings.unit}",
                        work["subject"].to_numpy())
 
-    # one sort by (subject, time); every later step keeps this order
-    work = work.iloc[np.lexsort((work["time"].to_numpy(), work["subject"].to_numpy()))]
+    # one sort by (subject, time), ties in row order; every later step keeps this order
+    sub, t, row = work["subject"].to_numpy(), work["time"].to_numpy(), work["_row"].to_numpy()
+    if not _in_visit_order(sub, t, row):
+        work = work.iloc[np.lexsort((row, t, sub))]
     work = _handle_duplicates(work, roles, settings, labels)
     if settings.duplicates == "average":
         tracker.record("Repeated visits at the same time averaged", work["subject"].to_numpy())
@@ -359,23 +404,44 @@ def select_cohort(df: pd.DataFrame, roles: Roles, settings: Settings, *,
     warnings: list[str] = []
     kinds = {c: ("numeric" if columns.kind(c) == "number" else "categorical") for c in covariates}
     base = _baseline_values(work, covariates, kinds, warnings, labels, df=df, columns=columns)
+    return OrderedVisits(work=work, base=base, covariate_kinds=kinds, primary=primary,
+                         warnings=tuple(warnings), labels=labels, time_kind=time_kind,
+                         latest=latest, tracker=tracker,
+                         label_text=columns.subject_text(roles.subject, labels))
 
+
+def finish_selection(ordered: OrderedVisits, roles: Roles, settings: Settings) -> CohortSelection:
+    """The second part of :func:`select_cohort`: the per-subject rules (baseline covariate
+    present, fewest visits), the panel and the per-subject table. ``ordered`` is not changed."""
+    work, base, kinds, primary = ordered.work, ordered.base, ordered.covariate_kinds, ordered.primary
+    labels, time_kind, latest = ordered.labels, ordered.time_kind, ordered.latest
+    warnings = list(ordered.warnings)
+    tracker = ordered.tracker.copy()
+    # both rules keep or drop whole subjects: counted on the subject codes, applied at once
+    sub = work["subject"].to_numpy()
+    kept = np.ones(sub.size, dtype=bool)
     if primary and settings.require_covariate:
-        has = base.index[base[primary].notna()].to_numpy()
-        work = work[np.isin(work["subject"].to_numpy(), has)]
-        tracker.record(f"Baseline {clip(primary)} present", work["subject"].to_numpy())
+        has = np.zeros(len(labels), dtype=bool)
+        has[base.index[base[primary].notna()].to_numpy()] = True
+        kept = has[sub]
+        tracker.record(f"Baseline {clip(primary)} present", sub[kept])
 
-    n_visits = np.bincount(work["subject"].to_numpy(), minlength=len(labels))
-    work = work[n_visits[work["subject"].to_numpy()] >= settings.min_visits]
+    n_visits = np.bincount(sub[kept], minlength=len(labels))
+    kept &= n_visits[sub] >= settings.min_visits
     tracker.record(f"At least {settings.min_visits} visit{'s' if settings.min_visits > 1 else ''}",
-                   work["subject"].to_numpy())
+                   sub[kept])
+    work = work[kept]
 
-    ranks, codes = np.unique(work["subject"].to_numpy(), return_inverse=True)
+    # rows are sorted by subject: the distinct subjects and their codes from where it changes
+    sub = sub[kept]
+    change = np.r_[True, sub[1:] != sub[:-1]]
+    ranks, codes = sub[change], np.cumsum(change) - 1
     panel = Panel.from_codes(codes, work["time"].to_numpy(float), work["response"].to_numpy(float))
     ids = labels[ranks]
     baseline = base.reindex(ranks)
     baseline.index.name = None
-    baseline.insert(0, "subject", ids)
+    baseline.insert(0, "subject", ids if ordered.label_text is None
+                    else ordered.label_text.take(ranks))
     baseline = baseline.reset_index(drop=True)
     baseline["n_visits"] = panel.counts
     baseline["first_time"] = panel.time[panel.starts]
@@ -424,10 +490,34 @@ def stratify(selection: CohortSelection, settings: Settings) -> PreparedCohort:
         strata = categorical_strata(base[by].to_numpy(object), name=by)
     labels = np.asarray(tuple(strata.labels) + (MISSING_LABEL,), dtype=object)
     base["stratum"] = strata.codes
-    base["stratum_label"] = labels[strata.codes]
+    base["stratum_label"] = _text_take(labels, strata.codes)
     warnings.extend(getattr(strata, "notes", ()))
     return PreparedCohort(selection=selection, strata=strata, x=x, center_value=center_value,
                           baseline=base, warnings=tuple(warnings), settings=settings)
+
+
+#: the dtype pandas gives an object array of strings
+_INFERRED_TEXT = pd.Series(np.array(["a"], dtype=object)).dtype
+
+
+def _small_ints(codes: np.ndarray) -> np.ndarray:
+    """Integer codes (-1 and up) in the smallest signed type that holds them (the same values;
+    a million rows of a few categories keep 1 MB instead of 8)."""
+    top = int(codes.max(initial=0))
+    for kind in (np.int8, np.int16, np.int32):
+        if top <= np.iinfo(kind).max:
+            return codes.astype(kind)
+    return codes
+
+
+def _text_take(labels: np.ndarray, codes: np.ndarray):
+    """``labels[codes]`` (numpy indexing: -1 is the last label) as the column pandas makes of
+    it: taken from a pandas text array when the labels are all text (one conversion of the
+    few labels instead of one per row)."""
+    inferred = pd.Series(labels)
+    if isinstance(inferred.dtype, pd.StringDtype):
+        return inferred.array.take(np.asarray(codes, dtype=np.int64))
+    return labels[codes]
 
 
 # --------------------------------------------------------------------------- column parsing
@@ -462,10 +552,29 @@ class ColumnReader:
         return self._memo(("time values", column, role, kind, order),
                           lambda: _time_values(self._df[column], column, role, kind, order))
 
+    def subject_text(self, column: str, labels: np.ndarray):
+        """The distinct subject ``labels`` (:meth:`subject_codes`) as a pandas text array when
+        pandas reads them as text, else None (taking from it gives the column a table of
+        those labels would get)."""
+        def compute():
+            inferred = pd.Series(labels)
+            return inferred.array if isinstance(inferred.dtype, pd.StringDtype) else None
+
+        return self._memo(("subject text", column), compute)
+
+    def visit_order(self, subject: str, time: str, role: str, order: str,
+                    codes: np.ndarray, raw: pd.Series) -> np.ndarray:
+        """Row positions sorted by subject code, then raw time (missing last), then row: a
+        stable sort by (subject, raw time); ``codes`` and ``raw`` are those columns as this
+        reader parsed them (:meth:`subject_codes`, :meth:`time_column`)."""
+        return self._memo(("visit order", subject, time, role, order),
+                          lambda: np.lexsort((raw.to_numpy(), codes)).astype(np.int64))
+
     def category_codes(self, column: str) -> np.ndarray:
         """Integer code of each row's value (equal values, equal codes; -1 = missing)."""
         return self._memo(("codes", column),
-                          lambda: pd.factorize(self._df[column], use_na_sentinel=True)[0])
+                          lambda: _small_ints(pd.factorize(self._df[column],
+                                                           use_na_sentinel=True)[0]))
 
     def kind(self, column: str) -> str:
         """'number', 'date' or 'text' (:func:`analysis.loading.column_kind`)."""
@@ -493,6 +602,12 @@ class _Tracker:
 
     def result(self) -> Attrition:
         return Attrition(tuple(self._steps))
+
+    def copy(self) -> "_Tracker":
+        """The same counter with its own list of steps (recording on it leaves this one)."""
+        twin = copy.copy(self)
+        twin._steps = list(self._steps)
+        return twin
 
 
 def _check_columns(df: pd.DataFrame, roles: Roles, settings: Settings) -> None:
@@ -648,6 +763,15 @@ def _time_values(s: pd.Series, column: str, role: str, kind: str, order: str) ->
     return read_dates(s, order=order, column=column, role=role)
 
 
+def _in_visit_order(subject: np.ndarray, time: np.ndarray, row: np.ndarray) -> bool:
+    """Whether the rows are sorted by subject, then time, then row (what a stable sort by
+    (subject, time) of a table in row order gives)."""
+    if subject.size < 2:
+        return True
+    ds, dt = np.diff(subject), np.diff(time)
+    return bool(np.all((ds > 0) | ((ds == 0) & ((dt > 0) | ((dt == 0) & (np.diff(row) > 0))))))
+
+
 def _check_constant_within_subject(work: pd.DataFrame, col: str, column: str, role: str,
                                    labels: np.ndarray) -> None:
     n = work.groupby("subject", sort=True)[col].nunique(dropna=True)
@@ -658,8 +782,8 @@ def _check_constant_within_subject(work: pd.DataFrame, col: str, column: str, ro
             f"column '{clip(column)}' ({role}) must be the same on every row of a subject; it "
             f"varies for {len(varying)} subject(s), e.g. "
             f"{', '.join(map(clip, labels[varying[:3]]))} "
-            f"({row_list(first['_row'].to_numpy())})",
-            column=column, positions=first["_row"].to_numpy()[:20])
+            f"({row_list(np.sort(first['_row'].to_numpy()))})",
+            column=column, positions=np.sort(first["_row"].to_numpy())[:20])
 
 
 def _anchor(work: pd.DataFrame, settings: Settings, kind: str) -> np.ndarray:
@@ -691,14 +815,16 @@ def _followup_basis(work: pd.DataFrame, codes: np.ndarray, roles: Roles, setting
                     kind: str, latest: float, labels: np.ndarray) -> FollowupBasis:
     """Per-subject origin (time column's scale) = raw time minus anchored time, first row of each
     subject; the follow-up end likewise. ``work`` and ``codes`` are in panel row order."""
-    first = np.unique(codes, return_index=True)[1]
+    first = np.flatnonzero(np.r_[True, codes[1:] != codes[:-1]])   # codes are sorted
     scale = opt.DAYS_PER_UNIT[settings.unit] if kind == "date" else 1.0
-    raw = _days(work["time_raw"]) if kind == "date" else work["time_raw"].to_numpy(float)
-    origin = (raw - work["time"].to_numpy(float) * scale)[first]
+    # elementwise, so computed on each subject's first row only
+    lead = work.iloc[first]
+    raw = _days(lead["time_raw"]) if kind == "date" else lead["time_raw"].to_numpy(float)
+    origin = raw - lead["time"].to_numpy(float) * scale
     end = None
     if roles.followup_end:
-        fu = work["fu_end"]
-        end = (_days(fu) if kind == "date" else fu.to_numpy(float))[first]
+        fu = lead["fu_end"]
+        end = _days(fu) if kind == "date" else fu.to_numpy(float)
         if kind == "number" and np.isnan(end).any():
             miss = np.flatnonzero(np.isnan(end))
             rows = work["_row"].to_numpy()[first[miss]]
@@ -743,7 +869,10 @@ def _baseline_values(work: pd.DataFrame, covariates, kinds, warnings: list,
     ``work`` (as ``cov:NAME``) is read from ``df`` at the rows ``work['_row']``, a categorical
     one through its integer codes (``columns.category_codes``)."""
     ordered = work
-    out = pd.DataFrame(index=pd.Index(np.unique(ordered["subject"].to_numpy())))
+    subject = ordered["subject"].to_numpy()
+    # sorted by subject: the distinct codes are where it changes
+    out = pd.DataFrame(index=pd.Index(subject[np.r_[True, subject[1:] != subject[:-1]]]
+                                      if subject.size else np.unique(subject)))
     for c in covariates:
         col = f"cov:{c}"
         plain_numbers = (pd.api.types.is_numeric_dtype(df[c])
@@ -780,18 +909,23 @@ def _coded_baseline(ordered: pd.DataFrame, df: pd.DataFrame, columns: ColumnRead
     subject = ordered["subject"].to_numpy()
     codes = columns.category_codes(c)[rows]
     present = codes >= 0
-    s, k = subject[present], codes[present]
+    if present.all():           # a column without gaps: no copies
+        s, k, at = subject, codes, rows
+    else:
+        s, k, at = subject[present], codes[present], rows[present]
     # rows are sorted by subject: a subject's first row is where the subject changes
     first = np.flatnonzero(np.r_[True, s[1:] != s[:-1]]) if s.size else np.zeros(0, np.int64)
-    picked = df[c].take(rows[present][first])
-    values = pd.Series(picked.to_numpy(dtype=float) if as_float else picked.to_numpy(),
-                       index=s[first])
+    picked = df[c].take(at[first])
+    # text as pandas reads an object array of it is kept as such (no round trip through
+    # Python strings); anything else through numpy, as before
+    values = pd.Series(picked.to_numpy(dtype=float) if as_float
+                       else picked.array if picked.dtype == _INFERRED_TEXT
+                       else picked.to_numpy(), index=s[first])
     out[c] = values.reindex(out.index)
-    # distinct (subject, code) pairs as one integer each
-    width = int(k.max(initial=0)) + 1
-    pairs = pd.unique(s.astype(np.int64) * width + k)
-    n = np.bincount(pairs // width)
-    varying = np.flatnonzero(n > 1)
+    # a subject holds more than one distinct code exactly when two of its neighbouring rows
+    # hold different codes
+    differs = s[1:][(s[1:] == s[:-1]) & (k[1:] != k[:-1])]
+    varying = differs[np.r_[True, differs[1:] != differs[:-1]]] if differs.size else differs
     if len(varying):
         warnings.append(
             f"baseline covariate '{clip(c)}' changes within {len(varying)} subject(s) "
