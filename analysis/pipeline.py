@@ -34,7 +34,7 @@ import pandas as pd
 from .errors import SettingsError
 from .jsonsafe import json_safe
 from .preparation.loading import Dataset
-from .preparation.prepare import (CohortSelection, ColumnReader, PreparedCohort, select_cohort,
+from .preparation.prepare import (CohortSelection, ColumnReader, PreparedCohort,
                                   stratify)
 from .preparation.prepare import OrderedVisits, finish_selection, order_visits
 from .settings import COUNT_LIMITS, STAGE_FIELDS, Roles, Settings, json_key
