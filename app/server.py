@@ -119,12 +119,24 @@ def open_browser_later(url: str, delay: float = 1.0):
 def run_server(*, data_path=None, roles: Roles | None = None, settings: Settings | None = None,
                host: str = "127.0.0.1", port: int = 8050, debug: bool = False,
                cache_mb: float = DEFAULT_CACHE_MB, verbose: bool = False,
-               open_browser: bool = False) -> None:
+               open_browser: bool = False, engine: str = "memory",
+               scheduler: str | None = None) -> None:
     """Serve the dashboard until interrupted (loopback only unless ``host`` says otherwise);
-    quiet unless ``verbose``; ``open_browser`` opens the page in the default browser."""
+    quiet unless ``verbose``; ``open_browser`` opens the page in the default browser.
+    ``engine="dask"``: ``data_path`` is a partitioned Parquet dataset analysed on the Dask
+    cluster at ``scheduler`` (or a local one sized to this machine)."""
     from analysis.preparation.demo import DEMO_CSV
 
     request_logging(verbose)
+    if engine == "dask":
+        from analysis.cluster.run import page_workbench
+
+        with page_workbench(data_path, roles, scheduler, memory=_memory_workbench(cache_mb)) \
+                as wb:
+            app = create_app(dataset=wb.dataset, roles=roles, settings=settings, workbench=wb,
+                             cache_mb=cache_mb)
+            _serve(app, host, port, debug, open_browser)
+        return
     if data_path is None or Path(data_path) == DEMO_CSV:
         app = create_app(roles=roles, settings=settings, cache_mb=cache_mb)
     else:
@@ -133,6 +145,16 @@ def run_server(*, data_path=None, roles: Roles | None = None, settings: Settings
             print(f"cohortlens: {renamed_note(renamed)}")
         app = create_app(dataset=Dataset.from_frame(frame, name=Path(data_path).name),
                          roles=roles, settings=settings, cache_mb=cache_mb)
+    _serve(app, host, port, debug, open_browser)
+
+
+def _memory_workbench(cache_mb: float) -> Workbench:
+    """The in-memory Workbench with the results' half of ``cache_mb`` (as create_app makes)."""
+    budget = int(cache_mb * 2**20)
+    return Workbench(max_entries=128, max_bytes=max(1, budget - budget // 2))
+
+
+def _serve(app, host, port, debug, open_browser) -> None:
     _warm_up(app._cohortlens)
     if host not in ("127.0.0.1", "localhost", "::1"):
         print(f"cohortlens: WARNING binding {host}: other computers on the network can reach "
