@@ -101,6 +101,9 @@ def finish(make, what: str, key: str, shape: tuple[str, ...]):
     if value is not None:
         return (*value, "", key)
     waiting = isinstance(err, (NeedsInput, NotOnCluster))   # said in the view itself
+    if isinstance(err, NotOnCluster):                       # a long note: in lines
+        import textwrap
+        message = "<br>".join(textwrap.wrap(message, 72))
     fig = empty_figure(message if waiting else "This view cannot be drawn with the current choices.")
     blank = {"fig": fig, "text": "", "list": []}
     return (*(blank[k] for k in shape), "" if waiting else message, key)

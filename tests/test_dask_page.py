@@ -21,6 +21,7 @@ from analysis.cluster.workbench import ClusterWorkbench, cluster_dataset  # noqa
 from analysis.errors import NotOnCluster, SettingsError  # noqa: E402
 from analysis.jsonsafe import json_safe  # noqa: E402
 from analysis.models.modelstage import ModelChoices  # noqa: E402
+from analysis.output.overview import cohort_overview  # noqa: E402
 from analysis.pipeline import Workbench  # noqa: E402
 from analysis.preparation.demo import DEMO_CSV, demo_roles, demo_settings  # noqa: E402
 from analysis.preparation.loading import Dataset, read_table  # noqa: E402
@@ -79,6 +80,9 @@ def test_stage_results_equal_the_in_memory_page(pages, changes):
     assert got.strata.to_frame().equals(ref.strata.to_frame())
     assert (got.panel.n_subjects, got.panel.n_obs) == (ref.panel.n_subjects, ref.panel.n_obs)
     np.testing.assert_array_equal(got.strata.codes, ref.strata.codes)
+    # the summary strip's cohort line (follow-up from each subject's last visit)
+    assert mismatches(_plain(cohort_overview(ref).to_json()),
+                      _plain(cohort_overview(got).to_json())) == []
     got, ref = _both(pages, "subject_lines", **changes)
     assert len(ref) > 500                     # one row per subject: the whole cohort compared
     assert mismatches(_plain(json_safe(ref.to_dict(orient="records"))),
@@ -142,7 +146,8 @@ def test_views_that_read_every_visit_say_so(pages):
     fig, note, message, _ = finish(
         lambda: course_base(ctx, cohort, cohort_look(cohort), data, roles, settings),
         "drawing courses", "k", ("fig", "text"))
-    assert "stay on the Dask workers" in str(fig.to_plotly_json()) and message == ""
+    shown = fig.to_plotly_json()["layout"]["annotations"][0]["text"].replace("<br>", " ")
+    assert "stay on the Dask workers" in shown and message == ""
     with pytest.raises(NotOnCluster, match="model checks"):
         _models(ctx, {"data": data, "roles": roles, "settings": settings,
                       "choices": ModelChoices().to_dict()})

@@ -50,8 +50,13 @@ VISITS_NOTE = ("{what} reads every visit at once; with --engine dask the visits 
 
 
 class VisitsOnWorkers(SubjectCounts):
-    """The page's stand-in for a Panel: visit counts per subject; asking for the visits
-    themselves (times, responses, codes ...) says that they stay on the workers."""
+    """The page's stand-in for a Panel: visit counts and last visit times per subject; asking
+    for the visits themselves (times, responses, codes ...) says that they stay on the
+    workers."""
+
+    def __init__(self, counts: np.ndarray, last_times: np.ndarray):
+        super().__init__(counts)
+        self.last_times = np.asarray(last_times, dtype=float)
 
     def __getattr__(self, name):
         if name.startswith("_"):
@@ -139,7 +144,7 @@ class ClusterWorkbench:
         def compute():
             cc = ClusterCohort(self.client, self.dataset.source, roles, settings)
             # the page's cohort: visit counts only, and a clear note for anything per visit
-            cc.selection = replace(cc.selection, panel=VisitsOnWorkers(cc.counts))
+            cc.selection = replace(cc.selection, panel=VisitsOnWorkers(cc.counts, cc.last_time))
             return cc
 
         return self._memo(self._cohorts, self._key("selection", roles, settings), "prepare",
