@@ -131,8 +131,9 @@ def run_server(*, data_path=None, roles: Roles | None = None, settings: Settings
     if engine == "dask":
         from analysis.cluster.run import page_workbench
 
-        with page_workbench(data_path, roles, scheduler, memory=_memory_workbench(cache_mb)) \
-                as wb:
+        budget = int(cache_mb * 2**20)
+        with page_workbench(data_path, roles, scheduler, memory=_memory_workbench(cache_mb),
+                            max_bytes=max(1, budget - budget // 2)) as wb:
             app = create_app(dataset=wb.dataset, roles=roles, settings=settings, workbench=wb,
                              cache_mb=cache_mb)
             _serve(app, host, port, debug, open_browser)

@@ -33,9 +33,10 @@ def cluster_cohort(data, roles, settings, scheduler=None, **local):
 
 
 @contextmanager
-def page_workbench(data, roles, scheduler=None, *, memory, **local):
+def page_workbench(data, roles, scheduler=None, *, memory, max_bytes=None, **local):
     """The page's :class:`~analysis.cluster.workbench.ClusterWorkbench` for ``data`` on a
-    client closed after use; ``memory`` (a Workbench) analyses uploads in this process."""
+    client closed after use; ``memory`` (a Workbench) analyses uploads in this process;
+    ``max_bytes`` bounds the cluster results cached on the client."""
     from analysis.cluster.engine import open_client
     from analysis.cluster.workbench import ClusterWorkbench, cluster_dataset
 
@@ -43,7 +44,7 @@ def page_workbench(data, roles, scheduler=None, *, memory, **local):
     client = open_client(scheduler, **local)
     try:
         dataset = cluster_dataset(client, data, roles.subject if roles is not None else None)
-        yield ClusterWorkbench(client, dataset, memory)
+        yield ClusterWorkbench(client, dataset, memory, max_bytes=max_bytes)
     finally:
         cluster = client.cluster if not scheduler else None
         client.close()

@@ -102,15 +102,17 @@ def cluster_dataset(client, source, subject: str | None) -> ClusterDataset:
 
 class ClusterWorkbench:
     """The page's Workbench for one partitioned dataset on a Dask client (see the module
-    docstring); ``memory`` analyses every other table (uploads) in this process."""
+    docstring); ``memory`` analyses every other table (uploads) in this process.
+    ``max_bytes`` bounds the cluster's cached results on the client (per-subject tables and
+    aggregates; estimated as the Workbench does), None: the entry counts only."""
 
     def __init__(self, client, dataset: ClusterDataset, memory: Workbench,
-                 keep_cohorts: int = KEEP_COHORTS):
+                 keep_cohorts: int = KEEP_COHORTS, max_bytes: int | None = None):
         self.client = client
         self.dataset = dataset
         self.memory = memory
         self._cohorts = ResultCache(max_entries=keep_cohorts)
-        self._results = ResultCache(max_entries=64)
+        self._results = ResultCache(max_entries=64, max_bytes=max_bytes)
         self._models = ResultCache(max_entries=4)
         self.compute_counts: Counter = Counter()
         self._count_lock = threading.Lock()
