@@ -131,6 +131,12 @@ def run_server(*, data_path=None, roles: Roles | None = None, settings: Settings
     if engine == "dask":
         from analysis.cluster.run import page_workbench
 
+        if not verbose:      # the scheduler's and workers' start-up lines only with --verbose
+            try:
+                import distributed  # noqa: F401 - sets its loggers' levels when imported
+            except ImportError:     # open_client says how to install it
+                pass
+            logging.getLogger("distributed").setLevel(logging.WARNING)
         budget = int(cache_mb * 2**20)
         with page_workbench(data_path, roles, scheduler, memory=_memory_workbench(cache_mb),
                             max_bytes=max(1, budget - budget // 2)) as wb:

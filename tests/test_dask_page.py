@@ -188,3 +188,15 @@ def test_serve_engine_dask_refuses_a_single_file_and_the_default_page_skips_dask
                           env={**__import__("os").environ, "PYTHONPATH": str(ROOT)})
     assert proc.returncode == 0, proc.stderr[-2000:]
     assert proc.stdout.strip() == "[]"
+
+
+def test_the_data_section_counts_the_whole_dataset(client, pages):
+    """Rows and subjects of every partition (the page's frame is a sample of the first);
+    reference: pandas on the whole table."""
+    (ctx, wb, stores), _ = pages
+    frame = read_table(DEMO_CSV)
+    assert len(wb.dataset.frame) < len(frame)
+    assert (wb.dataset.n_rows, wb.dataset.n_subjects) == (len(frame),
+                                                          frame["recipient_id"].nunique())
+    bare = cluster_dataset(client, wb.dataset.source, None)     # roles not chosen yet
+    assert (bare.n_rows, bare.n_subjects, bare.key) == (len(frame), 0, wb.dataset.key)
