@@ -7,6 +7,8 @@ statsmodels, scipy and brute force in the other test files.
 """
 from __future__ import annotations
 
+import base64
+import json
 import subprocess
 import sys
 from pathlib import Path
@@ -131,21 +133,46 @@ def test_subject_card_fetches_the_rows_on_demand(pages):
     assert str(_card(mctx, *stores(memory), subject)) == card     # the same card as in memory
 
 
+@pytest.mark.parametrize("subject,stratum", [(None, None), ("R00017", None)])
+def test_courses_equal_the_in_memory_page(pages, subject, stratum):
+    """The courses view: the same drawn subjects with their visits fetched from the workers,
+    and the group means summed on the workers; reference: the in-memory page's figure
+    (group_means over every visit, the panel's rows), every number to 1e-8 relative."""
+    from app.sections.courses import draw_courses
+
+    (ctx, wb, stores), (mctx, memory, _) = pages
+    got_fig, got_note = draw_courses(ctx, *stores(wb.dataset), subject, stratum, 12, 3)
+    ref_fig, ref_note = draw_courses(mctx, *stores(memory), subject, stratum, 12, 3)
+    assert got_note == ref_note
+    def decoded(tree):      # plotly's typed arrays ({"dtype", "bdata"}) as plain lists
+        if isinstance(tree, dict) and "bdata" in tree and "dtype" in tree:
+            return np.frombuffer(base64.b64decode(tree["bdata"]), dtype=tree["dtype"]).tolist()
+        if isinstance(tree, dict):
+            return {k: decoded(v) for k, v in tree.items()}
+        if isinstance(tree, list):
+            return [decoded(v) for v in tree]
+        return tree
+
+    def plain(fig):
+        return decoded(json.loads(json.dumps(fig.to_plotly_json(),
+                                             default=lambda a: a.tolist())))
+
+    got, ref = plain(got_fig), plain(ref_fig)
+    assert sum(len(t.get("x") or []) for t in ref["data"]) > 100   # lines and means drawn
+    assert mismatches(ref, got) == []
+
+
 def test_views_that_read_every_visit_say_so(pages):
-    """Courses over time (every visit) and the model checks: a note in the view, no
-    traceback; a lowess trend is refused by the residual views only."""
+    """The model checks and the plan read every visit: a note, no traceback; a lowess trend
+    is refused by the residual views only."""
     from app.sections.checks import _models
-    from app.sections.courses import course_base
-    from app.figures import cohort_look
 
     (ctx, wb, stores), _ = pages
     data, roles, settings = stores(wb.dataset)
     cohort = stage_call(ctx, "cohort", data, roles, settings)
     with pytest.raises(NotOnCluster, match="stay on the Dask workers"):
-        course_base(ctx, cohort, cohort_look(cohort), data, roles, settings)
-    fig, note, message, _ = finish(
-        lambda: course_base(ctx, cohort, cohort_look(cohort), data, roles, settings),
-        "drawing courses", "k", ("fig", "text"))
+        cohort.frame                                   # noqa: B018 - every visit
+    fig, note, message, _ = finish(lambda: cohort.frame, "drawing", "k", ("fig", "text"))
     shown = fig.to_plotly_json()["layout"]["annotations"][0]["text"].replace("<br>", " ")
     assert "stay on the Dask workers" in shown and message == ""
     with pytest.raises(NotOnCluster, match="model checks"):

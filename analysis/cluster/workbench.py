@@ -12,9 +12,11 @@ page's process; the visits stay on the workers.
   of groups, detrending, bins or windows reuses them.
 * The exploratory results come from one :meth:`ClusterCohort.explore` per combination of the
   settings they read (bins, lag window, detrending, groups, data cut): a change of any of them
-  runs the two passes over the partitions again (the in-memory bench re-bins only).
-* A result that reads every visit at once (the page's courses, the model checks, the next-study
-  plan, a view's table of every visit) raises :class:`~analysis.errors.NotOnCluster`, which
+  runs the two passes over the partitions again (the in-memory Workbench re-bins only).
+* The courses over time: the drawn subjects' visits are fetched from their partitions and the
+  group means summed per (group, time bin) on the workers (:func:`cluster_group_means`).
+* A result that reads every visit at once (the model checks, the next-study plan, a view's
+  table of every visit) raises :class:`~analysis.errors.NotOnCluster`, which
   the page shows in that view; a subject card fetches its subject's visits on demand
   (:meth:`subject_visits`).
 * Any other table (an upload on the page) is analysed in memory by the ordinary Workbench.
@@ -276,3 +278,87 @@ class ClusterWorkbench:
             raise DataError(f"subject {clip(subject)} is not in the analysed cohort")
         rows = cc.subject_rows(ids[hit[0]])
         return rows[["time", "response"]].reset_index(drop=True)
+
+
+# --------------------------------------------------------------------------- courses over time
+def _course_sums(part, subject_codes, edges, size):
+    """Per (group, time bin) of one partition: visits, time sum and response sum (the sums
+    :func:`analysis.exploration.summaries.group_means` makes over every visit)."""
+    from analysis.exploration.lagbins import edge_bin
+
+    if part.selection is None:
+        return np.zeros(size), np.zeros(size), np.zeros(size)
+    p = part.panel
+    t, y = np.asarray(p.time, dtype=float), np.asarray(p.y, dtype=float)
+    code = np.asarray(subject_codes, dtype=np.int64)[p.codes]
+    ok = np.isfinite(t) & np.isfinite(y) & (code >= 0)
+    nb = edges.size - 1
+    key = code[ok] * nb + edge_bin(t[ok], edges)
+    return (np.bincount(key, minlength=size).astype(float),
+            np.bincount(key, weights=t[ok], minlength=size),
+            np.bincount(key, weights=y[ok], minlength=size))
+
+
+def cluster_group_means(wb: ClusterWorkbench, roles, settings, strata, *, n_bins=None,
+                        min_visits=None) -> pd.DataFrame:
+    """:func:`~analysis.exploration.summaries.group_means` of every analysed visit, from the
+    partitions' sums per (group, time bin) over the cohort's time range."""
+    from analysis.exploration.lagbins import equal_width_edges
+    from analysis.exploration.summaries import MEAN_BINS, MEAN_MIN_VISITS
+    from analysis.preparation.strata import MISSING_LABEL
+
+    n_bins = MEAN_BINS if n_bins is None else n_bins
+    min_visits = MEAN_MIN_VISITS if min_visits is None else min_visits
+    cc = wb.prepared(roles, settings)
+    cohort = cc.cohort(settings)
+    labels = np.asarray(tuple(cohort.strata.labels) + (MISSING_LABEL,), dtype=object)
+    own = labels[np.asarray(cohort.strata.codes)].astype(str)
+    codes = pd.Categorical(own, categories=list(strata)).codes.astype(np.int64)
+    edges = equal_width_edges(cc.tmin, cc.tmax, n_bins)
+    nb = edges.size - 1
+    size = len(strata) * nb
+    sums = wb.client.gather([wb.client.submit(_course_sums, part, c, edges, size, pure=False)
+                             for part, c in zip(cc._live(), cc.per_part(codes))])
+    n = sum(s[0] for s in sums).astype(np.int64)
+    st = sum(s[1] for s in sums)
+    sy = sum(s[2] for s in sums)
+    cell = np.flatnonzero(n >= max(int(min_visits), 1))
+    cols = ["stratum_label", "bin", "time", "response", "visits"]
+    return pd.DataFrame({
+        "stratum_label": np.asarray(strata, dtype=object)[cell // nb],
+        "bin": cell % nb,
+        "time": st[cell] / n[cell],
+        "response": sy[cell] / n[cell],
+        "visits": n[cell],
+    }, columns=cols)
+
+
+def cluster_visits_of(wb: ClusterWorkbench, roles, settings, chosen) -> pd.DataFrame:
+    """Every analysed visit of the ``chosen`` subjects (ids as text), fetched from the
+    partitions holding them: subject (text), time, response, stratum, stratum_label, in
+    subject order then time (the rows ``cohort.frame`` has for them)."""
+    from analysis.cluster import tasks
+    from analysis.preparation.strata import MISSING_LABEL
+
+    cc = wb.prepared(roles, settings)
+    cohort = cc.cohort(settings)
+    ids = np.asarray(cc.selection.subject_ids)
+    index = pd.Index(ids.astype(str))
+    code = index.get_indexer(np.asarray(chosen, dtype=str))
+    code = np.sort(code[code >= 0])
+    live = cc._live()
+    where = cc.part_of[code]
+    futures = [wb.client.submit(tasks.part_rows, live[int(i)], list(ids[code[where == i]]),
+                                pure=False) for i in np.unique(where)]
+    cols = ["subject", "time", "response", "stratum", "stratum_label"]
+    if not futures:
+        return pd.DataFrame(columns=cols)
+    rows = pd.concat(wb.client.gather(futures), ignore_index=True)
+    rows["subject"] = rows["subject"].astype(str)
+    own = index.get_indexer(rows["subject"].to_numpy())
+    rows = rows.iloc[np.argsort(own, kind="stable")].reset_index(drop=True)
+    strata = np.asarray(cohort.strata.codes)[np.sort(own)]
+    labels = np.asarray(tuple(cohort.strata.labels) + (MISSING_LABEL,), dtype=object)
+    rows["stratum"] = strata
+    rows["stratum_label"] = labels[strata]
+    return rows[cols]
