@@ -65,6 +65,22 @@ def pages(client, tmp_path_factory):
     return (dask_app._cohortlens, wb, stores), (memory_app._cohortlens, memory, stores)
 
 
+def _decoded(tree):
+    """Plotly's typed arrays ({"dtype", "bdata"}) as plain lists, everywhere in a tree."""
+    if isinstance(tree, dict) and "bdata" in tree and "dtype" in tree:
+        return np.frombuffer(base64.b64decode(tree["bdata"]), dtype=tree["dtype"]).tolist()
+    if isinstance(tree, dict):
+        return {k: _decoded(v) for k, v in tree.items()}
+    if isinstance(tree, list):
+        return [_decoded(v) for v in tree]
+    return tree
+
+
+def _figure_values(fig) -> dict:
+    """A figure as plain JSON with every number as a number (for :func:`mismatches`)."""
+    return _decoded(json.loads(json.dumps(fig.to_plotly_json(), default=lambda a: a.tolist())))
+
+
 def _both(pages, name, **changes):
     (ctx, wb, stores), (mctx, memory, _) = pages
     return (stage_call(ctx, name, *stores(wb.dataset, **changes)),
@@ -144,20 +160,7 @@ def test_courses_equal_the_in_memory_page(pages, subject, stratum):
     got_fig, got_note = draw_courses(ctx, *stores(wb.dataset), subject, stratum, 12, 3)
     ref_fig, ref_note = draw_courses(mctx, *stores(memory), subject, stratum, 12, 3)
     assert got_note == ref_note
-    def decoded(tree):      # plotly's typed arrays ({"dtype", "bdata"}) as plain lists
-        if isinstance(tree, dict) and "bdata" in tree and "dtype" in tree:
-            return np.frombuffer(base64.b64decode(tree["bdata"]), dtype=tree["dtype"]).tolist()
-        if isinstance(tree, dict):
-            return {k: decoded(v) for k, v in tree.items()}
-        if isinstance(tree, list):
-            return [decoded(v) for v in tree]
-        return tree
-
-    def plain(fig):
-        return decoded(json.loads(json.dumps(fig.to_plotly_json(),
-                                             default=lambda a: a.tolist())))
-
-    got, ref = plain(got_fig), plain(ref_fig)
+    got, ref = _figure_values(got_fig), _figure_values(ref_fig)
     assert sum(len(t.get("x") or []) for t in ref["data"]) > 100   # lines and means drawn
     assert mismatches(ref, got) == []
 
@@ -227,3 +230,32 @@ def test_the_data_section_counts_the_whole_dataset(client, pages):
                                                           frame["recipient_id"].nunique())
     bare = cluster_dataset(client, wb.dataset.source, None)     # roles not chosen yet
     assert (bare.n_rows, bare.n_subjects, bare.key) == (len(frame), 0, wb.dataset.key)
+
+
+def test_the_fit_button_report_and_summary_strip_on_the_cluster(pages):
+    """What the page shows after Fit: the fitted-semivariogram figure equal to the in-memory
+    page's (reference) to 1e-8, the GEE rows' absence said in the notes, the effect in the
+    summary strip and the report written from the page; confounders refused with a message."""
+    import html as html_lib
+
+    from analysis.errors import CohortError
+    from app.sections.models import fit_outputs, report_text
+    from app.sections.summary import strip_children
+
+    (ctx, wb, stores), (mctx, memory, _) = pages
+    got = fit_outputs(ctx, *stores(wb.dataset), ["intercept"], None, None, [], None)
+    ref = fit_outputs(mctx, *stores(memory), ["intercept"], None, None, [], None)
+    fig_got, fig_ref = _figure_values(got["fig"]), _figure_values(ref["fig"])
+    assert len(fig_ref["data"]) >= 2 and mismatches(fig_ref, fig_got) == []
+    assert "GEE rows are not computed" in str(got["summary"])
+    # the summary strip with the effect: as the in-memory page shows it (reference)
+    strip = str(strip_children(ctx, *stores(wb.dataset), got["snapshot"]))
+    assert strip == str(strip_children(mctx, *stores(memory), ref["snapshot"]))
+    effect = wb.models(*ctx.inputs(*stores(wb.dataset)),
+                       ModelChoices.from_dict(got["snapshot"]["choices"])).effect
+    assert "Preferred" in strip and "refit under Models" not in strip
+    name, text = report_text(ctx, *stores(wb.dataset), got["snapshot"])
+    assert name.endswith(".html")
+    assert html_lib.escape(effect.statement) in text or effect.statement in text
+    with pytest.raises(CohortError, match="not available yet"):
+        fit_outputs(ctx, *stores(wb.dataset), ["intercept"], None, None, ["centre"], None)
