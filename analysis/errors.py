@@ -43,6 +43,11 @@ class ModelError(CohortError):
     """A model cannot be fitted as asked (too few subjects, no variation, singular design)."""
 
 
+class NotOnCluster(CohortError):
+    """A result that reads every visit at once, asked of a cohort whose visits stay on Dask
+    workers (``serve --engine dask``); the page shows the message in the view."""
+
+
 def row_list(rows, limit: int = 5) -> str:
     """'rows 2, 5, 9 and 3 more' from 0-based data-row positions (spreadsheet numbering)."""
     rows = [int(r) + 2 for r in rows]

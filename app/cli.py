@@ -52,6 +52,7 @@ def build_parser() -> argparse.ArgumentParser:
                        help="memory budget of uploaded tables plus cached results, half each; "
                             "least recently used dropped first [1024]")
     _add_settings(serve)
+    _add_engine(serve)
 
     summ = _data_command(sub, "summarize", "write every exploratory number as JSON")
     summ.add_argument("--json", required=True, metavar="OUT", help="output file ('-' = stdout)")
@@ -525,7 +526,7 @@ def cmd_serve(args) -> int:
     data, roles, settings = resolve(args)
     run_server(data_path=data, roles=roles, settings=settings, host=args.host, port=args.port,
                debug=args.debug, cache_mb=cache_mb, verbose=args.verbose,
-               open_browser=args.open_browser)
+               open_browser=args.open_browser, engine=args.engine, scheduler=args.scheduler)
     return 0
 
 

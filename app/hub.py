@@ -287,7 +287,11 @@ def _show_dataset(context: AppContext, key: str, roles, out: dict, name: str | N
     subjects = ""
     if roles is not None:
         subjects = f", {dataset.frame[roles.subject].nunique():,} subjects"
-    out["data_name"] = (f"{short(name)}: {len(dataset.frame):,} rows, "
+    n_rows = getattr(dataset, "n_rows", 0) or len(dataset.frame)
+    if getattr(dataset, "n_rows", 0):            # a Dask-served dataset: frame is a sample
+        subjects = f", {dataset.n_subjects:,} subjects" if dataset.n_subjects else ""
+        subjects += " (partitioned Parquet on a Dask cluster; preview of the first file)"
+    out["data_name"] = (f"{short(name)}: {n_rows:,} rows, "
                         f"{dataset.frame.shape[1]} columns{subjects}")
     out["role_options"] = {r: options for r in ids.ROLE_FIELDS}
     out["roles"] = ctl.role_values(roles)

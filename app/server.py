@@ -148,13 +148,32 @@ def tune_allocator(arenas: int = 2, mmap_threshold: int = MMAP_THRESHOLD_BYTES) 
 def run_server(*, data_path=None, roles: Roles | None = None, settings: Settings | None = None,
                host: str = "127.0.0.1", port: int = 8050, debug: bool = False,
                cache_mb: float = DEFAULT_CACHE_MB, verbose: bool = False,
-               open_browser: bool = False) -> None:
+               open_browser: bool = False, engine: str = "memory",
+               scheduler: str | None = None) -> None:
     """Serve the dashboard until interrupted (loopback only unless ``host`` says otherwise);
-    quiet unless ``verbose``; ``open_browser`` opens the page in the default browser."""
+    quiet unless ``verbose``; ``open_browser`` opens the page in the default browser.
+    ``engine="dask"``: ``data_path`` is a partitioned Parquet dataset analysed on the Dask
+    cluster at ``scheduler`` (or a local one sized to this machine)."""
     from analysis.preparation.demo import DEMO_CSV
 
     request_logging(verbose)
     tune_allocator()                # before the warm-up and request threads start
+    if engine == "dask":
+        from analysis.cluster.run import page_workbench
+
+        if not verbose:      # the scheduler's and workers' start-up lines only with --verbose
+            try:
+                import distributed  # noqa: F401 - sets its loggers' levels when imported
+            except ImportError:     # open_client says how to install it
+                pass
+            logging.getLogger("distributed").setLevel(logging.WARNING)
+        budget = int(cache_mb * 2**20)
+        with page_workbench(data_path, roles, scheduler, memory=_memory_workbench(cache_mb),
+                            max_bytes=max(1, budget - budget // 2)) as wb:
+            app = create_app(dataset=wb.dataset, roles=roles, settings=settings, workbench=wb,
+                             cache_mb=cache_mb)
+            _serve(app, host, port, debug, open_browser)
+        return
     if data_path is None or Path(data_path) == DEMO_CSV:
         app = create_app(roles=roles, settings=settings, cache_mb=cache_mb)
     else:
@@ -163,6 +182,16 @@ def run_server(*, data_path=None, roles: Roles | None = None, settings: Settings
             print(f"cohortlens: {renamed_note(renamed)}")
         app = create_app(dataset=Dataset.from_frame(frame, name=Path(data_path).name),
                          roles=roles, settings=settings, cache_mb=cache_mb)
+    _serve(app, host, port, debug, open_browser)
+
+
+def _memory_workbench(cache_mb: float) -> Workbench:
+    """The in-memory Workbench with the results' half of ``cache_mb`` (as create_app makes)."""
+    budget = int(cache_mb * 2**20)
+    return Workbench(max_entries=128, max_bytes=max(1, budget - budget // 2))
+
+
+def _serve(app, host, port, debug, open_browser) -> None:
     _warm_up(app._cohortlens)
     if host not in ("127.0.0.1", "localhost", "::1"):
         print(f"cohortlens: WARNING binding {host}: other computers on the network can reach "

@@ -13,6 +13,7 @@ import json
 from dash import Input, Output, State, dcc
 from dash.exceptions import PreventUpdate
 
+from analysis.errors import NotOnCluster
 from analysis.pipeline import Workbench
 from analysis.settings import json_key
 
@@ -68,6 +69,14 @@ def stage_call(context, name, data, roles, settings):
     return getattr(context.workbench, name)(dataset, r, s)
 
 
+def refuse_on_cluster(context, dataset, what: str) -> None:
+    """Raise NotOnCluster when ``dataset`` is served from a Dask cluster and the view ``what``
+    reads every visit (``serve --engine dask``); nothing on the single-machine page."""
+    refuse = getattr(context.workbench, "refuse_visit_view", None)
+    if refuse is not None:
+        refuse(dataset, what)
+
+
 def summary_inputs(context, data, roles, settings):
     """Subject lines, stratum summaries and the cohort (all cached stages)."""
     return (stage_call(context, "subject_lines", data, roles, settings),
@@ -99,7 +108,10 @@ def finish(make, what: str, key: str, shape: tuple[str, ...]):
     value, message, err = attempt(make, what=what)
     if value is not None:
         return (*value, "", key)
-    waiting = isinstance(err, NeedsInput)
+    waiting = isinstance(err, (NeedsInput, NotOnCluster))   # said in the view itself
+    if isinstance(err, NotOnCluster):                       # a long note: in lines
+        import textwrap
+        message = "<br>".join(textwrap.wrap(message, 72))
     fig = empty_figure(message if waiting else "This view cannot be drawn with the current choices.")
     blank = {"fig": fig, "text": "", "list": []}
     return (*(blank[k] for k in shape), "" if waiting else message, key)

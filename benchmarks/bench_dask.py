@@ -3,6 +3,13 @@
     python benchmarks/bench_dask.py                 # 1e5 and 1e6 rows
     python benchmarks/bench_dask.py --with-1e7      # also 1e7 rows (minutes; a big machine)
     python benchmarks/bench_dask.py --sizes 200000  # chosen sizes only
+    python benchmarks/bench_dask.py --sizes 10000000 # 1e7 only, added to the stored runs
+    python benchmarks/bench_dask.py --table          # the stored runs, nothing run
+
+Every run is kept in ``results.json`` beside the generated data (one entry per engine, task,
+size and worker count; a new run of the same configuration replaces it), and the table, the
+cost per added row and the crossover are computed from every stored run, so that the slow
+10^7 configurations need running once only.
 
 A cohort is generated on disk once per size (invented: irregular visits, a random intercept
 and slope, a numeric marker) as one Parquet file (read by the in-memory engine) and as 16
@@ -109,6 +116,57 @@ def run_one(engine: str, task: str, rows: int, workers: int) -> dict:
             "seconds": seconds, "start_seconds": started, "client_mb": own, "worker_mb": worker_peaks}
 
 
+def stored() -> list[dict]:
+    path = DATA / "results.json"
+    return json.loads(path.read_text()) if path.exists() else []
+
+
+def store(result: dict) -> None:
+    same = ("engine", "task", "rows", "workers")
+    kept = [r for r in stored() if any(r[k] != result[k] for k in same)]
+    DATA.mkdir(parents=True, exist_ok=True)
+    (DATA / "results.json").write_text(json.dumps(kept + [result], indent=1))
+
+
+def line(r: dict) -> str:
+    peak = (f"{r['client_mb']:.0f} MB" if r["engine"] == "memory" else
+            " / ".join(f"{v:.0f}" for v in r["worker_mb"]) + " MB per worker"
+            + f", client {r['client_mb']:.0f} MB")
+    return (f"{r['task']:9s} {r['rows']:>10,} rows  {r['engine']:6s} "
+            f"{'' if r['engine'] == 'memory' else str(r['workers']) + ' worker(s)':11s} "
+            f"{r['seconds']:7.1f} s ({r['start_seconds']:4.1f} s starting the cluster)   "
+            f"peak {peak}")
+
+
+def report(results: list[dict], tasks) -> None:
+    """The stored runs, the cost of each added row between sizes, and the crossovers."""
+    results = sorted(results, key=lambda r: (r["task"], r["rows"], r["engine"] != "memory",
+                                             r["workers"]))
+    for r in results:
+        print(line(r))
+    for task in tasks:
+        for engine, w in (("memory", 0), ("dask", 1), ("dask", 2)):
+            pts = sorted((r["rows"], r["seconds"], r["worker_mb"] or [r["client_mb"]])
+                         for r in results if r["task"] == task and r["engine"] == engine
+                         and r["workers"] == w)
+            for (n0, t0, m0), (n1, t1, m1) in zip(pts, pts[1:]):
+                print(f"growth {task:9s} {engine:6s} {w} worker(s) {n0:>10,} -> {n1:>10,} rows: "
+                      f"{1e6 * (t1 - t0) / (n1 - n0):6.1f} us and "
+                      f"{1024 * (max(m1) - max(m0)) / (n1 - n0):5.2f} KB (largest process) "
+                      "per added row")
+    for task in tasks:
+        mem = [(r["rows"], r["seconds"]) for r in results
+               if r["task"] == task and r["engine"] == "memory"]
+        for w in (1, 2):
+            dk = [(r["rows"], r["seconds"]) for r in results
+                  if r["task"] == task and r["engine"] == "dask" and r["workers"] == w]
+            x = crossover(mem, dk)
+            print(f"crossover {task}, {w} worker(s): " + (
+                "needs runs at two sizes or more" if min(len(mem), len(dk)) < 2 else
+                f"about {x:,.0f} rows" if x else "none in time (the cluster's cost per row is "
+                "not lower on this machine)"))
+
+
 def crossover(points_mem, points_dask) -> float | None:
     """Rows where the straight time lines (a + b·rows) of the two engines meet (None if they
     do not meet at a positive size)."""
@@ -127,6 +185,8 @@ def main() -> None:
                     help="rows per generated cohort, comma-separated [100000,1000000]")
     ap.add_argument("--with-1e7", action="store_true", help="also 10,000,000 rows")
     ap.add_argument("--tasks", default="summarize,fit")
+    ap.add_argument("--table", action="store_true",
+                    help="print the stored runs (results.json) without running anything")
     ap.add_argument("--one", nargs=4, metavar=("ENGINE", "TASK", "ROWS", "WORKERS"),
                     help=argparse.SUPPRESS)
     args = ap.parse_args()
@@ -137,10 +197,13 @@ def main() -> None:
     sizes = [int(float(s)) for s in args.sizes.split(",") if s]
     if args.with_1e7:
         sizes.append(10_000_000)
-    results = []
+    tasks = args.tasks.split(",")
+    if args.table:
+        report(stored(), tasks)
+        return
     for rows in sizes:
         generate(rows)
-        for task in args.tasks.split(","):
+        for task in tasks:
             for engine, workers in (("memory", 0), ("dask", 1), ("dask", 2)):
                 proc = subprocess.run([sys.executable, __file__, "--one", engine, task,
                                        str(rows), str(workers)], capture_output=True, text=True,
@@ -149,24 +212,10 @@ def main() -> None:
                     print(proc.stderr[-3000:], file=sys.stderr)
                     continue
                 r = json.loads(proc.stdout.strip().splitlines()[-1])
-                results.append(r)
-                peak = (f"{r['client_mb']:.0f} MB" if engine == "memory" else
-                        " / ".join(f"{v:.0f}" for v in r["worker_mb"]) + " MB per worker")
-                print(f"{task:9s} {rows:>10,} rows  {engine:6s} "
-                      f"{'' if engine == 'memory' else f'{workers} worker(s)':11s} "
-                      f"{r['seconds']:7.1f} s "
-                      f"({r['start_seconds']:4.1f} s starting the cluster)   peak {peak}",
-                      flush=True)
-    for task in args.tasks.split(","):
-        mem = [(r["rows"], r["seconds"]) for r in results
-               if r["task"] == task and r["engine"] == "memory"]
-        for w in (1, 2):
-            dk = [(r["rows"], r["seconds"]) for r in results
-                  if r["task"] == task and r["engine"] == "dask" and r["workers"] == w]
-            x = crossover(mem, dk)
-            print(f"crossover {task}, {w} worker(s): "
-                  + (f"about {x:,.0f} rows" if x else "none in time (the cluster's cost per "
-                     "row is not lower on this machine)"))
+                store(r)
+                print(line(r), flush=True)
+    print()
+    report(stored(), tasks)
 
 
 if __name__ == "__main__":

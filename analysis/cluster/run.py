@@ -32,6 +32,26 @@ def cluster_cohort(data, roles, settings, scheduler=None, **local):
             cluster.close()
 
 
+@contextmanager
+def page_workbench(data, roles, scheduler=None, *, memory, max_bytes=None, **local):
+    """The page's :class:`~analysis.cluster.workbench.ClusterWorkbench` for ``data`` on a
+    client closed after use; ``memory`` (a Workbench) analyses uploads in this process;
+    ``max_bytes`` bounds the cluster results cached on the client."""
+    from analysis.cluster.engine import open_client
+    from analysis.cluster.workbench import ClusterWorkbench, cluster_dataset
+
+    _check_source(data)
+    client = open_client(scheduler, **local)
+    try:
+        dataset = cluster_dataset(client, data, roles.subject if roles is not None else None)
+        yield ClusterWorkbench(client, dataset, memory, max_bytes=max_bytes)
+    finally:
+        cluster = client.cluster if not scheduler else None
+        client.close()
+        if cluster is not None:
+            cluster.close()
+
+
 def summarize_payload(data, roles, settings, scheduler=None, **local) -> dict:
     """The ``summarize`` JSON computed on a Dask cluster."""
     with cluster_cohort(data, roles, settings, scheduler, **local) as cc:

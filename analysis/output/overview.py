@@ -106,6 +106,9 @@ class AnswerOverview:
 
 def last_visit_times(panel) -> np.ndarray:
     """Time of each subject's last visit (rows are time-sorted within subject)."""
+    known = getattr(panel, "last_times", None)   # a Dask-served cohort: kept per subject
+    if known is not None:
+        return np.asarray(known, dtype=float)
     if panel.n_subjects == 0:
         return np.empty(0)
     return np.asarray(panel.time)[panel.starts + panel.counts - 1]

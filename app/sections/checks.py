@@ -18,6 +18,7 @@ from analysis.models.checks import checks_for
 from analysis.models.modelstage import ModelChoices
 
 from .. import ids
+from ..views import refuse_on_cluster
 from ..components import graph, message, section
 from ..figures import CHECK_POINTS, CHECK_SEED, check_figures, cohort_look
 from ..session import AppContext, attempt
@@ -71,6 +72,7 @@ def layout(settings=None, max_upload_bytes=None) -> html.Section:
 
 def _models(context: AppContext, snapshot: dict):
     dataset, r, s = context.inputs(snapshot["data"], snapshot["roles"], snapshot["settings"])
+    refuse_on_cluster(context, dataset, "The model checks (residuals of every visit)")
     wb = context.workbench
     return (wb.models(dataset, r, s, ModelChoices.from_dict(snapshot["choices"])),
             wb.cohort(dataset, r, s))

@@ -50,18 +50,30 @@ def register(app, context: AppContext) -> None:
         skip_if_same(key, last)
 
         def make():
-            cohort = stage_call(context, "cohort", data, roles, settings)
-            look = cohort_look(cohort)
-            frame, means, per, firsts, index = course_base(context, cohort, look, data, roles,
-                                                           settings)
-            chosen, k, n = sample_subjects(frame, per_stratum=n_draw, seed=seed, keep=subject,
-                                           firsts=firsts)
-            shown = frame.iloc[subject_rows(cohort, chosen, index)]
-            fig = courses_figure(shown, full=frame, look=look, highlight_subject=subject,
-                                 highlight_stratum=stratum, means=means, subjects_per=per)
-            return fig, f"{k} of {n} subjects drawn (sample {seed}); means use every subject."
+            return draw_courses(context, data, roles, settings, subject, stratum, n_draw, seed)
 
         return finish(make, "drawing courses over time", key, ("fig", "text"))
+
+
+def draw_courses(context, data, roles, settings, subject, stratum, n_draw: int,
+                 seed: int):
+    """(figure, note) of the courses view for the stores' values."""
+    cohort = stage_call(context, "cohort", data, roles, settings)
+    look = cohort_look(cohort)
+    frame, means, per, firsts, index = course_base(context, cohort, look, data, roles,
+                                                   settings)
+    chosen, k, n = sample_subjects(frame, per_stratum=n_draw, seed=seed, keep=subject,
+                                   firsts=firsts)
+    if frame is None:     # serve --engine dask: the drawn subjects' visits fetched
+        from analysis.cluster.workbench import cluster_visits_of
+
+        dataset, r, s = context.inputs(data, roles, settings)
+        frame = shown = cluster_visits_of(context.workbench, r, s, chosen)
+    else:
+        shown = frame.iloc[subject_rows(cohort, chosen, index)]
+    fig = courses_figure(shown, full=frame, look=look, highlight_subject=subject,
+                         highlight_stratum=stratum, means=means, subjects_per=per)
+    return fig, f"{k} of {n} subjects drawn (sample {seed}); means use every subject."
 
 
 def course_base(context, cohort, look: CohortLook, data, roles, settings):
@@ -86,6 +98,10 @@ def course_base(context, cohort, look: CohortLook, data, roles, settings):
         return frame, group_means(frame, strata=labels), per, firsts, index
 
     dataset, r, s = context.inputs(data, roles, settings)
+    on_cluster = getattr(context.workbench, "on_cluster", None)
+    if on_cluster is not None and on_cluster(dataset):
+        return context.workbench.derived("cohort", "course base", dataset, r, s,
+                                         lambda: cluster_course_base(context, cohort, look, r, s))
     return context.workbench.derived("cohort", "course base", dataset, r, s, compute)
 
 
@@ -107,6 +123,26 @@ def visit_frame(cohort) -> pd.DataFrame:
         "stratum_label": pd.Categorical.from_codes(
             np.where(row_codes < 0, len(names) - 1, row_codes), categories=list(names)),
     })
+
+
+def cluster_course_base(context, cohort, look: CohortLook, roles, settings):
+    """:func:`course_base` of a Dask-served cohort (``serve --engine dask``): no table of every
+    visit (None in its place); the group means are summed on the workers and the rest is
+    read from the per-subject tables."""
+    from analysis.cluster.workbench import cluster_group_means
+    from analysis.preparation.strata import MISSING_LABEL
+
+    ids_text = np.asarray(cohort.subject_ids).astype(str)
+    codes = np.asarray(cohort.strata.codes)
+    names = np.asarray(tuple(cohort.strata.labels) + (MISSING_LABEL,), dtype=object)
+    own = pd.Series(names[codes].astype(str))
+    labels = list(look.strata) or _present_strata(look, own)
+    per = pd.Series(ids_text).groupby(own.to_numpy(), sort=False).nunique()
+    firsts = pd.DataFrame({"subject": ids_text, "stratum": codes})
+    index = pd.Index(ids_text)
+    index.get_indexer(index[:1])
+    means = cluster_group_means(context.workbench, roles, settings, labels)
+    return None, means, per, firsts, index
 
 
 def subject_rows(cohort, chosen, index: pd.Index | None = None) -> np.ndarray:

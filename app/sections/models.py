@@ -259,7 +259,12 @@ def report_text(context: AppContext, data, roles, settings, snapshot: dict | Non
             models = wb.models(dataset, r, s, choices)
         else:
             choices = None
-    figures = report_figures(exploration, models, chosen=chosen, subject=subject)
+    on_cluster = getattr(wb, "on_cluster", None)
+    if on_cluster is not None and on_cluster(dataset):       # serve --engine dask
+        from ..figures import aggregate_report_figures
+        figures, plan_request = aggregate_report_figures(exploration, models), None
+    else:
+        figures = report_figures(exploration, models, chosen=chosen, subject=subject)
     # the file name this session gave its table (the shared store keeps none for uploads)
     name = (data or {}).get("name") or dataset.name
     made = plan_figure = None

@@ -22,6 +22,7 @@ from analysis.numbers import fmt
 from analysis.output.report import plan_sentences
 
 from .. import ids
+from ..views import refuse_on_cluster
 from ..components import GRAPH_CONFIG, section
 from ..figures import power_figure
 from ..session import AppContext, attempt
@@ -205,6 +206,7 @@ def make_plan(context: AppContext, request: dict):
     """(CohortPlan, time unit) for a request: cached models and cohort of the snapshot."""
     snap = request["snapshot"]
     dataset, r, s = context.inputs(snap["data"], snap["roles"], snap["settings"])
+    refuse_on_cluster(context, dataset, "The next-study plan (from the fitted model's visits)")
     wb = context.workbench
     models = wb.models(dataset, r, s, ModelChoices.from_dict(snap["choices"]))
     cohort = wb.cohort(dataset, r, s)

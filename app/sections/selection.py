@@ -56,10 +56,17 @@ def _card(context, data, roles, settings, subject):
     lines = stage_call(context, "subject_lines", data, roles, settings)
     # the subject's visits straight from the panel (no table of every visit is built)
     code = np.flatnonzero(np.asarray(cohort.subject_ids).astype(str) == str(subject))
-    p = cohort.panel
-    rows = (slice(int(p.starts[code[0]]), int(p.starts[code[0]] + p.counts[code[0]]))
-            if code.size else slice(0, 0))
-    mine = pd.DataFrame({"time": p.time[rows], "response": p.y[rows]})
+    dataset, r, s = context.inputs(data, roles, settings)
+    on_cluster = getattr(context.workbench, "on_cluster", None)
+    if on_cluster is not None and on_cluster(dataset):
+        # serve --engine dask: this subject's visits fetched from the worker holding them
+        mine = (context.workbench.subject_visits(dataset, r, s, subject) if code.size
+                else pd.DataFrame({"time": [], "response": []}))
+    else:
+        p = cohort.panel
+        rows = (slice(int(p.starts[code[0]]), int(p.starts[code[0]] + p.counts[code[0]]))
+                if code.size else slice(0, 0))
+        mine = pd.DataFrame({"time": p.time[rows], "response": p.y[rows]})
     row = lines[lines["subject"].astype(str) == str(subject)]
     if mine.empty or row.empty:
         return html.Span(f"Subject {subject} is not in the analysed cohort with these choices.",
