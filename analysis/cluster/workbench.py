@@ -36,7 +36,7 @@ from analysis.cluster.partitions import open_partitions, read_partition
 from analysis.errors import DataError, NotOnCluster, clip
 from analysis.pipeline import Exploration, ResultCache, Workbench, join_subject_lines
 from analysis.preparation.loading import Dataset
-from analysis.settings import STAGE_FIELDS, Roles, Settings, json_key
+from analysis.settings import Roles, Settings, json_key
 
 #: rows of the first partition the page shows as the table's preview and describes its
 #: columns from (the column kinds of a partitioned dataset are the same in every file)
