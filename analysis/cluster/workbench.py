@@ -304,7 +304,7 @@ def cluster_group_means(wb: ClusterWorkbench, roles, settings, strata, *, n_bins
     """:func:`~analysis.exploration.summaries.group_means` of every analysed visit, from the
     partitions' sums per (group, time bin) over the cohort's time range."""
     from analysis.exploration.lagbins import equal_width_edges
-    from analysis.exploration.summaries import MEAN_BINS, MEAN_MIN_VISITS
+    from analysis.exploration.summaries import MEAN_BINS, MEAN_MIN_VISITS, means_table
     from analysis.preparation.strata import MISSING_LABEL
 
     n_bins = MEAN_BINS if n_bins is None else n_bins
@@ -319,18 +319,8 @@ def cluster_group_means(wb: ClusterWorkbench, roles, settings, strata, *, n_bins
     size = len(strata) * nb
     sums = wb.client.gather([wb.client.submit(_course_sums, part, c, edges, size, pure=False)
                              for part, c in zip(cc._live(), cc.per_part(codes))])
-    n = sum(s[0] for s in sums).astype(np.int64)
-    st = sum(s[1] for s in sums)
-    sy = sum(s[2] for s in sums)
-    cell = np.flatnonzero(n >= max(int(min_visits), 1))
-    cols = ["stratum_label", "bin", "time", "response", "visits"]
-    return pd.DataFrame({
-        "stratum_label": np.asarray(strata, dtype=object)[cell // nb],
-        "bin": cell % nb,
-        "time": st[cell] / n[cell],
-        "response": sy[cell] / n[cell],
-        "visits": n[cell],
-    }, columns=cols)
+    return means_table(strata, nb, sum(s[0] for s in sums).astype(np.int64),
+                       sum(s[1] for s in sums), sum(s[2] for s in sums), min_visits=min_visits)
 
 
 def cluster_visits_of(wb: ClusterWorkbench, roles, settings, chosen) -> pd.DataFrame:

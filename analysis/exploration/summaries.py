@@ -657,17 +657,23 @@ def group_means(full: pd.DataFrame, *, strata, n_bins: int = MEAN_BINS,
     keep = codes >= 0
     key = codes[keep] * nb + b[keep]
     size = len(strata) * nb
-    n = np.bincount(key, minlength=size)
-    st = np.bincount(key, weights=t[keep], minlength=size)
-    sy = np.bincount(key, weights=y[keep], minlength=size)
+    return means_table(strata, nb, np.bincount(key, minlength=size),
+                       np.bincount(key, weights=t[keep], minlength=size),
+                       np.bincount(key, weights=y[keep], minlength=size), min_visits=min_visits)
+
+
+def means_table(strata, n_bins: int, n, sum_t, sum_y, *,
+                min_visits: int = MEAN_MIN_VISITS) -> pd.DataFrame:
+    """:func:`group_means`'s table from its sums per (group, time bin) cell, laid out group by
+    group (``cell = group * n_bins + bin``): visits ``n``, sums of time and of response."""
     cell = np.flatnonzero(n >= max(int(min_visits), 1))
     return pd.DataFrame({
-        "stratum_label": np.asarray(strata, dtype=object)[cell // nb],
-        "bin": cell % nb,
-        "time": st[cell] / n[cell],
-        "response": sy[cell] / n[cell],
+        "stratum_label": np.asarray(strata, dtype=object)[cell // n_bins],
+        "bin": cell % n_bins,
+        "time": sum_t[cell] / n[cell],
+        "response": sum_y[cell] / n[cell],
         "visits": n[cell],
-    }, columns=cols)
+    }, columns=["stratum_label", "bin", "time", "response", "visits"])
 
 
 def visit_counts(lines: pd.DataFrame, *, strata) -> pd.DataFrame:
