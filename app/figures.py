@@ -42,10 +42,8 @@ from analysis.exploration.digest import thin_steps
 from . import palette as pal
 from .text import short
 
-#: the page draws with plotly.js's cartesian bundle (assets/vendor: scatter, bar, box, heatmap
-#: and kin, a third of the full library's size to load on every page opening), which has no
-#: WebGL traces: every figure uses SVG traces. Above SUMMARY_SUBJECTS subjects the views draw
-#: summaries, so a figure never holds more points than an SVG plot draws smoothly.
+#: above this many points in one group, subject lines/points use WebGL traces
+GL_POINTS = 1500
 #: readable on a projector
 FONT = {"family": "DejaVu Sans, Segoe UI, Roboto, Helvetica, Arial, sans-serif",
         "size": 15, "color": "#1b1f24"}
@@ -711,7 +709,10 @@ def courses_figure(shown: pd.DataFrame, *, full: pd.DataFrame, look: CohortLook,
     hl_rows = None if hl is None else full[_is_subject(full["subject"], hl)]
     hover = (f"subject %{{customdata}}<br>%{{x:.1f}} {look.time_unit}: %{{y:.1f}}"
              f" {look.response_unit}<extra></extra>")
-    kind = go.Scatter
+    # WebGL traces are painted above SVG ones, so once the subject lines need WebGL,
+    # the mean and the highlighted subject use it too (and stay on top)
+    biggest = int(shown["stratum_label"].value_counts().max()) if len(shown) else 0
+    kind = go.Scattergl if biggest > GL_POINTS else go.Scatter
     for i, lab in enumerate(labels):
         row, col = i // ncol + 1, i % ncol + 1
         colour = look.colour(lab)
@@ -813,7 +814,9 @@ def intervals_figure(lines: pd.DataFrame, *, look: CohortLook, order: str = "slo
     df = interval_layout(lines, strata=look.strata, order=order)
     no_slope = int(len(lines) - len(df))
     many = len(df) > 300
-    kind = go.Scatter
+    # WebGL traces are painted above SVG ones: every trace here, the highlight included,
+    # uses the same kind so the drawing order is the trace order
+    kind = go.Scattergl if many else go.Scatter
     fig = go.Figure()
     labels = [s for s in look.strata if s in set(df["stratum_label"])] + sorted(
         set(df["stratum_label"]) - set(look.strata))
@@ -921,7 +924,7 @@ def slope_vs_covariate_figure(lines: pd.DataFrame, smooth: pd.DataFrame | None, 
                             title=f"Subject slope against {name}")
     log_axis = look.transform.startswith("log") and bool((df["covariate"] > 0).all())
     fig = go.Figure()
-    kind = go.Scatter
+    kind = go.Scattergl if len(df) > GL_POINTS else go.Scatter   # one kind: order = trace order
     for lab in _present_strata(look, df["stratum_label"]):
         g = df[df["stratum_label"].astype(str) == lab]
         strength = _strength(look, lab, highlight_stratum)
@@ -1136,7 +1139,7 @@ def residual_scatter_figure(checks, *, look: CohortLook, against: str = "fitted"
     x_title = (f"population fitted value, {look.response_label}" if col == "fitted"
                else look.time_label)
     fig = go.Figure()
-    kind = go.Scatter
+    kind = go.Scattergl if len(shown) > GL_POINTS else go.Scatter
     fig.add_trace(kind(
         x=shown[col].to_numpy(float), y=shown["standardised"].to_numpy(float), mode="markers",
         name="visit", customdata=shown["subject"].to_numpy(dtype=object),
@@ -1178,7 +1181,7 @@ def residual_qq_figure(checks, *, look: CohortLook, highlight_subject=None,
     rows = thin_quantiles(v["score"].to_numpy(float), limit)
     shown = v.iloc[rows]
     fig = go.Figure()
-    kind = go.Scatter
+    kind = go.Scattergl if len(shown) > GL_POINTS else go.Scatter
     fig.add_trace(kind(
         x=shown["score"].to_numpy(float), y=shown["standardised"].to_numpy(float),
         mode="markers", name="visit", customdata=shown["subject"].to_numpy(dtype=object),
