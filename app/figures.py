@@ -706,7 +706,7 @@ def courses_figure(shown: pd.DataFrame, *, full: pd.DataFrame, look: CohortLook,
     if means is None:
         means = group_means(full, strata=labels, n_bins=n_bins)
     hl = None if highlight_subject is None else str(highlight_subject)
-    hl_rows = None if hl is None else full[_is_subject(full["subject"], hl)]
+    hl_rows = None if hl is None else full.iloc[_highlight_rows(full, hl)]
     hover = (f"subject %{{customdata}}<br>%{{x:.1f}} {look.time_unit}: %{{y:.1f}}"
              f" {look.response_unit}<extra></extra>")
     # WebGL traces are painted above SVG ones, so once the subject lines need WebGL,
@@ -1115,9 +1115,10 @@ def _sample_note(shown: int, total: int, what: str = "visits") -> str:
 
 
 def _highlight_rows(frame: pd.DataFrame, highlight_subject) -> np.ndarray:
+    """Positions of ``highlight_subject``'s rows in ``frame`` (none when it is None)."""
     if highlight_subject is None:
         return np.empty(0, dtype=int)
-    return np.flatnonzero(frame["subject"].to_numpy() == str(highlight_subject))
+    return np.flatnonzero(_is_subject(frame["subject"], str(highlight_subject)))
 
 
 def residual_scatter_figure(checks, *, look: CohortLook, against: str = "fitted",

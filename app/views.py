@@ -69,6 +69,12 @@ def stage_call(context, name, data, roles, settings):
     return getattr(context.workbench, name)(dataset, r, s)
 
 
+def on_cluster(context, dataset) -> bool:
+    """Whether ``dataset`` is served from a Dask cluster (``serve --engine dask``)."""
+    ask = getattr(context.workbench, "on_cluster", None)
+    return ask is not None and bool(ask(dataset))
+
+
 def refuse_on_cluster(context, dataset, what: str) -> None:
     """Raise NotOnCluster when ``dataset`` is served from a Dask cluster and the view ``what``
     reads every visit (``serve --engine dask``); nothing on the single-machine page."""
@@ -82,6 +88,27 @@ def summary_inputs(context, data, roles, settings):
     return (stage_call(context, "subject_lines", data, roles, settings),
             stage_call(context, "summaries", data, roles, settings),
             stage_call(context, "cohort", data, roles, settings))
+
+
+def model_chooser(app, *, hint: str, body: str, model: str, read_models) -> None:
+    """A section that works on a fitted model: its hint shows until models are fitted, then its
+    body, with ``model`` offering the fits (the preferred one marked and chosen).
+    ``read_models(snapshot)`` gives the fitted models of a models snapshot. Not called at the
+    page's opening: no models are fitted then, and the layout starts with the hint shown and the
+    body hidden (saves the opening round trips of this and its followers)."""
+    @app.callback(Output(hint, "style"), Output(body, "style"), Output(model, "options"),
+                  Output(model, "value"), Input(ids.MODELS_SNAPSHOT, "data"),
+                  prevent_initial_call=True)
+    def models_ready(snapshot):
+        hide, show = {"display": "none"}, {}
+        if not snapshot:
+            return show, hide, [], None
+        models, _, _ = attempt(lambda: read_models(snapshot), what="reading the fitted models")
+        if models is None or not models.fits:
+            return show, hide, [], None
+        names = list(models.fits)
+        opts = [{"label": f"{n} ★" if n == models.preferred else n, "value": n} for n in names]
+        return hide, show, opts, models.preferred if models.preferred in names else names[0]
 
 
 def figure_and_note_view(app, context: AppContext, *, view: str, stage: str, graph: str,

@@ -79,25 +79,6 @@ WATCH_JS = """(() => {
     setInterval(tick, 10);
 })();""" % json.dumps(list(GRAPHS))
 
-#: emit a click on the first point naming a subject (as Dash's Graph reads plotly_click)
-CLICK_JS = """([gid]) => {
-    const el = document.querySelector('#' + gid + ' .js-plotly-plot');
-    const unpack = (v) => (v && v._inputArray) ? Array.from(v._inputArray) : v;
-    for (let c = 0; c < el.data.length; c++) {
-        const t = el.data[c];
-        const cd = unpack(t.customdata) || [];
-        for (let i = 0; i < cd.length; i++) {
-            const v = cd[i];
-            const sid = Array.isArray(v) ? v[0] : v;
-            if (typeof sid === 'string' && !(t.name || '').startsWith('subject ')) {
-                el.emit('plotly_click', {points: [{curveNumber: c, pointNumber: i,
-                    pointIndex: i, customdata: v, data: t}]});
-                return sid;
-            }
-        }
-    }
-    return null;
-}"""
 IDLE_JS = "() => !document.querySelector('[data-dash-is-loading=\"true\"]')"
 
 
@@ -171,7 +152,7 @@ def engine_times(path: Path | None) -> dict:
     sel = wb.selection(dataset, roles, base)
     "x" in set(map(str, sel.subject_ids))
     out["click a subject"] = time.perf_counter() - t0
-    del wb, dataset, frame
+    del wb, frame
     gc.collect()
     return out
 
@@ -276,18 +257,19 @@ class PageRun:
 
 
 def _page_helpers():
-    """The browser tests' ways of typing a number and choosing from a dropdown (one copy)."""
+    """The browser tests' ways of typing a number, choosing from a dropdown and clicking a
+    subject's point (one copy)."""
     sys.path.insert(0, str(ROOT / "tests" / "browser"))
-    from test_dashboard import choose, set_number
+    from test_dashboard import CLICK_JS, choose, set_number
 
-    return choose, set_number
+    return choose, set_number, CLICK_JS
 
 
 def drive(url: str, timeout_ms: int) -> dict:
     from playwright.sync_api import sync_playwright
 
     base = _analysis()[0].demo_settings()
-    choose, set_number = _page_helpers()
+    choose, set_number, click_js = _page_helpers()
     out = {"actions": {}}
     with sync_playwright() as pw:
         browser = pw.chromium.launch(executable_path=CHROMIUM, headless=True,
@@ -323,7 +305,7 @@ def drive(url: str, timeout_ms: int) -> dict:
                                           "Since each subject's first visit"))
         act("variogram bins", lambda: set_number(page, "settings-variogram-bins",
                                                  base.variogram_bins + 6))
-        act("click a subject", lambda: page.evaluate(CLICK_JS, ["course-graph"]))
+        act("click a subject", lambda: page.evaluate(click_js, ["course-graph", None]))
         out["page_payload_after"] = dict(run.payload)
         context.close()
         browser.close()

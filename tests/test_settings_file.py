@@ -81,10 +81,16 @@ def test_cli_summarize_with_the_exported_file_gives_the_page_numbers(tmp_path):
     assert cli["cohort"]["subjects"] == page["cohort"]["subjects"] > 0
 
 
-def test_cli_model_flags_start_from_the_files_model_choices(tmp_path):
+def _exported_file(tmp_path):
+    """(path, model choices) of the page's settings file as the page exports it."""
     settings, roles, choices = _page_choices()
     path = tmp_path / "exported.json"
     path.write_text(settings_text(settings, roles, choices), encoding="utf-8")
+    return path, choices
+
+
+def test_cli_model_flags_start_from_the_files_model_choices(tmp_path):
+    path, choices = _exported_file(tmp_path)
     parser = build_parser()
     args = parser.parse_args(["fit", "demo", "--settings", str(path), "--json", "-"])
     assert _model_choices(args) == choices
@@ -113,9 +119,7 @@ def test_settings_document_leaves_out_what_is_not_given():
 
 
 def test_plan_reads_its_model_flags_and_the_file_like_fit(tmp_path):
-    settings, roles, choices = _page_choices()
-    path = tmp_path / "exported.json"
-    path.write_text(settings_text(settings, roles, choices), encoding="utf-8")
+    path, choices = _exported_file(tmp_path)
     parser = build_parser()
     args = parser.parse_args(["plan", "demo", "--settings", str(path), "--json", "-"])
     assert _model_choices(args) == choices

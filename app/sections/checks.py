@@ -18,7 +18,7 @@ from analysis.models.checks import checks_for
 from analysis.models.modelstage import ModelChoices
 
 from .. import ids
-from ..views import refuse_on_cluster
+from ..views import model_chooser, refuse_on_cluster
 from ..components import graph, message, section
 from ..figures import CHECK_POINTS, CHECK_SEED, check_figures, cohort_look
 from ..session import AppContext, attempt
@@ -96,22 +96,8 @@ def register(app, context: AppContext) -> None:
                 kept.popitem(last=False)
         return value
 
-    # not at the page's opening: no models are fitted then, and the layout starts with the
-    # hint shown and the body hidden (saves the opening round trips of this and its followers)
-    @app.callback(Output(HINT, "style"), Output(BODY, "style"), Output(MODEL, "options"),
-                  Output(MODEL, "value"), Input(ids.MODELS_SNAPSHOT, "data"),
-                  prevent_initial_call=True)
-    def models_ready(snapshot):
-        hide, show = {"display": "none"}, {}
-        if not snapshot:
-            return show, hide, [], None
-        models, _, _ = attempt(lambda: _models(context, snapshot)[0],
-                               what="reading the fitted models")
-        if models is None or not models.fits:
-            return show, hide, [], None
-        names = list(models.fits)
-        opts = [{"label": f"{n} ★" if n == models.preferred else n, "value": n} for n in names]
-        return hide, show, opts, models.preferred if models.preferred in names else names[0]
+    model_chooser(app, hint=HINT, body=BODY, model=MODEL,
+                  read_models=lambda snapshot: _models(context, snapshot)[0])
 
     @app.callback(*[Output(g, "figure") for g in GRAPHS.values()], Output(MSG, "children"),
                   Input(MODEL, "value"), Input(ids.STORE_SUBJECT, "data"),

@@ -15,7 +15,8 @@ from ..figures import CohortLook, _present_strata, cohort_look
 from ..figures import courses_figure, panel_title, sample_subjects  # noqa: F401  (Dash-free: the report draws it too)
 from ..session import AppContext
 from ..urlstate import MAX_DRAW, MAX_SEED, VIEW_DEFAULTS
-from ..views import HIGHLIGHT, stage_stores, finish, render_key, skip_if_same, stage_call
+from ..views import (HIGHLIGHT, finish, on_cluster, render_key, skip_if_same, stage_call,
+                     stage_stores)
 
 ANCHOR = "section-course"
 NAV = "Courses over time"
@@ -98,8 +99,7 @@ def course_base(context, cohort, look: CohortLook, data, roles, settings):
         return frame, group_means(frame, strata=labels), per, firsts, index
 
     dataset, r, s = context.inputs(data, roles, settings)
-    on_cluster = getattr(context.workbench, "on_cluster", None)
-    if on_cluster is not None and on_cluster(dataset):
+    if on_cluster(context, dataset):
         return context.workbench.derived("cohort", "course base", dataset, r, s,
                                          lambda: cluster_course_base(context, cohort, look, r, s))
     return context.workbench.derived("cohort", "course base", dataset, r, s, compute)

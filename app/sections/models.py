@@ -28,6 +28,7 @@ from ..components import GRAPH_CONFIG, message, section
 from ..figures import (OVERLAY_CAPTION, cohort_look, empty_figure, fitted_variogram_figure,
                        report_figures)
 from ..session import AppContext, NeedsInput, attempt
+from ..views import on_cluster
 from ..text import option
 
 #: (structure, label) in the order offered (from the structures table); every structure
@@ -259,8 +260,7 @@ def report_text(context: AppContext, data, roles, settings, snapshot: dict | Non
             models = wb.models(dataset, r, s, choices)
         else:
             choices = None
-    on_cluster = getattr(wb, "on_cluster", None)
-    if on_cluster is not None and on_cluster(dataset):       # serve --engine dask
+    if on_cluster(context, dataset):       # serve --engine dask
         from ..figures import aggregate_report_figures
         figures, plan_request = aggregate_report_figures(exploration, models), None
     else:

@@ -22,7 +22,7 @@ from analysis.numbers import fmt
 from analysis.output.report import plan_sentences
 
 from .. import ids
-from ..views import refuse_on_cluster
+from ..views import model_chooser, refuse_on_cluster
 from ..components import GRAPH_CONFIG, section
 from ..figures import power_figure
 from ..session import AppContext, attempt
@@ -271,28 +271,13 @@ def simulation_text(check) -> str:
 
 # ------------------------------------------------------------------ callbacks
 def register(app, context: AppContext) -> None:
-    # not at the page's opening: no models are fitted then, and the layout starts with the
-    # hint shown and the body hidden (saves the opening round trips of this and its followers)
-    @app.callback(Output(HINT, "style"), Output(BODY, "style"), Output(MODEL, "options"),
-                  Output(MODEL, "value"), Input(ids.MODELS_SNAPSHOT, "data"),
-                  prevent_initial_call=True)
-    def models_ready(snapshot):
-        hide, show = {"display": "none"}, {}
-        if not snapshot:
-            return show, hide, [], None
+    def fitted(snapshot):
+        dataset, r, s = context.inputs(snapshot["data"], snapshot["roles"],
+                                       snapshot["settings"])
+        return context.workbench.models(dataset, r, s,
+                                        ModelChoices.from_dict(snapshot["choices"]))
 
-        def fitted():
-            dataset, r, s = context.inputs(snapshot["data"], snapshot["roles"],
-                                           snapshot["settings"])
-            return context.workbench.models(dataset, r, s,
-                                            ModelChoices.from_dict(snapshot["choices"]))
-
-        models, _, _ = attempt(fitted, what="reading the fitted models")
-        if models is None or not models.fits:
-            return show, hide, [], None
-        names = list(models.fits)
-        opts = [{"label": f"{n} ★" if n == models.preferred else n, "value": n} for n in names]
-        return hide, show, opts, models.preferred if models.preferred in names else names[0]
+    model_chooser(app, hint=HINT, body=BODY, model=MODEL, read_models=fitted)
 
     @app.callback(Output(EFFECT, "value"), Output(SCHEDULE, "value"), Output(DROPOUT, "value"),
                   Input(MODEL, "value"), Input(DESIGN, "value"),

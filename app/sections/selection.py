@@ -14,7 +14,7 @@ from ..components import busy
 from ..figures import cohort_look
 from ..session import AppContext, attempt
 from ..text import short
-from ..views import stage_call, stage_stores
+from ..views import on_cluster, stage_call, stage_stores
 
 ANCHOR = None
 NAV = None
@@ -57,8 +57,7 @@ def _card(context, data, roles, settings, subject):
     # the subject's visits straight from the panel (no table of every visit is built)
     code = np.flatnonzero(np.asarray(cohort.subject_ids).astype(str) == str(subject))
     dataset, r, s = context.inputs(data, roles, settings)
-    on_cluster = getattr(context.workbench, "on_cluster", None)
-    if on_cluster is not None and on_cluster(dataset):
+    if on_cluster(context, dataset):
         # serve --engine dask: this subject's visits fetched from the worker holding them
         mine = (context.workbench.subject_visits(dataset, r, s, subject) if code.size
                 else pd.DataFrame({"time": [], "response": []}))
