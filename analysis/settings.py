@@ -204,11 +204,11 @@ class Settings:
     time_min: float | None = setting(
         None, "number", optional=True, label="Window from", default_text="none",
         help="drop visits before this time since origin", stage="cohort", flag="--time-min",
-        group=_TIME, pair="window", placeholder="start", per_dataset=True)
+        group=_TIME, pair="window", placeholder="any", per_dataset=True)
     time_max: float | None = setting(
         None, "number", optional=True, label="Window to", default_text="none",
         help="drop visits after this time since origin", stage="cohort", flag="--time-max",
-        group=_TIME, pair="window", placeholder="end", per_dataset=True)
+        group=_TIME, pair="window", placeholder="any", per_dataset=True)
     min_visits: int = setting(
         3, "count", lo=1, hi=1000, label="Fewest visits per subject",
         help="minimum visits per subject", stage="cohort", flag="--min-visits",
