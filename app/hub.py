@@ -284,14 +284,14 @@ def _show_dataset(context: AppContext, key: str, roles, out: dict, name: str | N
     roles = ctl.keep_roles_that_fit(roles, dataset.frame.columns)
     out["data"] = {"key": dataset.key, "name": name}
     out["title"] = short(name)
+    n_rows = getattr(dataset, "n_rows", 0)       # a Dask-served dataset: frame is a sample
     subjects = ""
-    if roles is not None:
-        subjects = f", {dataset.frame[roles.subject].nunique():,} subjects"
-    n_rows = getattr(dataset, "n_rows", 0) or len(dataset.frame)
-    if getattr(dataset, "n_rows", 0):            # a Dask-served dataset: frame is a sample
+    if n_rows:
         subjects = f", {dataset.n_subjects:,} subjects" if dataset.n_subjects else ""
         subjects += " (partitioned Parquet on a Dask cluster; preview of the first file)"
-    out["data_name"] = (f"{short(name)}: {n_rows:,} rows, "
+    elif roles is not None:
+        subjects = f", {dataset.frame[roles.subject].nunique():,} subjects"
+    out["data_name"] = (f"{short(name)}: {n_rows or len(dataset.frame):,} rows, "
                         f"{dataset.frame.shape[1]} columns{subjects}")
     out["role_options"] = {r: options for r in ids.ROLE_FIELDS}
     out["roles"] = ctl.role_values(roles)
