@@ -26,8 +26,9 @@ from analysis.exploration.digest import (BAND_STEP, GRID_SHAPE, MEMBERS_SHOWN, S
                                          percent_rank, percentile_bands, subject_sample)
 
 from . import palette as pal
-from .figures import (CohortLook, _finish, _parenthesis, _plural, _present_strata, _robust_range,
-                      _rows_to_segments, _strength, empty_figure)
+from .figures import (COLORBAR_RIGHT_PX, HALF_FIGURE_PX, CohortLook, _finish, _parenthesis,
+                      _plural, _present_strata, _robust_range, _rows_to_segments, _strength,
+                      empty_figure, tick_label_left)
 from .text import short
 
 #: percent units between two groups' blocks in the band view
@@ -154,14 +155,14 @@ def bands_figure(lines: pd.DataFrame, *, look: CohortLook, highlight_subject=Non
     if no_slope:
         notes.append(f"{no_slope:,} without a slope not shown")
     fig.add_vline(x=0, line={"color": pal.REFERENCE_COLOR, "width": 1.5, "dash": "dot"})
+    ticks = [look.group_title(k) for k in offsets]
     _finish(fig, "Each subject's slope with its 95% interval, as percentile bands",
             subtitle=summary_note(len(df)) + ", ordered by slope<br>" + " · ".join(notes),
-            top=96, bottom=105, left=150)
+            top=96, bottom=None, left=tick_label_left(ticks, least=110))
     fig.update_xaxes(title_text=look.slope_label, range=xr)
     fig.update_yaxes(title_text=f"percent of subjects, grouped by {look.stratifier}",
                      autorange="reversed", showgrid=False, zeroline=False,
-                     tickvals=[offsets[k] + 50 for k in offsets],
-                     ticktext=[look.group_title(k) for k in offsets])
+                     tickvals=[offsets[k] + 50 for k in offsets], ticktext=ticks)
     return fig
 
 
@@ -230,7 +231,8 @@ def density_figure(lines: pd.DataFrame, smooth: pd.DataFrame | None, *, look: Co
     sub = (summary_note(len(df)) + f"<br>subjects per cell of a {nx} × {ny} grid"
            + (f"; {grid.n_outside:,} off the axis" if grid.n_outside else "")
            + "; line: lowess, all")
-    _finish(fig, f"Subject slope against {name}", subtitle=sub, top=96, bottom=150, left=96)
+    _finish(fig, f"Subject slope against {name}", subtitle=sub, top=96, bottom=150, left=96,
+            right=COLORBAR_RIGHT_PX)
     fig.add_hline(y=0, line={"color": pal.REFERENCE_COLOR, "width": 1.2, "dash": "dot"})
     fig.update_xaxes(title_text=xt, type="log" if grid.log_x else "linear")
     fig.update_yaxes(title_text=look.slope_label_wrapped,
@@ -274,7 +276,7 @@ def box_figure(lines: pd.DataFrame, *, look: CohortLook, highlight_subject=None,
     _finish(fig, f"Subject slopes by {look.stratifier}",
             subtitle=(summary_note(len(df)) + f"<br>quartiles; whiskers within "
                       f"{WHISKER_IQR:g} IQR; {beyond:,} beyond not drawn"),
-            top=96, bottom=130, left=96)
+            top=96, bottom=None, left=96, width=HALF_FIGURE_PX)
     fig.add_hline(y=0, line={"color": pal.REFERENCE_COLOR, "width": 1.2, "dash": "dot"})
     fig.update_xaxes(title_text=f"{look.stratifier} group"
                                 f"{_parenthesis(look.stratifier_unit.strip())}",

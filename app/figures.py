@@ -232,15 +232,43 @@ def empty_figure(message: str, *, title: str = "") -> go.Figure:
     return fig
 
 
+#: A figure's width (px) on a 1,280 px wide page: the main column, and half of it (two
+#: figures side by side). Margins sized for them also hold at wider pages.
+FULL_FIGURE_PX = 882.0
+HALF_FIGURE_PX = 432.0
+#: The foot legend and the x axis as plotly.js 4 draws them at the house fonts, measured in
+#: headless Chromium: an entry is its symbol and gaps (60 px) plus ~8 px a character of its
+#: 14 px label; a row is 21.2 px, 31 px when the entries are legend groups; 11 px of padding;
+#: one line of tick labels with the axis title under the plot takes 55 px.
+LEGEND_ENTRY_PX = 60.0
+LEGEND_CHAR_PX = 8.2
+LEGEND_ROW_PX = 21.2
+LEGEND_GROUP_ROW_PX = 31.0
+LEGEND_PAD_PX = 11.0
+X_AXIS_BLOCK_PX = 58
+#: each further line of a tick label (labels broken with <br>)
+TICK_LINE_PX = 20
+#: right margin holding a heatmap's colour bar beside the plot (85 px drawn, 12 px gap)
+COLORBAR_RIGHT_PX = 106
+#: a tick label's width per character at the 15 px axis font, and the axis title beside them
+TICK_CHAR_PX = 8.6
+Y_TITLE_PX = 46
+
+
 def _finish(fig: go.Figure, title: str, *, subtitle: str = "", legend_y: float = 0.0,
-            top: int = 78, bottom: int = 110, left: int = 80, right: int = 24) -> go.Figure:
+            top: int = 78, bottom: int | None = 110, left: int = 80, right: int = 24,
+            width: float = FULL_FIGURE_PX, axis_block: int = X_AXIS_BLOCK_PX) -> go.Figure:
     """Shared look: title (+ subtitle), projector-size fonts, legend along the figure's foot.
 
     ``legend_y`` is measured on the whole figure (0 = bottom edge), so the legend
-    never runs into the x axis title; ``bottom`` must leave room for both. The fixed
-    part of the look (fonts, axes, backgrounds) is :data:`HOUSE_TEMPLATE`, set in the
-    default template (each plotly update call costs milliseconds on the server).
+    never runs into the x axis title; ``bottom`` must leave room for both, or is None to be
+    sized here from the figure's legend entries (:func:`foot_bottom`, for a figure ``width``
+    px wide under an x axis block of ``axis_block`` px). The fixed part of the look (fonts,
+    axes, backgrounds) is :data:`HOUSE_TEMPLATE`, set in the default template (each plotly
+    update call costs milliseconds on the server).
     """
+    if bottom is None:
+        bottom = foot_bottom(fig, width=width - left - right, axis_block=axis_block)
     title_spec = {"text": title, "x": 0.01, "xanchor": "left", "font": {"size": TITLE_SIZE}}
     if subtitle:
         title_spec["subtitle"] = {"text": subtitle,
@@ -263,28 +291,53 @@ def _merged(base: dict, over: dict) -> dict:
     return out
 
 
-def foot_legend_rows(names, *, width: float = 780.0) -> int:
-    """How many rows a foot legend of ``names`` takes in a figure ``width`` px wide.
+def foot_legend_rows(names, *, width: float = FULL_FIGURE_PX - 104) -> int:
+    """How many rows a foot legend of ``names`` takes over a plot ``width`` px wide.
 
-    Estimated from the text length at the legend's 14 px font (about 8 px a character plus
-    the symbol and the gap, 48 px), packed greedily, as plotly packs a horizontal legend.
+    Entries are packed greedily, as plotly.js packs a horizontal legend, each as wide as
+    its label (see :data:`LEGEND_ENTRY_PX`).
     """
     rows, used = 1, 0.0
     for name in names:
-        w = 48.0 + 8.0 * len(str(name))
+        w = LEGEND_ENTRY_PX + LEGEND_CHAR_PX * len(str(name))
         if used and used + w > width:
             rows, used = rows + 1, 0.0
         used += w
     return rows
 
 
-def foot_legend_bottom(names, *, width: float = 780.0, axis_title: bool = True) -> int:
-    """Bottom margin (px) that holds the x axis title and a foot legend of ``names``.
-
-    24 px per legend row under the tick labels and the axis title (70 px), so the axis title
-    never sits on the legend however many entries wrap.
+def foot_legend_bottom(names, *, width: float = FULL_FIGURE_PX - 104,
+                       axis_title: bool = True, grouped: bool = False,
+                       axis_block: int = X_AXIS_BLOCK_PX) -> int:
+    """Bottom margin (px) that holds the x axis (tick labels and title) and a foot legend
+    of ``names`` over a plot ``width`` px wide, so plotly.js need not widen the margin
+    itself (which draws the figure a second time: a third to a half of its drawing time).
     """
-    return (70 if axis_title else 40) + 24 * foot_legend_rows(names, width=width)
+    if not names:
+        return axis_block if axis_title else 40
+    row = LEGEND_GROUP_ROW_PX if grouped else LEGEND_ROW_PX
+    legend = LEGEND_PAD_PX + row * foot_legend_rows(names, width=width)
+    return int(np.ceil((axis_block if axis_title else 34) + legend + 3))
+
+
+def legend_entries(fig: go.Figure) -> tuple[list[str], bool]:
+    """(names shown in ``fig``'s legend, whether any is a legend group's entry)."""
+    shown = [t for t in fig.data if t.showlegend is not False and t.name]
+    if fig.layout.showlegend is False:      # (a lone entry is counted: a legend may be asked for)
+        return [], False
+    return [t.name for t in shown], any(t.legendgroup for t in shown)
+
+
+def foot_bottom(fig: go.Figure, *, width: float, axis_block: int = X_AXIS_BLOCK_PX) -> int:
+    """:func:`foot_legend_bottom` for ``fig``'s own legend entries over a plot ``width`` px."""
+    names, grouped = legend_entries(fig)
+    return foot_legend_bottom(names, width=width, grouped=grouped, axis_block=axis_block)
+
+
+def tick_label_left(texts, *, least: int = 80) -> int:
+    """Left margin (px) holding y tick labels ``texts`` and the axis title beside them."""
+    longest = max((len(str(t)) for t in texts), default=0)
+    return max(least, int(np.ceil(TICK_CHAR_PX * longest + Y_TITLE_PX)))
 
 
 def _segments(keys: np.ndarray, *columns: np.ndarray) -> list[np.ndarray]:
@@ -761,7 +814,7 @@ def courses_figure(shown: pd.DataFrame, *, full: pd.DataFrame, look: CohortLook,
             subtitle=(f"thin lines: {drawn:,} of {total:,} subjects drawn · thick line: mean of "
                       f"every subject in the group, {len(set(means['bin'])) if len(means) else 0}"
                       f" time bins"),
-            top=104 + 18 * title_lines, bottom=105)
+            top=104 + 18 * title_lines, bottom=None)
     fig.update_xaxes(title_text="")
     fig.update_yaxes(title_text="")
     for c in range(1, ncol + 1):
@@ -890,7 +943,7 @@ def intervals_figure(lines: pd.DataFrame, *, look: CohortLook, order: str = "slo
         notes.append(f"{no_slope} without a slope (one visit or one time) not shown")
     fig.add_vline(x=0, line={"color": pal.REFERENCE_COLOR, "width": 1.5, "dash": "dot"})
     _finish(fig, "Each subject's slope with its 95% interval", subtitle=" · ".join(notes),
-            bottom=105, left=150 if len(df) > MAX_SUBJECT_TICKS else 110)
+            bottom=None, left=tick_label_left(yaxis["ticktext"], least=110))
     fig.update_xaxes(title_text=look.slope_label, range=xr)
     fig.update_yaxes(title_text=f"subjects, grouped by {look.stratifier}", autorange="reversed",
                      showgrid=False, zeroline=False, **yaxis)
@@ -958,7 +1011,7 @@ def slope_vs_covariate_figure(lines: pd.DataFrame, smooth: pd.DataFrame | None, 
     _finish(fig, f"Subject slope against {name}",
             subtitle=(f"axis cut at the 1st–99th percentile; {outside} outside" if yr else
                       f"{_plural(len(df), 'subject')}; line: lowess smooth"),
-            top=RATE_TOP, bottom=150, left=RATE_LEFT)
+            top=RATE_TOP, bottom=None, left=RATE_LEFT, width=HALF_FIGURE_PX)
     fig.add_hline(y=0, line={"color": pal.REFERENCE_COLOR, "width": 1.2, "dash": "dot"})
     fig.update_xaxes(title_text=xt, type="log" if log_axis else "linear",
                      **(_log_ticks(df["covariate"].to_numpy(float)) if log_axis else {}))

@@ -11,6 +11,7 @@ import re
 
 import numpy as np
 import pandas as pd
+import plotly.graph_objects as go
 import pytest
 from scipy import stats
 from statsmodels.nonparametric.smoothers_lowess import lowess
@@ -508,3 +509,21 @@ def test_rate_and_dropout_labels_are_short_and_carry_units(res):
     h = f"{summ.dropout.horizon:.3g} months"
     assert f"{summ.dropout.counts['left_early']:,} left before {h}" in sub
     assert f"{summ.dropout.counts['complete']:,} followed to {h}" in sub
+
+
+def test_foot_margins_grow_with_the_legend_and_tick_labels_they_hold():
+    """Server-set margins that hold the legend and labels (checked against the drawn figure in
+    tests/browser: plotly.js need not widen them)."""
+    from app.figures import (X_AXIS_BLOCK_PX, foot_bottom, foot_legend_bottom,
+                             legend_entries, tick_label_left)
+
+    fig = go.Figure([go.Scatter(x=[1], y=[1], name=f"group {i}") for i in range(3)])
+    names, grouped = legend_entries(fig)
+    assert names == ["group 0", "group 1", "group 2"] and not grouped
+    narrow, wide = foot_bottom(fig, width=150), foot_bottom(fig, width=2000)
+    assert narrow > wide > X_AXIS_BLOCK_PX          # a narrower plot wraps the legend
+    fig.update_layout(showlegend=False)
+    assert foot_bottom(fig, width=150) == X_AXIS_BLOCK_PX
+    assert foot_legend_bottom(["a"] * 4, grouped=True) > foot_legend_bottom(["a"] * 4)
+    assert tick_label_left(["R1"], least=110) == 110
+    assert tick_label_left(["37.8 – 318.9 mg/mmol"]) > tick_label_left(["1.0 – 10.7"])

@@ -11,7 +11,7 @@ from plotly.subplots import make_subplots
 from .. import ids
 from .. import palette as pal
 from ..components import graph, message, section
-from ..figures import CohortLook, _finish, cohort_look
+from ..figures import COLORBAR_RIGHT_PX, CohortLook, _finish, cohort_look
 from ..session import AppContext
 from ..views import figure_and_note_view, stage_call
 
@@ -102,7 +102,7 @@ def lag_heatmap_figure(lc, *, look: CohortLook) -> go.Figure:
     _finish(fig, "Correlation of residuals between time windows",
             subtitle=(f"windows {lc.width:g} {unit} wide · cell: r and subjects seen in both · "
                       "bars: variance in each window"),
-            bottom=70, right=30)
+            bottom=70, left=92, right=COLORBAR_RIGHT_PX)
     fig.update_layout(showlegend=False)
     fig.update_yaxes(title_text=f"window ({unit})", autorange="reversed", row=1, col=1,
                      showgrid=False, ticks="")

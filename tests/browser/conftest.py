@@ -84,3 +84,31 @@ def page(browser):
     yield pg
     context.close()
     assert errors == [], "browser reported errors:\n" + "\n".join(errors)
+
+
+#: figures whose margins plotly.js had to widen to fit their labels, legend or colour bar
+#: (it then draws the figure a second time): {graph id: {side: [set, drawn]}}
+WIDENED_MARGINS_JS = """() => { const out = {};
+  document.querySelectorAll('.js-plotly-plot').forEach(gd => {
+    const fl = gd._fullLayout;
+    if (!fl || !gd.data || !gd.data.length) { return; }
+    const set = (gd.layout && gd.layout.margin) || {}, got = {};
+    for (const side of ['l', 'r', 't', 'b']) {
+      if (fl._size[side] > (set[side] || 0) + 0.5) { got[side] = [set[side], Math.round(fl._size[side])]; }
+    }
+    if (Object.keys(got).length) { out[gd.parentNode.id || gd.id] = got; }
+  });
+  return out; }"""
+
+
+def widened_margins(page, widths=(1500, 1280)) -> dict:
+    """{viewport width: figures whose margins plotly widened} at each of ``widths`` (the page
+    is resized to each and its figures redrawn to the new size; it ends at the last)."""
+    out = {}
+    for w in widths:
+        page.set_viewport_size({"width": w, "height": 1000})
+        page.wait_for_timeout(600)             # plotly's resize handler redraws each figure
+        got = page.evaluate(WIDENED_MARGINS_JS)
+        if got:
+            out[w] = got
+    return out

@@ -22,7 +22,7 @@ from analysis.preparation.demo import demo_roles, demo_settings, load_demo
 from analysis.preparation.loading import Dataset
 from app import ids
 
-from conftest import serving
+from conftest import serving, widened_margins
 
 GRAPHS = (ids.COURSE_GRAPH, ids.SPREAD_GRAPH, ids.PAIRS_GRAPH, ids.LINES_GRAPH,
           ids.RATE_STRATA_GRAPH, ids.RATE_COVARIATE_GRAPH, ids.FOLLOW_VISITS_GRAPH,
@@ -105,6 +105,9 @@ def test_large_cohort_stays_within_budget_and_a_band_click_selects_a_subject(
             "(gid) => { const t = document.querySelector('#' + gid + ' .js-plotly-plot')"
             ".layout.title; return (t.subtitle && t.subtitle.text) || ''; }", gid)
         assert f"summary of all {len(ref):,} subjects" in subtitle, (gid, subtitle)
+    # the summaries' margins hold their labels, legends and colour bar (see test_dashboard)
+    assert widened_margins(page) == {}
+    page.set_viewport_size({"width": 1500, "height": 1000})
     page.screenshot(path=str(artifacts / "large-cohort-lines.png"), full_page=False)
     page.locator(f"#{ids.LINES_GRAPH}").screenshot(path=str(artifacts / "large-cohort-bands.png"))
     page.locator("#section-rate").screenshot(path=str(artifacts / "large-cohort-rate.png"))
