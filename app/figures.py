@@ -747,11 +747,10 @@ def courses_figure(shown: pd.DataFrame, *, full: pd.DataFrame, look: CohortLook,
     titles = [panel_title(lab, int(subjects_per.get(lab, 0)), ncol=ncol,
                           bold=highlight_stratum == lab) for lab in labels]
     title_lines = max(t.count("<br>") + 1 for t in titles) if titles else 1
-    fig = make_subplots(rows=nrow, cols=ncol, shared_xaxes="all", shared_yaxes="all",
-                        subplot_titles=titles, horizontal_spacing=0.045,
-                        vertical_spacing=(0.12 + 0.04 * title_lines) if nrow > 1 else 0.1)
-    for ann in fig.layout.annotations:
-        ann.font = {"size": PANEL_TITLE_SIZE}
+    layout, panels = panel_grid(nrow, ncol, titles, x_title=look.time_label,
+                                y_title=look.response_label, horizontal_spacing=0.045,
+                                vertical_spacing=(0.12 + 0.04 * title_lines) if nrow > 1 else 0.1)
+    traces = []
 
     shown = shown.assign(subject=shown["subject"].astype(str),
                          stratum_label=shown["stratum_label"].astype(str))
@@ -767,24 +766,24 @@ def courses_figure(shown: pd.DataFrame, *, full: pd.DataFrame, look: CohortLook,
     biggest = int(shown["stratum_label"].value_counts().max()) if len(shown) else 0
     kind = go.Scattergl if biggest > GL_POINTS else go.Scatter
     for i, lab in enumerate(labels):
-        row, col = i // ncol + 1, i % ncol + 1
+        axes = panels[i]
         colour = look.colour(lab)
         strength = _strength(look, lab, highlight_stratum)
         sub = shown[shown["stratum_label"] == lab]
         xs, ys, cd = _segments(sub["subject"].to_numpy(), sub["time"].to_numpy(),
                                sub["response"].to_numpy(), sub["subject"].to_numpy())
-        fig.add_trace(kind(
+        traces.append(kind(
             x=xs, y=ys, customdata=cd, mode="lines", name=look.group_title(lab),
             legendgroup=lab, showlegend=True,
             line={"color": pal.with_alpha(colour, 0.42 * strength), "width": 1.2},
-            hovertemplate=hover), row=row, col=col)
+            hovertemplate=hover, **axes))
         m = means[means["stratum_label"] == lab]
         if len(m):
             common = dict(x=m["time"].to_numpy(), y=m["response"].to_numpy(), mode="lines",
                           legendgroup=lab, showlegend=False, hoverinfo="skip")
-            fig.add_trace(kind(**common, line={"color": "rgba(255,255,255,0.9)",
-                                               "width": 8}), row=row, col=col)
-            fig.add_trace(kind(
+            traces.append(kind(**common, line={"color": "rgba(255,255,255,0.9)", "width": 8},
+                               **axes))
+            traces.append(kind(
                 x=m["time"].to_numpy(), y=m["response"].to_numpy(), mode="lines+markers",
                 name=f"{look.group_title(lab)} mean", legendgroup=lab, showlegend=False,
                 customdata=m["visits"].to_numpy(),
@@ -792,22 +791,22 @@ def courses_figure(shown: pd.DataFrame, *, full: pd.DataFrame, look: CohortLook,
                 marker={"size": 6, "color": pal.with_alpha(colour, max(strength, 0.35))},
                 hovertemplate=(f"group mean {look.group_title(lab)}<br>%{{x:.1f}} "
                                f"{look.time_unit}: %{{y:.1f}} {look.response_unit}"
-                               "<br>%{customdata} visits<extra></extra>")), row=row, col=col)
+                               "<br>%{customdata} visits<extra></extra>"), **axes))
         if hl is not None:
             h = hl_rows[hl_rows["stratum_label"].astype(str) == lab]
             if len(h):
                 h = h.sort_values("time")
-                fig.add_trace(kind(
+                traces.append(kind(
                     x=h["time"].to_numpy(), y=h["response"].to_numpy(), mode="lines+markers",
                     customdata=np.full(len(h), hl, dtype=object), name=f"subject {hl}",
                     line={"color": pal.HIGHLIGHT_COLOR, "width": 3.5},
                     marker={"size": 8, "color": pal.HIGHLIGHT_COLOR,
                             "line": {"color": "#ffffff", "width": 1}},
-                    hovertemplate=hover), row=row, col=col)
+                    hovertemplate=hover, **axes))
     # a legend key for the mean line (drawn in every panel in its group's colour)
-    fig.add_trace(go.Scatter(x=[None], y=[None], mode="lines", name="group mean, every subject",
-                             line={"color": pal.REFERENCE_COLOR, "width": 4}, hoverinfo="skip"),
-                  row=1, col=1)
+    traces.append(go.Scatter(x=[None], y=[None], mode="lines", name="group mean, every subject",
+                             line={"color": pal.REFERENCE_COLOR, "width": 4}, hoverinfo="skip"))
+    fig = go.Figure(data=traces, layout=layout)
     total = int(subjects_per.sum())
     drawn = int(shown["subject"].nunique())
     _finish(fig, f"{look.response} over time, by {look.stratifier_label}",
@@ -815,12 +814,47 @@ def courses_figure(shown: pd.DataFrame, *, full: pd.DataFrame, look: CohortLook,
                       f"every subject in the group, {len(set(means['bin'])) if len(means) else 0}"
                       f" time bins"),
             top=104 + 18 * title_lines, bottom=None)
-    fig.update_xaxes(title_text="")
-    fig.update_yaxes(title_text="")
-    for c in range(1, ncol + 1):
-        fig.update_xaxes(title_text=look.time_label, row=nrow, col=c)
-    fig.update_yaxes(title_text=look.response_label, col=1)
     return fig
+
+
+def panel_grid(nrow: int, ncol: int, titles, *, x_title: str, y_title: str,
+               horizontal_spacing: float, vertical_spacing: float) -> tuple[dict, list[dict]]:
+    """(layout, axes of each panel) of ``nrow`` × ``ncol`` panels sharing both axes, filled row
+    by row, each titled from ``titles`` above it; the time axis is titled under the bottom row,
+    the response axis beside the first column; inner tick labels hidden.
+
+    The layout plotly's ``make_subplots(shared_xaxes="all", shared_yaxes="all",
+    subplot_titles=...)`` builds, written out directly: building it through the figure
+    object's update calls cost more than the rest of the courses view at a million rows.
+    A panel's axes are ``{"xaxis": "x2", "yaxis": "y2"}``, to pass to its traces.
+    """
+    w = (1.0 - horizontal_spacing * (ncol - 1)) / ncol
+    h = (1.0 - vertical_spacing * (nrow - 1)) / nrow
+    layout: dict = {"annotations": []}
+    panels = []
+    for i in range(nrow * ncol):
+        r, c = divmod(i, ncol)
+        n = "" if i == 0 else str(i + 1)
+        x0 = c * (w + horizontal_spacing)
+        y1 = 1.0 - r * (h + vertical_spacing)
+        xa = {"anchor": f"y{n}", "domain": [x0, x0 + w],
+              "title": {"text": x_title if r == nrow - 1 else ""}}
+        ya = {"anchor": f"x{n}", "domain": [y1 - h, y1],
+              "title": {"text": y_title if c == 0 else ""}}
+        if i:
+            xa["matches"], ya["matches"] = "x", "y"
+        if r < nrow - 1:
+            xa["showticklabels"] = False
+        if c > 0:
+            ya["showticklabels"] = False
+        layout[f"xaxis{n}"], layout[f"yaxis{n}"] = xa, ya
+        panels.append({"xaxis": f"x{n}", "yaxis": f"y{n}"})
+        if i < len(titles):
+            layout["annotations"].append({
+                "text": titles[i], "x": x0 + w / 2, "y": y1, "xref": "paper", "yref": "paper",
+                "xanchor": "center", "yanchor": "bottom", "showarrow": False,
+                "font": {"size": PANEL_TITLE_SIZE}})
+    return layout, panels
 
 
 # from app/sections/lines.py

@@ -18,6 +18,12 @@ ratio page / engine. For the opening it also prints each figure's payload (the J
 sent for it) and the whole page's callback traffic, and the server's memory (VmRSS and its peak
 VmHWM from /proc).
 
+Beside them, the floor Dash and plotly.js set in this browser, measured in the same run: a bare
+Dash page with one small graph; a static page holding only the figures the dashboard sent at its
+opening, at their sizes (no callbacks, no server work); and on it each action's new figures drawn
+over them. The page's time above "figures alone" is its own: callbacks, server work, the rest of
+its components.
+
 Targets on the 2-core development machine (issue 12): demo open <= 2.5 s; 1 M rows open <= 8 s
 after the file is loaded; any single control <= 1 s on the demo and <= 3 s at 1 M rows; each
 figure <= 300 kB and the page <= 1.5 MB at 1 M rows; server memory <= 1.5 GB. Nothing here
@@ -209,6 +215,7 @@ class PageRun:
         self.payload: dict[str, int] = {}      # graph id -> bytes of its last figure sent
         self.traffic = 0                       # bytes of every callback response
         self.requests = 0                      # callback round trips
+        self.figures: dict[str, dict] = {}     # graph id -> its last figure sent
         page.on("response", self._response)
 
     def _response(self, response):
@@ -227,6 +234,7 @@ class PageRun:
         for gid, props in data.items():
             if gid in ALL and "figure" in props:
                 self.payload[gid] = len(json.dumps(props["figure"], separators=(",", ":")))
+                self.figures[gid] = props["figure"]
 
     def draws(self) -> dict:
         return self.page.evaluate("() => window.__draws || {}")
@@ -286,14 +294,18 @@ def drive(url: str, timeout_ms: int) -> dict:
                                   "round_trips": run.requests}
         out["payload"] = dict(run.payload)
         out["traffic"] = run.traffic
+        drawn = {"open": dict(run.figures)}      # kept aside for the floor (not in the JSON)
+        boxes = page.evaluate(BOXES_JS, list(GRAPHS))
         print(f"  open: {secs} s, figures {json.dumps(run.payload)}, traffic {run.traffic:,} B",
               flush=True)
 
         def act(name, do):
             n0 = run.requests
             since = run.now()
+            run.figures.clear()
             do()
             secs, redrawn = run.wait_redrawn(since, TOUCHES[name])
+            drawn[name] = {g: f for g, f in run.figures.items() if g in TOUCHES[name]}
             out["actions"][name] = {"page": secs, "redrawn": sorted(redrawn),
                                     "round_trips": run.requests - n0}
             print(f"  {name}: {secs} s, {len(redrawn)} views", flush=True)
@@ -308,7 +320,83 @@ def drive(url: str, timeout_ms: int) -> dict:
         act("click a subject", lambda: page.evaluate(click_js, ["course-graph", None]))
         out["page_payload_after"] = dict(run.payload)
         context.close()
+        out["floor"] = floor(browser, drawn, boxes, timeout_ms)
         browser.close()
+    return out
+
+
+# ------------------------------------------------------------------ floor
+BOXES_JS = """(ids) => Object.fromEntries(ids.map(g => {
+    const el = document.querySelector('#' + g + ' .js-plotly-plot');
+    return [g, el ? [el.clientWidth, el.clientHeight] : [900, 460]]; }))"""
+
+#: time (ms) until every given graph holds its figure, measured in the page
+DRAWN_JS = """(ids) => new Promise(done => { const t0 = performance.timeOrigin;
+    const tick = () => { if (ids.every(g => { const el = document.querySelector('#' + g + ' .js-plotly-plot');
+        return el && el.data && el._fullLayout; })) { done(Date.now() - t0); } else { setTimeout(tick, 10); } };
+    tick(); })"""
+
+#: the page's figures for one action drawn over those already there, as a settings change does
+REDRAW_JS = """async (figs) => { const t = performance.now();
+    for (const [g, f] of Object.entries(figs)) {
+        await Plotly.react(document.querySelector('#' + g + ' .js-plotly-plot'), f.data, f.layout); }
+    return performance.now() - t; }"""
+
+
+def _static_server(layout):
+    """A bare Dash app serving ``layout`` on a free loopback port in a thread: (url, stop)."""
+    import logging
+    import threading
+
+    import dash
+    from werkzeug.serving import make_server
+
+    logging.getLogger("werkzeug").setLevel(logging.ERROR)     # no line per request
+
+    app = dash.Dash(__name__, assets_folder=tempfile.mkdtemp())
+    app.layout = layout
+    port = free_port()
+    server = make_server("127.0.0.1", port, app.server, threaded=True)
+    threading.Thread(target=server.serve_forever, daemon=True).start()
+    return f"http://127.0.0.1:{port}/", server.shutdown
+
+
+def floor(browser, drawn: dict, boxes: dict, timeout_ms: int) -> dict:
+    """What Dash and plotly.js cost in this browser without the dashboard: seconds to open a
+    bare Dash page holding one small graph; to open a page holding only the dashboard's
+    opening figures, as sent, at their sizes (no callbacks, no server work); and, on that
+    page, to draw each action's new figures over them. The page's own times above these are
+    its callbacks, its server work and its other components."""
+    from dash import dcc, html
+
+    def opened(layout, gids) -> float:
+        url, stop = _static_server(layout)
+        try:
+            context = browser.new_context(viewport={"width": 1500, "height": 1000})
+            page = context.new_page()
+            page.set_default_timeout(timeout_ms)
+            page.goto(url)
+            secs = page.evaluate(DRAWN_JS, list(gids)) / 1000.0
+            return secs, context
+        finally:
+            stop()
+
+    out = {}
+    secs, context = opened(html.Div(html.Div(id="bare", children=dcc.Graph(
+        figure={"data": [{"x": [1, 2], "y": [1, 2]}]}))), ["bare"])
+    context.close()
+    out["bare page"] = secs
+    figures = drawn["open"]
+    layout = html.Div([html.Div(id=g, style={"width": f"{boxes[g][0]}px"}, children=dcc.Graph(
+        figure=f, style={"height": f"{boxes[g][1]}px"}, config={"responsive": False}))
+        for g, f in figures.items()])
+    secs, context = opened(layout, list(figures))
+    out["open"] = secs
+    page = context.pages[0]
+    for name, figs in drawn.items():
+        if name != "open" and figs:
+            out[name] = page.evaluate(REDRAW_JS, figs) / 1000.0
+    context.close()
     return out
 
 
@@ -325,16 +413,24 @@ def report(name: str, engine: dict, page: dict, load_s: float, mem: tuple) -> No
         print(f"{SHORT[g]:<22}{'—' if b is None else f'{b / 1000:,.1f} kB':>12}")
     print(f"{'all figures':<22}{total / 1000:>9,.1f} kB   (all callback responses "
           f"{page['traffic'] / 1000:,.1f} kB)")
-    print(f"{'action':<18}{'page':>9}{'engine':>9}{'page/engine':>13}{'round trips':>13}  redrawn")
+    fl = page.get("floor", {})
+    print(f"{'action':<18}{'page':>9}{'engine':>9}{'page/engine':>13}{'figures alone':>15}"
+          f"{'round trips':>13}  redrawn")
     for act, r in page["actions"].items():
-        p, e = r["page"], engine.get(act)
+        p, e, f = r["page"], engine.get(act), fl.get(act)
         ratio = f"{p / e:,.0f}×" if p is not None and e and e > 0.001 else "—"
         ps = "timeout" if p is None else f"{p:.2f} s"
         es = "—" if e is None else f"{e:.3f} s"
+        fs = "—" if f is None else f"{f:.2f} s"
         extra = sorted(set(r["redrawn"]) - TOUCHES.get(act, ALL))
-        print(f"{act:<18}{ps:>9}{es:>9}{ratio:>13}{r['round_trips']:>13}  "
+        print(f"{act:<18}{ps:>9}{es:>9}{ratio:>13}{fs:>15}{r['round_trips']:>13}  "
               f"{len(r['redrawn'])} views" + (f" (also {', '.join(SHORT[g] for g in extra)})"
                                               if extra else ""))
+    if fl:
+        print(f"figures alone: the same figures drawn by Dash and plotly.js in this browser "
+              f"without the dashboard (a static page opening with them; each action's figures "
+              f"drawn over them there). A bare Dash page with one small graph opens in "
+              f"{fl['bare page']:.2f} s.")
 
 
 def main(argv=None) -> int:
