@@ -28,7 +28,7 @@ from analysis.exploration.digest import (BAND_STEP, GRID_SHAPE, MEMBERS_SHOWN, S
 from . import palette as pal
 from .figures import (COLORBAR_RIGHT_PX, HALF_FIGURE_PX, CohortLook, _finish, _parenthesis,
                       _plural, _present_strata, _robust_range, _rows_to_segments, _strength,
-                      empty_figure, tick_label_left)
+                      empty_figure, reference_line, tick_label_left)
 from .text import short
 
 #: percent units between two groups' blocks in the band view
@@ -154,7 +154,7 @@ def bands_figure(lines: pd.DataFrame, *, look: CohortLook, highlight_subject=Non
              f"ends (band); {s.size:,} subjects drawn at random (sample {seed}) at their rank"]
     if no_slope:
         notes.append(f"{no_slope:,} without a slope not shown")
-    fig.add_vline(x=0, line={"color": pal.REFERENCE_COLOR, "width": 1.5, "dash": "dot"})
+    reference_line(fig, x=0, line={"color": pal.REFERENCE_COLOR, "width": 1.5, "dash": "dot"})
     ticks = [look.group_title(k) for k in offsets]
     _finish(fig, "Each subject's slope with its 95% interval, as percentile bands",
             subtitle=summary_note(len(df)) + ", ordered by slope<br>" + " · ".join(notes),
@@ -233,7 +233,7 @@ def density_figure(lines: pd.DataFrame, smooth: pd.DataFrame | None, *, look: Co
            + "; line: lowess, all")
     _finish(fig, f"Subject slope against {name}", subtitle=sub, top=96, bottom=150, left=96,
             right=COLORBAR_RIGHT_PX)
-    fig.add_hline(y=0, line={"color": pal.REFERENCE_COLOR, "width": 1.2, "dash": "dot"})
+    reference_line(fig, y=0, line={"color": pal.REFERENCE_COLOR, "width": 1.2, "dash": "dot"})
     fig.update_xaxes(title_text=xt, type="log" if grid.log_x else "linear")
     fig.update_yaxes(title_text=look.slope_label_wrapped,
                      range=[float(grid.y_edges[0]), float(grid.y_edges[-1])])
@@ -277,7 +277,7 @@ def box_figure(lines: pd.DataFrame, *, look: CohortLook, highlight_subject=None,
             subtitle=(summary_note(len(df)) + f"<br>quartiles; whiskers within "
                       f"{WHISKER_IQR:g} IQR; {beyond:,} beyond not drawn"),
             top=96, bottom=None, left=96, width=HALF_FIGURE_PX)
-    fig.add_hline(y=0, line={"color": pal.REFERENCE_COLOR, "width": 1.2, "dash": "dot"})
+    reference_line(fig, y=0, line={"color": pal.REFERENCE_COLOR, "width": 1.2, "dash": "dot"})
     fig.update_xaxes(title_text=f"{look.stratifier} group"
                                 f"{_parenthesis(look.stratifier_unit.strip())}",
                      type="category", tickangle=0)

@@ -32,7 +32,6 @@ import numpy as np
 import pandas as pd
 import plotly.graph_objects as go
 import plotly.io as _pio
-from plotly.subplots import make_subplots
 
 from analysis.exploration.summaries import (ALL_LABEL, FOLLOWED, LAST_VISIT, LEFT_EARLY, MEAN_BINS,
                                             group_means, mean_interval_halfwidth)
@@ -280,6 +279,21 @@ def _finish(fig: go.Figure, title: str, *, subtitle: str = "", legend_y: float =
     # assigned whole (merged over what the figure set itself): a tenth of update_layout's cost
     for key, value in parts.items():
         fig.layout[key] = _merged(fig.layout[key].to_plotly_json(), value)
+    return fig
+
+
+def reference_line(fig: go.Figure, *, x: float | None = None, y: float | None = None,
+                   line: dict) -> go.Figure:
+    """A line across the whole plot at ``x`` (vertical) or ``y`` (horizontal), as plotly's
+    ``add_vline``/``add_hline`` draw it, added as one shape (those calls cost ~8 ms each on
+    the server; this a twentieth of that)."""
+    if x is not None:
+        shape = {"type": "line", "xref": "x", "x0": x, "x1": x,
+                 "yref": "y domain", "y0": 0, "y1": 1, "line": line}
+    else:
+        shape = {"type": "line", "yref": "y", "y0": y, "y1": y,
+                 "xref": "x domain", "x0": 0, "x1": 1, "line": line}
+    fig.layout.shapes = (*fig.layout.shapes, shape)
     return fig
 
 
@@ -975,7 +989,7 @@ def intervals_figure(lines: pd.DataFrame, *, look: CohortLook, order: str = "slo
         notes.append("axis cut at the 1st–99th percentile of the interval ends")
     if no_slope:
         notes.append(f"{no_slope} without a slope (one visit or one time) not shown")
-    fig.add_vline(x=0, line={"color": pal.REFERENCE_COLOR, "width": 1.5, "dash": "dot"})
+    reference_line(fig, x=0, line={"color": pal.REFERENCE_COLOR, "width": 1.5, "dash": "dot"})
     _finish(fig, "Each subject's slope with its 95% interval", subtitle=" · ".join(notes),
             bottom=None, left=tick_label_left(yaxis["ticktext"], least=110))
     fig.update_xaxes(title_text=look.slope_label, range=xr)
@@ -1046,7 +1060,7 @@ def slope_vs_covariate_figure(lines: pd.DataFrame, smooth: pd.DataFrame | None, 
             subtitle=(f"axis cut at the 1st–99th percentile; {outside} outside" if yr else
                       f"{_plural(len(df), 'subject')}; line: lowess smooth"),
             top=RATE_TOP, bottom=None, left=RATE_LEFT, width=HALF_FIGURE_PX)
-    fig.add_hline(y=0, line={"color": pal.REFERENCE_COLOR, "width": 1.2, "dash": "dot"})
+    reference_line(fig, y=0, line={"color": pal.REFERENCE_COLOR, "width": 1.2, "dash": "dot"})
     fig.update_xaxes(title_text=xt, type="log" if log_axis else "linear",
                      **(_log_ticks(df["covariate"].to_numpy(float)) if log_axis else {}))
     fig.update_yaxes(title_text=look.slope_label_wrapped, range=yr)
@@ -1085,10 +1099,9 @@ def dropout_figure(dropout, *, look: CohortLook, highlight_stratum=None) -> go.F
     h_text = dropout.horizon_text(unit)
     left_title = ("Not yet left (Kaplan–Meier)" if dropout.classified
                   else "Seen at or after each time")
-    fig = make_subplots(rows=1, cols=2, column_widths=[0.62, 0.38], horizontal_spacing=0.22,
-                        subplot_titles=(left_title, f"{look.response} at the last visit"))
-    for ann in fig.layout.annotations:
-        ann.font = {"size": 15}
+    layout, (left, right) = panel_row([0.62, 0.38], spacing=0.22, title_size=15,
+                                      titles=(left_title, f"{look.response} at the last visit"))
+    traces = []
     ret = dropout.retention
     if len(ret) > STEP_POINTS:   # a large cohort: each curve read on a time grid (same curve there)
         ret = ret.iloc[thin_steps(ret["time"], ret["label"], n_points=STEP_POINTS)]
@@ -1102,16 +1115,15 @@ def dropout_figure(dropout, *, look: CohortLook, highlight_stratum=None) -> go.F
         colour = pal.REFERENCE_COLOR if overall else look.colour(lab)
         name = ALL_LABEL if overall else look.group_title(lab)
         x = r["time"].to_numpy(float)
-        fig.add_trace(go.Scatter(x=x, y=r["hi"].to_numpy(float), mode="lines",
+        traces.append(go.Scatter(x=x, y=r["hi"].to_numpy(float), mode="lines",
                                  line={"shape": "hv", "width": 0}, legendgroup=lab,
-                                 showlegend=False, hoverinfo="skip"), row=1, col=1)
-        fig.add_trace(go.Scatter(x=x, y=r["lo"].to_numpy(float), mode="lines",
+                                 showlegend=False, hoverinfo="skip", **left))
+        traces.append(go.Scatter(x=x, y=r["lo"].to_numpy(float), mode="lines",
                                  line={"shape": "hv", "width": 0}, fill="tonexty",
                                  fillcolor=pal.with_alpha(colour, (0.10 if overall else 0.16)
                                                           * strength),
-                                 legendgroup=lab, showlegend=False, hoverinfo="skip"),
-                      row=1, col=1)
-        fig.add_trace(go.Scatter(
+                                 legendgroup=lab, showlegend=False, hoverinfo="skip", **left))
+        traces.append(go.Scatter(
             x=x, y=r["retained"].to_numpy(float), mode="lines", name=name, legendgroup=lab,
             line={"shape": "hv", "width": 3 if strength == 1 and not overall else 2,
                   "color": pal.with_alpha(colour, strength),
@@ -1121,13 +1133,16 @@ def dropout_figure(dropout, *, look: CohortLook, highlight_stratum=None) -> go.F
             hovertemplate=(f"{name}<br>%{{x:.1f}} {unit}: %{{y:.1%}} "
                            + ("not yet left" if dropout.classified else "seen at or after")
                            + " (95% band %{customdata[0]:.1%} to %{customdata[1]:.1%})"
-                           "<br>%{customdata[2]} at risk<extra></extra>")), row=1, col=1)
+                           "<br>%{customdata[2]} at risk<extra></extra>"), **left))
     if dropout.classified:  # without statuses the horizon judges nothing
-        fig.add_vline(x=dropout.horizon, line={"color": pal.REFERENCE_COLOR, "dash": "dot",
-                                               "width": 1.5}, row=1, col=1)
-        fig.add_annotation(x=dropout.horizon, y=1.0, xref="x", yref="y", showarrow=False,
-                           xanchor="right", yanchor="bottom", text=f"horizon {h_text}",
-                           font={"size": 13, "color": pal.REFERENCE_COLOR})
+        layout["shapes"] = [{"type": "line", "x0": dropout.horizon, "x1": dropout.horizon,
+                             "xref": "x", "y0": 0, "y1": 1, "yref": "y domain",
+                             "line": {"color": pal.REFERENCE_COLOR, "dash": "dot",
+                                      "width": 1.5}}]
+        layout["annotations"].append({
+            "x": dropout.horizon, "y": 1.0, "xref": "x", "yref": "y", "showarrow": False,
+            "xanchor": "right", "yanchor": "bottom", "text": f"horizon {h_text}",
+            "font": {"size": 13, "color": pal.REFERENCE_COLOR}})
     # right: mean response at the last visit ± 95% interval, one row per group
     tab = dropout.by_stratum
     groups = list(dict.fromkeys(tab["label"].astype(str)))
@@ -1142,14 +1157,13 @@ def dropout_figure(dropout, *, look: CohortLook, highlight_stratum=None) -> go.F
         opac = [1.0 if lab == ALL_LABEL else _strength(look, lab, highlight_stratum)
                 for lab in labs]
         if dropout.classified:  # legend key in neutral grey (the points carry the group colour)
-            fig.add_trace(go.Scatter(x=[None], y=[None], mode="markers", name=group,
+            traces.append(go.Scatter(x=[None], y=[None], mode="markers", name=group,
                                      legendgroup=group, hoverinfo="skip",
                                      marker={"symbol": symbol, "size": 12,
                                              "color": pal.REFERENCE_COLOR,
                                              "line": {"width": 2.5,
-                                                      "color": pal.REFERENCE_COLOR}}),
-                          row=1, col=2)
-        fig.add_trace(go.Scatter(
+                                                      "color": pal.REFERENCE_COLOR}}, **right))
+        traces.append(go.Scatter(
             x=g["mean"].to_numpy(), y=[ypos[lab] + shift for lab in labs], mode="markers",
             name=group, legendgroup=group, showlegend=False,
             marker={"symbol": symbol, "size": 12, "color": colours, "opacity": opac,
@@ -1159,7 +1173,7 @@ def dropout_figure(dropout, *, look: CohortLook, highlight_stratum=None) -> go.F
             customdata=np.c_[labs.astype(object), g["n"].to_numpy(), g["sd"].to_numpy()],
             hovertemplate=(f"%{{customdata[0]}}, {group}<br>mean %{{x:.1f}} "
                            f"{look.response_unit}<br>sd %{{customdata[2]:.1f}}, "
-                           "%{customdata[1]} subjects<extra></extra>")), row=1, col=2)
+                           "%{customdata[1]} subjects<extra></extra>"), **right))
     if dropout.classified:
         c = dropout.counts
         subtitle = (f"{c['left_early']:,} left before {h_text} · {c['censored']:,} had not "
@@ -1167,18 +1181,45 @@ def dropout_figure(dropout, *, look: CohortLook, highlight_stratum=None) -> go.F
     else:
         subtitle = ("Leaving early cannot be told apart from the end of the data "
                     "(no calendar dates or follow-up end column)")
-    _finish(fig, "Loss to follow-up, by group", subtitle=subtitle, bottom=130, top=100)
     lo_min = float(np.nanmin(ret["lo"])) if len(ret) else 0.0
-    fig.update_xaxes(title_text=look.time_label, row=1, col=1, rangemode="tozero")
-    fig.update_yaxes(title_text=("share not yet left" if dropout.classified
-                                 else "share seen at or after"),
-                     tickformat=".0%", range=[max(0.0, lo_min - 0.04), 1.03], row=1, col=1)
-    fig.update_xaxes(title_text=f"mean ± 95% interval{' (' + look.response_unit + ')' if look.response_unit else ''}",
-                     row=1, col=2)
-    fig.update_yaxes(tickvals=list(ypos.values()),
-                     ticktext=[look.group_title(s) for s in ypos], autorange="reversed",
-                     row=1, col=2, showgrid=False, zeroline=False, title_text="")
+    unit_note = f" ({look.response_unit})" if look.response_unit else ""
+    layout["xaxis"].update(title={"text": look.time_label}, rangemode="tozero")
+    layout["yaxis"].update(title={"text": "share not yet left" if dropout.classified
+                                  else "share seen at or after"},
+                           tickformat=".0%", range=[max(0.0, lo_min - 0.04), 1.03])
+    layout["xaxis2"].update(title={"text": f"mean ± 95% interval{unit_note}"})
+    layout["yaxis2"].update(tickvals=list(ypos.values()),
+                            ticktext=[look.group_title(s) for s in ypos], autorange="reversed",
+                            showgrid=False, zeroline=False, title={"text": ""})
+    fig = go.Figure(data=traces, layout=layout)
+    _finish(fig, "Loss to follow-up, by group", subtitle=subtitle, bottom=130, top=100)
     return fig
+
+
+def panel_row(widths, *, spacing: float, titles, title_size: int) -> tuple[dict, list[dict]]:
+    """(layout, axes of each panel) of panels side by side, ``widths`` their shares of the
+    width left after ``spacing`` between them, each titled from ``titles`` above it (as
+    ``make_subplots(rows=1, column_widths=..., subplot_titles=...)`` lays them out, written
+    out directly: see :func:`panel_grid`)."""
+    room = 1.0 - spacing * (len(widths) - 1)
+    total = float(sum(widths))
+    layout: dict = {"annotations": []}
+    panels, x0 = [], 0.0
+    for i, w in enumerate(widths):
+        n = "" if i == 0 else str(i + 1)
+        w = room * w / total
+        layout[f"xaxis{n}"] = {"anchor": f"y{n}", "domain": [x0, x0 + w]}
+        layout[f"yaxis{n}"] = {"anchor": f"x{n}", "domain": [0.0, 1.0]}
+        panels.append({"xaxis": f"x{n}", "yaxis": f"y{n}"})
+        if i < len(titles):
+            layout["annotations"].append({
+                "text": titles[i], "x": x0 + w / 2, "y": 1.0, "xref": "paper", "yref": "paper",
+                "xanchor": "center", "yanchor": "bottom", "showarrow": False,
+                "font": {"size": title_size}})
+        x0 += w + spacing
+    return layout, panels
+
+
 
 
 # --------------------------------------------------------------------------- model checks
@@ -1250,7 +1291,7 @@ def residual_scatter_figure(checks, *, look: CohortLook, against: str = "fitted"
                            marker={"color": pal.HIGHLIGHT_COLOR, "size": 11, "symbol": "diamond",
                                    "line": {"color": "#ffffff", "width": 1}},
                            hovertemplate="subject %{customdata}<br>%{y:.2f}<extra></extra>"))
-    fig.add_hline(y=0, line={"color": pal.REFERENCE_COLOR, "width": 1.2})
+    reference_line(fig, y=0, line={"color": pal.REFERENCE_COLOR, "width": 1.2})
     what = "fitted value" if col == "fitted" else "time"
     _finish(fig, f"Standardised residuals by {what}",
             subtitle=_sample_note(len(shown), len(v)), bottom=100)
