@@ -124,3 +124,20 @@ def test_bad_options():
         detrend(p, method="lowess", lowess_frac=0.0)
     with pytest.raises(DataError, match="groups has 3 entries"):
         detrend(p, method="linear", groups=np.zeros(3, dtype=int))
+
+
+@pytest.mark.parametrize("method, spline_df", [("linear", 4), ("spline", 4)])
+def test_fit_on_distinct_times_equals_the_fit_on_every_row(method, spline_df):
+    """The trend is fitted on the distinct times (their mean responses weighted by their
+    counts); reference: statsmodels OLS on the row-level design (every visit its own row),
+    on 20,000 visits at 300 distinct times."""
+    rng = np.random.default_rng(11)
+    subj = np.repeat(np.arange(2000), 10)
+    t = rng.integers(0, 300, subj.size) / 5.0
+    y = 60 - 0.01 * (t - 25) ** 2 + rng.normal(0, 4, subj.size)
+    p = Panel.from_arrays(subj, t, y)
+    out = detrend(p, method=method, spline_df=spline_df)
+    knots = ([p.time.min(), p.time.max()] if method == "linear"
+             else spline_knots(np.unique(p.time), spline_df, rule="distinct"))
+    ref = sm.OLS(p.y, natural_spline_basis(p.time, knots, intercept=True)).fit().fittedvalues
+    np.testing.assert_allclose(out.fitted, ref, rtol=0, atol=1e-9)

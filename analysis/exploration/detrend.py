@@ -152,32 +152,47 @@ def detrend(panel: Panel, *, method: str, spline_df: int = 4, lowess_frac: float
 # --------------------------------------------------------------------------- helpers
 def _fit(t, y, at, method, spline_df, frac, notes):
     """Fit the mean model on (t, y) and evaluate it at ``at``; returns (values, None, text)."""
-    distinct = np.unique(t)
+    distinct, where = np.unique(t, return_inverse=True)
     if method == "none" or distinct.size == 1:
         if method != "none":
             notes.append("all times are equal; used the mean")
         return np.full(np.shape(at), float(np.mean(y))), None, "grand mean"
     if method == "linear" or (method == "spline" and spline_df == 1):
-        return _lstsq_eval(natural_spline_basis(t, [t.min(), t.max()], intercept=True),
-                           natural_spline_basis(at, [t.min(), t.max()], intercept=True), y), None, \
+        knots = np.array([t.min(), t.max()])
+        return _distinct_lstsq(t, y, at, distinct, where, knots), None, \
             "straight line in time (pooled least squares)"
     if method == "spline":
-        where = np.searchsorted(distinct, t)
         knots, text = spline_plan(distinct, spline_df, notes)
-        # the basis is elementwise in time: built once per distinct time and gathered to the
-        # rows (the same design matrix, at a fraction of the cost on long tables)
-        design = np.take(natural_spline_basis(distinct, knots, intercept=True), where, axis=0)
-        if at.size >= t.size and np.array_equal(at[:t.size], t):
-            design_at = np.concatenate(
-                (design, natural_spline_basis(at[t.size:], knots, intercept=True)))
-        else:
-            design_at = natural_spline_basis(at, knots, intercept=True)
-        return _lstsq_eval(design, design_at, y), None, text
+        return _distinct_lstsq(t, y, at, distinct, where, knots), None, text
     xs, fs = _lowess_curve(t, y, frac)
     if not np.all(np.isfinite(fs)):
         notes.append("too few points for lowess; used a straight line")
         return _fit(t, y, at, "linear", spline_df, frac, notes)
     return np.interp(at, xs, fs), None, f"lowess smooth of time (span {frac:g} of the points)"
+
+
+def _distinct_lstsq(t, y, at, distinct, where, knots):
+    """Pooled least-squares fit of y on the natural spline basis (``knots``) of t, evaluated
+    at ``at``; ``distinct``, ``where`` = ``np.unique(t, return_inverse=True)``.
+
+    The basis is elementwise in time, so the fit is done on the distinct times: each with the
+    mean of its responses, weighted by how many there are (the same coefficients as on every
+    row, since the squared error is the within-time part, which the coefficients do not
+    change, plus n_d (mean_d - fit_d)^2). The rows' values are then gathered from the
+    distinct times'. At a million rows this is a few ms instead of a least-squares solve on a
+    million-row design.
+    """
+    basis = natural_spline_basis(distinct, knots, intercept=True)
+    n = np.bincount(where, minlength=distinct.size).astype(float)
+    mean = np.bincount(where, weights=y, minlength=distinct.size) / n
+    w = np.sqrt(n)
+    beta, *_ = np.linalg.lstsq(basis * w[:, None], mean * w, rcond=None)
+    fitted = basis @ beta
+    if at.size >= t.size and np.array_equal(at[:t.size], t):
+        rest = at[t.size:]
+        return np.concatenate((fitted[where], natural_spline_basis(rest, knots, intercept=True)
+                               @ beta if rest.size else np.empty(0)))
+    return natural_spline_basis(at, knots, intercept=True) @ beta
 
 
 def spline_plan(distinct_times, spline_df: int, notes: list) -> tuple[np.ndarray, str]:
@@ -193,11 +208,6 @@ def spline_plan(distinct_times, spline_df: int, notes: list) -> tuple[np.ndarray
     if use_df < spline_df:
         text += f"; {spline_df} df were asked for, but there are only {n_unique} distinct times"
     return knots, text
-
-
-def _lstsq_eval(design, design_at, y):
-    beta, *_ = np.linalg.lstsq(design, y, rcond=None)
-    return design_at @ beta
 
 
 def _lowess_curve(t, y, frac):
