@@ -53,23 +53,61 @@ def check_group_limit(selection: CohortSelection, settings: Settings) -> None:
                             f"{n:,} subjects; choose from 1 to {hi}.", field="n_strata")
 
 
+#: object arrays (and tables) up to this many elements (rows) are sized exactly; longer ones
+#: from an even sample of ``SIZE_SAMPLE`` elements (sizing every text of a million-row table
+#: cost tens of ms per cached result)
+SIZE_EXACT = 50_000
+SIZE_SAMPLE = 5_000
+
+
+def _objects_nbytes(values: np.ndarray) -> int:
+    """``values.nbytes`` plus the Python objects it points to (estimated from an even sample
+    when there are more than :data:`SIZE_EXACT`)."""
+    flat = values.ravel()
+    if flat.size <= SIZE_EXACT:
+        return int(flat.nbytes) + sum(sys.getsizeof(v) for v in flat)
+    sample = flat[::flat.size // SIZE_SAMPLE]
+    return int(flat.nbytes) + int(sum(sys.getsizeof(v) for v in sample) * flat.size / sample.size)
+
+
+def _column_nbytes(values) -> int:
+    """Memory of one table column or index of more than :data:`SIZE_EXACT` rows."""
+    if isinstance(values, pd.Series):
+        values = values.array
+    if isinstance(values, pd.Categorical):
+        return int(values.codes.nbytes) + _column_nbytes(values.categories)
+    if isinstance(values, pd.Index) and not isinstance(values, pd.RangeIndex):
+        values = values.array
+    if isinstance(values, pd.arrays.NumpyExtensionArray) or isinstance(values, np.ndarray):
+        array = np.asarray(values)
+        return _objects_nbytes(array) if array.dtype == object else int(array.nbytes)
+    return int(values.memory_usage(deep=True)) if isinstance(values, pd.Index) \
+        else int(values.nbytes)
+
+
 def deep_nbytes(obj, _seen: set | None = None, _depth: int = 0) -> int:
     """Estimated memory held by a result: numpy ``nbytes``, pandas ``memory_usage(deep=True)``,
-    recursing into dataclasses, objects' attributes and containers (each object counted once)."""
+    recursing into dataclasses, objects' attributes and containers (each object counted once;
+    texts of long columns estimated from a sample, see :data:`SIZE_EXACT`)."""
     seen = set() if _seen is None else _seen
     if id(obj) in seen or _depth > 12:
         return 0
     seen.add(id(obj))
     if isinstance(obj, np.ndarray):
         if obj.dtype == object:
-            return int(obj.nbytes) + sum(sys.getsizeof(v) for v in obj.ravel()[:100_000]) \
-                * max(1, obj.size // 100_000)
+            return _objects_nbytes(obj)
         return int(obj.nbytes) if obj.base is None else 0 if id(obj.base) in seen \
             else deep_nbytes(obj.base, seen, _depth + 1) or int(obj.nbytes)
     if isinstance(obj, pd.DataFrame):
-        return int(obj.memory_usage(deep=True, index=True).sum())
+        if len(obj) <= SIZE_EXACT:
+            return int(obj.memory_usage(deep=True, index=True).sum())
+        return _column_nbytes(obj.index) + sum(_column_nbytes(obj.iloc[:, i])
+                                               for i in range(obj.shape[1]))
     if isinstance(obj, (pd.Series, pd.Index)):
-        return int(obj.memory_usage(deep=True))
+        if len(obj) <= SIZE_EXACT:
+            return int(obj.memory_usage(deep=True))
+        return _column_nbytes(obj) + (_column_nbytes(obj.index)
+                                      if isinstance(obj, pd.Series) else 0)
     if isinstance(obj, (str, bytes, int, float, bool, type(None))):
         return sys.getsizeof(obj)
     if isinstance(obj, dict):

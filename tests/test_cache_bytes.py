@@ -82,3 +82,23 @@ def test_workbench_stays_within_its_budget():
     assert wb.compute_counts["selection"] == 5
     # reference for the recomputed result: a fresh Workbench
     assert again.panel.n_obs == one.panel.n_obs and again.panel.n_subjects == one.panel.n_subjects
+
+
+def test_deep_nbytes_estimates_long_text_columns_from_a_sample():
+    """Above SIZE_EXACT elements the texts are sized from an even sample; reference: every
+    element's sys.getsizeof (brute force) and pandas memory_usage(deep=True)."""
+    import sys
+
+    from analysis.pipeline import SIZE_EXACT
+
+    rng = np.random.default_rng(0)
+    texts = np.array(["x" * int(k) for k in rng.integers(1, 40, 6 * SIZE_EXACT)], dtype=object)
+    exact = texts.nbytes + sum(sys.getsizeof(v) for v in texts)
+    assert abs(deep_nbytes(texts) / exact - 1) < 0.02
+    cat = pd.DataFrame({"c": pd.Categorical.from_codes(rng.integers(0, texts.size, texts.size),
+                                                       categories=pd.Index(
+                                                           [f"R{i:07d}" for i in range(texts.size)],
+                                                           dtype=object)),
+                        "t": rng.random(texts.size)})
+    ref = int(cat.memory_usage(deep=True, index=True).sum())
+    assert abs(deep_nbytes(cat) / ref - 1) < 0.02
