@@ -5,10 +5,9 @@ import sys
 
 import numpy as np
 import pandas as pd
-import pytest
 
 from analysis.preparation.demo import load_demo
-from analysis.settings import Roles, Settings
+from analysis.settings import Roles
 from app.cli import main, resolve, build_parser
 
 

@@ -7,7 +7,6 @@ this file, closed-form normal-variance information, and scipy.stats.
 import json
 
 import numpy as np
-import pandas as pd
 import pytest
 from scipy import stats
 

@@ -3,11 +3,9 @@ export and the simulation read-out. References: plan_study called directly (the 
 from __future__ import annotations
 
 import numpy as np
-import pandas as pd
 import pytest
 
 from analysis.preparation.demo import demo_roles, demo_settings, load_demo
-from analysis.errors import SettingsError
 from analysis.preparation.loading import Dataset
 from analysis.models.plan_defaults import cohort_covariate
 from analysis.models.planning import CovarianceModel, PlanInputs, plan_study, simulate_power

@@ -12,7 +12,6 @@ from __future__ import annotations
 import json
 
 import numpy as np
-import pytest
 
 from analysis.models.checks import checks_for
 from analysis.models.modelstage import ModelChoices
