@@ -1099,7 +1099,13 @@ def dropout_figure(dropout, *, look: CohortLook, highlight_stratum=None) -> go.F
     h_text = dropout.horizon_text(unit)
     left_title = ("Not yet left (Kaplan–Meier)" if dropout.classified
                   else "Seen at or after each time")
-    layout, (left, right) = panel_row([0.62, 0.38], spacing=0.22, title_size=15,
+    # the right panel's group names sit between the panels: the gap is made wide enough
+    # for the longest (on a full-width figure at a 1,280 px page)
+    groups = list(dict.fromkeys(dropout.by_stratum["label"].astype(str)))
+    ticks = [look.group_title(s) for s in groups]
+    gap = (TICK_CHAR_PX * max((len(t) for t in ticks), default=0) + 30) / (FULL_FIGURE_PX - 104)
+    layout, (left, right) = panel_row([0.62, 0.38], spacing=min(0.4, max(0.22, gap)),
+                                      title_size=15,
                                       titles=(left_title, f"{look.response} at the last visit"))
     traces = []
     ret = dropout.retention
@@ -1145,7 +1151,6 @@ def dropout_figure(dropout, *, look: CohortLook, highlight_stratum=None) -> go.F
             "font": {"size": 13, "color": pal.REFERENCE_COLOR}})
     # right: mean response at the last visit ± 95% interval, one row per group
     tab = dropout.by_stratum
-    groups = list(dict.fromkeys(tab["label"].astype(str)))
     ypos = {lab: i for i, lab in enumerate(groups)}
     shapes = ({FOLLOWED: ("circle", -0.17), LEFT_EARLY: ("diamond-open", 0.17)}
               if dropout.classified else {LAST_VISIT: ("circle", 0.0)})
@@ -1182,17 +1187,18 @@ def dropout_figure(dropout, *, look: CohortLook, highlight_stratum=None) -> go.F
         subtitle = ("Leaving early cannot be told apart from the end of the data "
                     "(no calendar dates or follow-up end column)")
     lo_min = float(np.nanmin(ret["lo"])) if len(ret) else 0.0
-    unit_note = f" ({look.response_unit})" if look.response_unit else ""
+    unit_note = f"<br>({look.response_unit})" if look.response_unit else ""
     layout["xaxis"].update(title={"text": look.time_label}, rangemode="tozero")
     layout["yaxis"].update(title={"text": "share not yet left" if dropout.classified
                                   else "share seen at or after"},
                            tickformat=".0%", range=[max(0.0, lo_min - 0.04), 1.03])
     layout["xaxis2"].update(title={"text": f"mean ± 95% interval{unit_note}"})
     layout["yaxis2"].update(tickvals=list(ypos.values()),
-                            ticktext=[look.group_title(s) for s in ypos], autorange="reversed",
+                            ticktext=ticks, autorange="reversed",
                             showgrid=False, zeroline=False, title={"text": ""})
     fig = go.Figure(data=traces, layout=layout)
-    _finish(fig, "Loss to follow-up, by group", subtitle=subtitle, bottom=130, top=100)
+    _finish(fig, "Loss to follow-up, by group", subtitle=subtitle, bottom=None, top=100,
+            axis_block=X_AXIS_BLOCK_PX + (TICK_LINE_PX if unit_note else 0))
     return fig
 
 
