@@ -26,7 +26,8 @@ from analysis.exploration.digest import (BAND_STEP, GRID_SHAPE, MEMBERS_SHOWN, S
                                          percent_rank, percentile_bands, subject_sample)
 
 from . import palette as pal
-from .figures import (COLORBAR_RIGHT_PX, HALF_FIGURE_PX, CohortLook, _finish, _parenthesis,
+from .figures import (COLORBAR_RIGHT_PX, HALF_FIGURE_PX, TICK_LINE_PX, X_AXIS_BLOCK_PX,
+                      CohortLook, _finish, _parenthesis, category_ticks,
                       _plural, _present_strata, _robust_range, _rows_to_segments, _strength,
                       empty_figure, reference_line, tick_label_left)
 from .text import short
@@ -66,6 +67,11 @@ def _slopes(lines: pd.DataFrame, labels: list[str]):
 
 
 # --------------------------------------------------------------------------- bands
+#: the title block hung from the figure's top edge (a three-line subtitle then grows
+#: downwards into the top margin instead of into the plot)
+TITLE_AT_TOP = {"yref": "container", "y": 1.0, "yanchor": "top", "pad": {"t": 12}}
+
+
 def bands_figure(lines: pd.DataFrame, *, look: CohortLook, highlight_subject=None,
                  highlight_stratum=None, seed: int = 1,
                  per_group: int = SAMPLE_PER_GROUP) -> go.Figure:
@@ -150,17 +156,20 @@ def bands_figure(lines: pd.DataFrame, *, look: CohortLook, highlight_subject=Non
     xr, _ = _robust_range(np.r_[bands.lo.ravel(), bands.hi.ravel(), bands.slope.ravel()],
                           q=0.01)
     no_slope = int(len(lines) - len(df))
-    notes = [f"per group every {BAND_STEP:g}th percentile of slope (line) and of the interval "
-             f"ends (band); {s.size:,} subjects drawn at random (sample {seed}) at their rank"]
+    drawn = f"{s.size:,} subjects drawn at random (sample {seed}) at their rank"
     if no_slope:
-        notes.append(f"{no_slope:,} without a slope not shown")
+        drawn += f" · {no_slope:,} without a slope not shown"
     reference_line(fig, x=0, line={"color": pal.REFERENCE_COLOR, "width": 1.5, "dash": "dot"})
     ticks = [look.group_title(k) for k in offsets]
+    # one line each, so none runs past the figure's edge; the title block hangs from the top
     _finish(fig, "Each subject's slope with its 95% interval, as percentile bands",
-            subtitle=summary_note(len(df)) + ", ordered by slope<br>" + " · ".join(notes),
-            top=96, bottom=None, left=tick_label_left(ticks, least=110))
+            subtitle=(summary_note(len(df)) + ", ordered by slope<br>per group every "
+                      f"{BAND_STEP:g}th percentile of slope (line) and of the interval ends "
+                      f"(band)<br>{drawn}"),
+            top=132, bottom=None, left=tick_label_left(ticks, least=110) + TICK_LINE_PX)
+    fig.layout.title.update(TITLE_AT_TOP)
     fig.update_xaxes(title_text=look.slope_label, range=xr)
-    fig.update_yaxes(title_text=f"percent of subjects, grouped by {look.stratifier}",
+    fig.update_yaxes(title_text=f"percent of subjects,<br>grouped by {look.stratifier}",
                      autorange="reversed", showgrid=False, zeroline=False,
                      tickvals=[offsets[k] + 50 for k in offsets], ticktext=ticks)
     return fig
@@ -230,9 +239,10 @@ def density_figure(lines: pd.DataFrame, smooth: pd.DataFrame | None, *, look: Co
     xt = name + _parenthesis(", ".join(p for p in (unit, "log scale" if grid.log_x else "") if p))
     sub = (summary_note(len(df)) + f"<br>subjects per cell of a {nx} × {ny} grid"
            + (f"; {grid.n_outside:,} off the axis" if grid.n_outside else "")
-           + "; line: lowess, all")
-    _finish(fig, f"Subject slope against {name}", subtitle=sub, top=96, bottom=150, left=96,
+           + "<br>line: lowess smooth of every subject")
+    _finish(fig, f"Subject slope against {name}", subtitle=sub, top=132, bottom=150, left=96,
             right=COLORBAR_RIGHT_PX)
+    fig.layout.title.update(TITLE_AT_TOP)
     reference_line(fig, y=0, line={"color": pal.REFERENCE_COLOR, "width": 1.2, "dash": "dot"})
     fig.update_xaxes(title_text=xt, type="log" if grid.log_x else "linear")
     fig.update_yaxes(title_text=look.slope_label_wrapped,
@@ -273,14 +283,21 @@ def box_figure(lines: pd.DataFrame, *, look: CohortLook, highlight_subject=None,
                         "line": {"width": 3, "color": pal.HIGHLIGHT_COLOR}},
                 hovertemplate="subject %{customdata[0]}<br>slope %{y:.3g}<extra></extra>"))
     yr, _ = _robust_range(slope)
+    # the bare group ranges, horizontal, broken after their dash when they do not fit side by
+    # side (as in the per-subject view); the covariate and its unit are in the axis title
+    names = [labels[g] if g < len(labels) else str(g) for g in box.groups]
+    ticks = category_ticks(names)
     _finish(fig, f"Subject slopes by {look.stratifier}",
             subtitle=(summary_note(len(df)) + f"<br>quartiles; whiskers within "
                       f"{WHISKER_IQR:g} IQR; {beyond:,} beyond not drawn"),
-            top=96, bottom=None, left=96, width=HALF_FIGURE_PX)
+            top=132, bottom=None, left=96, width=HALF_FIGURE_PX,     # (as the density beside it)
+            axis_block=X_AXIS_BLOCK_PX + TICK_LINE_PX * max((t.count("<br>") for t in ticks),
+                                                            default=0))
+    fig.layout.title.update(TITLE_AT_TOP)
     reference_line(fig, y=0, line={"color": pal.REFERENCE_COLOR, "width": 1.2, "dash": "dot"})
     fig.update_xaxes(title_text=f"{look.stratifier} group"
                                 f"{_parenthesis(look.stratifier_unit.strip())}",
-                     type="category", tickangle=0)
+                     type="category", tickangle=0, tickvals=names, ticktext=ticks)
     fig.update_yaxes(title_text=look.slope_label_wrapped, range=yr)
     fig.update_layout(showlegend=True)
     return fig

@@ -282,6 +282,28 @@ def _finish(fig: go.Figure, title: str, *, subtitle: str = "", legend_y: float =
     return fig
 
 
+def category_ticks(labels: Sequence[str], *, width: int = 40) -> list[str]:
+    """Horizontal tick labels for ``labels`` side by side on an axis about ``width`` characters long.
+
+    When every label fits its share they stay on one line; otherwise each range
+    label ("10.7 – 20.4") breaks after its dash and any other label wraps at
+    spaces, so neighbouring labels never run into each other.
+    """
+    labels = [str(lab) for lab in labels]
+    budget = max(6, int(width / max(len(labels), 1)))
+    if all(len(lab) <= budget for lab in labels):
+        return labels
+    out = []
+    for lab in labels:
+        lo, dash, hi = lab.partition(" – ")
+        if dash and lo and hi:
+            out.append(f"{lo} –<br>{hi}")
+        else:
+            out.append("<br>".join(textwrap.wrap(lab, width=budget, break_long_words=False)
+                                   or [lab]))
+    return out
+
+
 def reference_line(fig: go.Figure, *, x: float | None = None, y: float | None = None,
                    line: dict) -> go.Figure:
     """A line across the whole plot at ``x`` (vertical) or ``y`` (horizontal), as plotly's

@@ -2,9 +2,6 @@
 group summary table."""
 from __future__ import annotations
 
-import textwrap
-from typing import Sequence
-
 import numpy as np
 import pandas as pd
 import plotly.graph_objects as go
@@ -20,7 +17,8 @@ from ..figures import (CohortLook, _finish, _parenthesis, _present_strata, _robu
                        _strength, cohort_look)
 from ..figures import (RATE_LEFT, RATE_TOP,  # noqa: F401  (Dash-free: the report draws it too)
                        slope_vs_covariate_figure)
-from ..figures import HALF_FIGURE_PX, TICK_LINE_PX, X_AXIS_BLOCK_PX, reference_line
+from ..figures import (HALF_FIGURE_PX, TICK_LINE_PX, X_AXIS_BLOCK_PX, category_ticks,
+                       reference_line)
 from ..digest_figures import box_figure, cell_click_members, density_figure, summarised
 from ..session import AppContext
 from ..text import short
@@ -127,28 +125,6 @@ def rate_table_columns(present, cohort) -> list[dict]:
                                    cohort.settings.unit)
     have = set(present)
     return [{"name": list(pair), "id": col} for col, pair in labels.items() if col in have]
-
-
-def category_ticks(labels: Sequence[str], *, width: int = 40) -> list[str]:
-    """Horizontal tick labels for ``labels`` side by side on an axis about ``width`` characters long.
-
-    When every label fits its share they stay on one line; otherwise each range
-    label ("10.7 – 20.4") breaks after its dash and any other label wraps at
-    spaces, so neighbouring labels never run into each other.
-    """
-    labels = [str(lab) for lab in labels]
-    budget = max(6, int(width / max(len(labels), 1)))
-    if all(len(lab) <= budget for lab in labels):
-        return labels
-    out = []
-    for lab in labels:
-        lo, dash, hi = lab.partition(" – ")
-        if dash and lo and hi:
-            out.append(f"{lo} –<br>{hi}")
-        else:
-            out.append("<br>".join(textwrap.wrap(lab, width=budget, break_long_words=False)
-                                   or [lab]))
-    return out
 
 
 def slopes_by_stratum_figure(lines: pd.DataFrame, *, look: CohortLook, highlight_subject=None,
