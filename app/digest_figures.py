@@ -26,8 +26,8 @@ from analysis.exploration.digest import (BAND_STEP, GRID_SHAPE, MEMBERS_SHOWN, S
                                          percent_rank, percentile_bands, subject_sample)
 
 from . import palette as pal
-from .figures import (COLORBAR_RIGHT_PX, HALF_FIGURE_PX, TICK_LINE_PX, X_AXIS_BLOCK_PX,
-                      CohortLook, _finish, _parenthesis, category_ticks,
+from .figures import (COLORBAR_RIGHT_PX, HALF_FIGURE_PX, CohortLook, _finish, _parenthesis,
+                      category_ticks, x_axis_block,
                       _plural, _present_strata, _robust_range, _rows_to_segments, _strength,
                       empty_figure, reference_line, tick_label_left)
 from .text import short
@@ -166,7 +166,7 @@ def bands_figure(lines: pd.DataFrame, *, look: CohortLook, highlight_subject=Non
             subtitle=(summary_note(len(df)) + ", ordered by slope<br>per group every "
                       f"{BAND_STEP:g}th percentile of slope (line) and of the interval ends "
                       f"(band)<br>{drawn}"),
-            top=132, bottom=None, left=tick_label_left(ticks, least=110) + TICK_LINE_PX)
+            top=132, bottom=None, left=tick_label_left(ticks, least=110, title_lines=2))
     fig.layout.title.update(TITLE_AT_TOP)
     fig.update_xaxes(title_text=look.slope_label, range=xr)
     fig.update_yaxes(title_text=f"percent of subjects,<br>grouped by {look.stratifier}",
@@ -259,10 +259,10 @@ def box_figure(lines: pd.DataFrame, *, look: CohortLook, highlight_subject=None,
         lines["slope"].to_numpy(float))])
     df, codes, slope, _, _ = _slopes(lines, labels)
     box = box_statistics(slope, codes)
+    names = [labels[g] if g < len(labels) else str(g) for g in box.groups]
     fig = go.Figure()
     beyond = 0
-    for r, g in enumerate(box.groups):
-        lab = labels[g] if g < len(labels) else str(g)
+    for r, lab in enumerate(names):
         strength = _strength(look, lab, highlight_stratum)
         colour = look.colour(lab)
         beyond += int(box.n_below[r] + box.n_above[r])
@@ -285,14 +285,12 @@ def box_figure(lines: pd.DataFrame, *, look: CohortLook, highlight_subject=None,
     yr, _ = _robust_range(slope)
     # the bare group ranges, horizontal, broken after their dash when they do not fit side by
     # side (as in the per-subject view); the covariate and its unit are in the axis title
-    names = [labels[g] if g < len(labels) else str(g) for g in box.groups]
     ticks = category_ticks(names)
     _finish(fig, f"Subject slopes by {look.stratifier}",
             subtitle=(summary_note(len(df)) + f"<br>quartiles; whiskers within "
                       f"{WHISKER_IQR:g} IQR; {beyond:,} beyond not drawn"),
             top=132, bottom=None, left=96, width=HALF_FIGURE_PX,     # (as the density beside it)
-            axis_block=X_AXIS_BLOCK_PX + TICK_LINE_PX * max((t.count("<br>") for t in ticks),
-                                                            default=0))
+            axis_block=x_axis_block(ticks))
     fig.layout.title.update(TITLE_AT_TOP)
     reference_line(fig, y=0, line={"color": pal.REFERENCE_COLOR, "width": 1.2, "dash": "dot"})
     fig.update_xaxes(title_text=f"{look.stratifier} group"

@@ -235,6 +235,8 @@ def empty_figure(message: str, *, title: str = "") -> go.Figure:
 #: figures side by side). Margins sized for them also hold at wider pages.
 FULL_FIGURE_PX = 882.0
 HALF_FIGURE_PX = 432.0
+#: the plot's own width in a full-width figure with the default side margins (80 + 24 px)
+FULL_PLOT_PX = FULL_FIGURE_PX - 80 - 24
 #: The foot legend and the x axis as plotly.js 4 draws them at the house fonts, measured in
 #: headless Chromium: an entry is its symbol and gaps (60 px) plus ~8 px a character of its
 #: 14 px label; a row is 21.2 px, 31 px when the entries are legend groups; 11 px of padding;
@@ -327,7 +329,7 @@ def _merged(base: dict, over: dict) -> dict:
     return out
 
 
-def foot_legend_rows(names, *, width: float = FULL_FIGURE_PX - 104) -> int:
+def foot_legend_rows(names, *, width: float = FULL_PLOT_PX) -> int:
     """How many rows a foot legend of ``names`` takes over a plot ``width`` px wide.
 
     Entries are packed greedily, as plotly.js packs a horizontal legend, each as wide as
@@ -342,7 +344,7 @@ def foot_legend_rows(names, *, width: float = FULL_FIGURE_PX - 104) -> int:
     return rows
 
 
-def foot_legend_bottom(names, *, width: float = FULL_FIGURE_PX - 104,
+def foot_legend_bottom(names, *, width: float = FULL_PLOT_PX,
                        axis_title: bool = True, grouped: bool = False,
                        axis_block: int = X_AXIS_BLOCK_PX) -> int:
     """Bottom margin (px) that holds the x axis (tick labels and title) and a foot legend
@@ -370,10 +372,18 @@ def foot_bottom(fig: go.Figure, *, width: float, axis_block: int = X_AXIS_BLOCK_
     return foot_legend_bottom(names, width=width, grouped=grouped, axis_block=axis_block)
 
 
-def tick_label_left(texts, *, least: int = 80) -> int:
-    """Left margin (px) holding y tick labels ``texts`` and the axis title beside them."""
+def x_axis_block(ticks=()) -> int:
+    """Height (px) of the x axis under a plot: tick labels (``ticks``, some broken over lines
+    with <br>) and the axis title."""
+    return X_AXIS_BLOCK_PX + TICK_LINE_PX * max((str(t).count("<br>") for t in ticks), default=0)
+
+
+def tick_label_left(texts, *, least: int = 80, title_lines: int = 1) -> int:
+    """Left margin (px) holding y tick labels ``texts`` and the axis title (of
+    ``title_lines`` lines) beside them."""
     longest = max((len(str(t)) for t in texts), default=0)
-    return max(least, int(np.ceil(TICK_CHAR_PX * longest + Y_TITLE_PX)))
+    return max(least, int(np.ceil(TICK_CHAR_PX * longest + Y_TITLE_PX
+                                  + TICK_LINE_PX * (title_lines - 1))))
 
 
 def _segments(keys: np.ndarray, *columns: np.ndarray) -> list[np.ndarray]:
@@ -853,43 +863,50 @@ def courses_figure(shown: pd.DataFrame, *, full: pd.DataFrame, look: CohortLook,
     return fig
 
 
-def panel_grid(nrow: int, ncol: int, titles, *, x_title: str, y_title: str,
-               horizontal_spacing: float, vertical_spacing: float) -> tuple[dict, list[dict]]:
-    """(layout, axes of each panel) of ``nrow`` × ``ncol`` panels sharing both axes, filled row
-    by row, each titled from ``titles`` above it; the time axis is titled under the bottom row,
-    the response axis beside the first column; inner tick labels hidden.
+def panel_grid(nrow: int, ncol: int, titles, *, horizontal_spacing: float,
+               vertical_spacing: float = 0.1, column_widths=None, shared: bool = True,
+               x_title: str = "", y_title: str = "",
+               title_size: int = PANEL_TITLE_SIZE) -> tuple[dict, list[dict]]:
+    """(layout, axes of each panel) of ``nrow`` × ``ncol`` panels filled row by row, each
+    titled from ``titles`` above it; columns as wide as ``column_widths`` say (their shares
+    of the width left after the spacing; equal by default). ``shared``: every panel on the
+    first panel's axes, the time axis titled (``x_title``) under the bottom row and the
+    response axis (``y_title``) beside the first column, inner tick labels hidden.
 
-    The layout plotly's ``make_subplots(shared_xaxes="all", shared_yaxes="all",
-    subplot_titles=...)`` builds, written out directly: building it through the figure
-    object's update calls cost more than the rest of the courses view at a million rows.
-    A panel's axes are ``{"xaxis": "x2", "yaxis": "y2"}``, to pass to its traces.
+    The layout plotly's ``make_subplots(..., subplot_titles=...)`` builds, written out
+    directly: building it through the figure object's update calls cost more than the rest
+    of the courses view at a million rows. A panel's axes are ``{"xaxis": "x2", "yaxis":
+    "y2"}``, to pass to its traces.
     """
-    w = (1.0 - horizontal_spacing * (ncol - 1)) / ncol
+    shares = np.asarray(column_widths if column_widths is not None else [1.0] * ncol, float)
+    widths = (1.0 - horizontal_spacing * (ncol - 1)) * shares / shares.sum()
+    lefts = np.concatenate(([0.0], np.cumsum(widths + horizontal_spacing)[:-1]))
     h = (1.0 - vertical_spacing * (nrow - 1)) / nrow
     layout: dict = {"annotations": []}
     panels = []
     for i in range(nrow * ncol):
         r, c = divmod(i, ncol)
         n = "" if i == 0 else str(i + 1)
-        x0 = c * (w + horizontal_spacing)
+        x0, w = float(lefts[c]), float(widths[c])
         y1 = 1.0 - r * (h + vertical_spacing)
-        xa = {"anchor": f"y{n}", "domain": [x0, x0 + w],
-              "title": {"text": x_title if r == nrow - 1 else ""}}
-        ya = {"anchor": f"x{n}", "domain": [y1 - h, y1],
-              "title": {"text": y_title if c == 0 else ""}}
-        if i:
-            xa["matches"], ya["matches"] = "x", "y"
-        if r < nrow - 1:
-            xa["showticklabels"] = False
-        if c > 0:
-            ya["showticklabels"] = False
+        xa = {"anchor": f"y{n}", "domain": [x0, x0 + w]}
+        ya = {"anchor": f"x{n}", "domain": [y1 - h, y1]}
+        if shared:
+            xa["title"] = {"text": x_title if r == nrow - 1 else ""}
+            ya["title"] = {"text": y_title if c == 0 else ""}
+            if i:
+                xa["matches"], ya["matches"] = "x", "y"
+            if r < nrow - 1:
+                xa["showticklabels"] = False
+            if c > 0:
+                ya["showticklabels"] = False
         layout[f"xaxis{n}"], layout[f"yaxis{n}"] = xa, ya
         panels.append({"xaxis": f"x{n}", "yaxis": f"y{n}"})
         if i < len(titles):
             layout["annotations"].append({
                 "text": titles[i], "x": x0 + w / 2, "y": y1, "xref": "paper", "yref": "paper",
                 "xanchor": "center", "yanchor": "bottom", "showarrow": False,
-                "font": {"size": PANEL_TITLE_SIZE}})
+                "font": {"size": title_size}})
     return layout, panels
 
 
@@ -1125,10 +1142,10 @@ def dropout_figure(dropout, *, look: CohortLook, highlight_stratum=None) -> go.F
     # for the longest (on a full-width figure at a 1,280 px page)
     groups = list(dict.fromkeys(dropout.by_stratum["label"].astype(str)))
     ticks = [look.group_title(s) for s in groups]
-    gap = (TICK_CHAR_PX * max((len(t) for t in ticks), default=0) + 30) / (FULL_FIGURE_PX - 104)
-    layout, (left, right) = panel_row([0.62, 0.38], spacing=min(0.4, max(0.22, gap)),
-                                      title_size=15,
-                                      titles=(left_title, f"{look.response} at the last visit"))
+    gap = (TICK_CHAR_PX * max((len(t) for t in ticks), default=0) + 30) / (FULL_PLOT_PX)
+    layout, (left, right) = panel_grid(1, 2, (left_title, f"{look.response} at the last visit"),
+                                       column_widths=[0.62, 0.38], shared=False, title_size=15,
+                                       horizontal_spacing=min(0.4, max(0.22, gap)))
     traces = []
     ret = dropout.retention
     if len(ret) > STEP_POINTS:   # a large cohort: each curve read on a time grid (same curve there)
@@ -1220,34 +1237,8 @@ def dropout_figure(dropout, *, look: CohortLook, highlight_stratum=None) -> go.F
                             showgrid=False, zeroline=False, title={"text": ""})
     fig = go.Figure(data=traces, layout=layout)
     _finish(fig, "Loss to follow-up, by group", subtitle=subtitle, bottom=None, top=100,
-            axis_block=X_AXIS_BLOCK_PX + (TICK_LINE_PX if unit_note else 0))
+            axis_block=x_axis_block(["<br>" if unit_note else ""]))
     return fig
-
-
-def panel_row(widths, *, spacing: float, titles, title_size: int) -> tuple[dict, list[dict]]:
-    """(layout, axes of each panel) of panels side by side, ``widths`` their shares of the
-    width left after ``spacing`` between them, each titled from ``titles`` above it (as
-    ``make_subplots(rows=1, column_widths=..., subplot_titles=...)`` lays them out, written
-    out directly: see :func:`panel_grid`)."""
-    room = 1.0 - spacing * (len(widths) - 1)
-    total = float(sum(widths))
-    layout: dict = {"annotations": []}
-    panels, x0 = [], 0.0
-    for i, w in enumerate(widths):
-        n = "" if i == 0 else str(i + 1)
-        w = room * w / total
-        layout[f"xaxis{n}"] = {"anchor": f"y{n}", "domain": [x0, x0 + w]}
-        layout[f"yaxis{n}"] = {"anchor": f"x{n}", "domain": [0.0, 1.0]}
-        panels.append({"xaxis": f"x{n}", "yaxis": f"y{n}"})
-        if i < len(titles):
-            layout["annotations"].append({
-                "text": titles[i], "x": x0 + w / 2, "y": 1.0, "xref": "paper", "yref": "paper",
-                "xanchor": "center", "yanchor": "bottom", "showarrow": False,
-                "font": {"size": title_size}})
-        x0 += w + spacing
-    return layout, panels
-
-
 
 
 # --------------------------------------------------------------------------- model checks

@@ -54,8 +54,7 @@ def create_app(*, dataset: Dataset | None = None, roles: Roles | None = None,
         settings = settings or demo_settings()
     else:
         key = datastore.pin(dataset.key, dataset)
-    context = AppContext(datasets=datastore, workbench=workbench or Workbench(
-                             max_entries=128, max_bytes=max(1, budget - budget // 2)),
+    context = AppContext(datasets=datastore, workbench=workbench or _memory_workbench(cache_mb),
                          default_key=key, default_roles=roles,
                          default_settings=settings or Settings())
     app = dash.Dash(__name__, title="cohortlens", assets_folder=str(ASSETS),
@@ -167,9 +166,8 @@ def run_server(*, data_path=None, roles: Roles | None = None, settings: Settings
             except ImportError:     # open_client says how to install it
                 pass
             logging.getLogger("distributed").setLevel(logging.WARNING)
-        budget = int(cache_mb * 2**20)
         with page_workbench(data_path, roles, scheduler, memory=_memory_workbench(cache_mb),
-                            max_bytes=max(1, budget - budget // 2)) as wb:
+                            max_bytes=_results_bytes(cache_mb)) as wb:
             app = create_app(dataset=wb.dataset, roles=roles, settings=settings, workbench=wb,
                              cache_mb=cache_mb)
             _serve(app, host, port, debug, open_browser)
@@ -185,10 +183,15 @@ def run_server(*, data_path=None, roles: Roles | None = None, settings: Settings
     _serve(app, host, port, debug, open_browser)
 
 
-def _memory_workbench(cache_mb: float) -> Workbench:
-    """The in-memory Workbench with the results' half of ``cache_mb`` (as create_app makes)."""
+def _results_bytes(cache_mb: float) -> int:
+    """The cached results' half of ``cache_mb`` (the uploads get the other half)."""
     budget = int(cache_mb * 2**20)
-    return Workbench(max_entries=128, max_bytes=max(1, budget - budget // 2))
+    return max(1, budget - budget // 2)
+
+
+def _memory_workbench(cache_mb: float) -> Workbench:
+    """The in-memory Workbench with the results' half of ``cache_mb``."""
+    return Workbench(max_entries=128, max_bytes=_results_bytes(cache_mb))
 
 
 def _serve(app, host, port, debug, open_browser) -> None:

@@ -199,25 +199,24 @@ class ClusterWorkbench:
         return self._memo(self._results, self._key(stage, roles, settings, ("explore",)),
                           "explore", lambda: cc.explore(settings))
 
-    def residuals(self, dataset, roles, settings):
+    def _explored_part(self, name: str, stage: str, dataset, roles, settings):
+        """The exploration's ``name`` result (its ``stage``'s cache key) on the cluster, or the
+        in-memory workbench's for a dataset held here (an upload)."""
         if not self.on_cluster(dataset):
-            return self.memory.residuals(dataset, roles, settings)
-        return self._explored(roles, settings, "residuals").residuals
+            return getattr(self.memory, name)(dataset, roles, settings)
+        return getattr(self._explored(roles, settings, stage), name)
+
+    def residuals(self, dataset, roles, settings):
+        return self._explored_part("residuals", "residuals", dataset, roles, settings)
 
     def variogram(self, dataset, roles, settings):
-        if not self.on_cluster(dataset):
-            return self.memory.variogram(dataset, roles, settings)
-        return self._explored(roles, settings, "variogram").variogram
+        return self._explored_part("variogram", "variogram", dataset, roles, settings)
 
     def lag_correlation(self, dataset, roles, settings):
-        if not self.on_cluster(dataset):
-            return self.memory.lag_correlation(dataset, roles, settings)
-        return self._explored(roles, settings, "lagcorr").lag_correlation
+        return self._explored_part("lag_correlation", "lagcorr", dataset, roles, settings)
 
     def summaries(self, dataset, roles, settings):
-        if not self.on_cluster(dataset):
-            return self.memory.summaries(dataset, roles, settings)
-        return self._explored(roles, settings, "summaries").summaries
+        return self._explored_part("summaries", "summaries", dataset, roles, settings)
 
     def models(self, dataset, roles, settings, choices=None):
         from analysis.cluster.models import fit_cluster_models

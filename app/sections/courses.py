@@ -130,7 +130,6 @@ def cluster_course_base(context, cohort, look: CohortLook, roles, settings):
     visit (None in its place); the group means are summed on the workers and the rest is
     read from the per-subject tables."""
     from analysis.cluster.workbench import cluster_group_means
-    from analysis.preparation.strata import MISSING_LABEL
 
     ids_text = np.asarray(cohort.subject_ids).astype(str)
     codes = np.asarray(cohort.strata.codes)

@@ -17,8 +17,7 @@ from ..figures import (CohortLook, _finish, _parenthesis, _present_strata, _robu
                        _strength, cohort_look)
 from ..figures import (RATE_LEFT, RATE_TOP,  # noqa: F401  (Dash-free: the report draws it too)
                        slope_vs_covariate_figure)
-from ..figures import (HALF_FIGURE_PX, TICK_LINE_PX, X_AXIS_BLOCK_PX, category_ticks,
-                       reference_line)
+from ..figures import HALF_FIGURE_PX, category_ticks, reference_line, x_axis_block
 from ..digest_figures import box_figure, cell_click_members, density_figure, summarised
 from ..session import AppContext
 from ..text import short
@@ -169,8 +168,7 @@ def slopes_by_stratum_figure(lines: pd.DataFrame, *, look: CohortLook, highlight
             subtitle=(f"axis cut at the 1st–99th percentile; {outside} outside" if yr else
                       "box: quartiles and median · points: subjects"),
             top=RATE_TOP, bottom=None, left=RATE_LEFT, width=HALF_FIGURE_PX,
-            axis_block=X_AXIS_BLOCK_PX + TICK_LINE_PX * (max(t.count("<br>") for t in ticks)
-                                                         if ticks else 0))
+            axis_block=x_axis_block(ticks))
     reference_line(fig, y=0, line={"color": pal.REFERENCE_COLOR, "width": 1.2, "dash": "dot"})
     fig.update_xaxes(title_text=f"{look.stratifier} group{_parenthesis(look.stratifier_unit.strip())}",
                      type="category",
